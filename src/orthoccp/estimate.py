@@ -1,0 +1,298 @@
+"""The estimation pipeline: rows -> folds -> nuisances -> moments -> solve -> covariance -> results."""
+
+from __future__ import annotations
+
+import time
+import warnings
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ._errors import InputError, OrthoCCPWarning
+from ._version import __version__
+from .covariance import estimate_covariance
+from .data import Panel
+from .folds import unit_folds
+from .learners import resolve_learners
+from .model import BoundModel, Model
+from .moments import build_moment_system
+from .nuisance import Nuisances, crossfit_nuisances
+from .results import Results, RowAccounting
+from .solver import solve_orthogonal, solve_plugin
+
+__all__ = ["estimate", "account_rows"]
+
+
+def account_rows(bound: BoundModel) -> tuple[np.ndarray, np.ndarray, RowAccounting]:
+    """Moment rows, their correction flags, and the row accounting.
+
+    A row is a moment row when its unit's next period is observed (its next row enters the
+    correction terms). In terminal models a row choosing the anchor needs no next row and is
+    a moment row too, except in the panel's final period: there rows of the other choices
+    cannot be used (their next period is censored), so dropping anchor rows as well keeps the
+    censoring from selecting on the choice. With ``discount == 0`` every row is a moment row.
+    """
+    panel = bound.panel
+    n = panel.n_rows
+    nxt = panel.next_row
+    codes = panel.choice_codes
+    R = bound.anchor_index
+    if not bound.has_next_stage:
+        acc = RowAccounting(n, n, 0, 0, {})
+        return np.arange(n), np.zeros(n, dtype=bool), acc
+    linked = nxt >= 0
+    is_last = ~linked & ~panel.gap_after
+    if bound.model.kind == "terminal":
+        after_exit = (codes == R) & (linked | panel.gap_after)
+        if after_exit.any():
+            i = int(np.flatnonzero(after_exit)[0])
+            raise InputError(
+                f"{int(after_exit.sum())} row(s) choose the terminal anchor "
+                f"{panel.choices[R]!r} but the unit has later rows (e.g. {panel.unit}="
+                f"{panel.frame[panel.unit].iloc[i]!r}, {panel.period}={panel.periods[i]}); a "
+                f"terminal choice must be a unit's last row."
+            )
+        final = panel.periods == panel.periods.max()
+        terminal_rows = (codes == R) & ~final
+        censored_exit = (codes == R) & final
+    else:
+        terminal_rows = np.zeros(n, dtype=bool)
+        censored_exit = np.zeros(n, dtype=bool)
+    use = linked | terminal_rows
+    corrected = linked
+    excluded = {
+        "last observed period (no next row)": int((is_last & ~use & ~censored_exit).sum()),
+        "gap before the next observed period": int((panel.gap_after & ~use).sum()),
+    }
+    if bound.model.kind == "terminal":
+        excluded["terminal choice in the final period (censoring)"] = int(censored_exit.sum())
+    rows = np.flatnonzero(use)
+    acc = RowAccounting(
+        n_rows=n,
+        n_moment_rows=int(rows.size),
+        n_corrected=int(corrected[rows].sum()),
+        n_terminal=int(terminal_rows.sum()),
+        excluded=excluded,
+    )
+    if rows.size == 0:
+        raise InputError(
+            "no row can serve as a moment row: no unit is observed in two consecutive periods."
+        )
+    return rows, corrected[rows], acc
+
+
+def _check_options(folds: Any, splits: Any, clip: Any, seed: Any) -> None:
+    if isinstance(splits, bool) or not isinstance(splits, (int, np.integer)) or splits < 1:
+        raise InputError(f"splits must be a positive integer, got {splits!r}.")
+    if isinstance(folds, bool) or not isinstance(folds, (int, np.integer)) or folds < 2:
+        raise InputError(f"folds must be an integer >= 2, got {folds!r}.")
+    if not isinstance(clip, (float, int)) or not (0 < float(clip) < 0.5):
+        raise InputError(f"clip must be a probability in (0, 0.5), got {clip!r}.")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InputError(f"seed must be a non-negative integer, got {seed!r}.")
+
+
+def estimate(
+    panel: Panel,
+    model: Model,
+    *,
+    learner: Any = "lightgbm",
+    regressor: Any = None,
+    folds: int = 5,
+    seed: int = 0,
+    debias: bool = True,
+    splits: int = 1,
+    scheme: str = "plain",
+    clip: float = 1e-4,
+    cov: str = "clustered",
+    small_sample: bool = True,
+    nuisances: Nuisances | None = None,
+) -> Results:
+    """Estimate a dynamic discrete choice model by cross-fitted, orthogonal CCP moments.
+
+    Parameters
+    ----------
+    panel : Panel
+        The data (see :class:`~orthoccp.Panel`).
+    model : Model
+        Choices, anchor, discount factor and flow utilities (see :class:`~orthoccp.Model`).
+    learner : str or classifier, default="lightgbm"
+        CCP learner: a registry name (``"lightgbm"``, ``"logit"``, ``"lasso_logit"``,
+        ``"random_forest"``) or any object with ``fit``/``predict_proba``. Cloned per fold.
+    regressor : str or regressor, optional
+        Continuation regressions; defaults to the registry partner of ``learner``.
+    folds : int, default=5
+        Cross-fitting folds K, by unit.
+    seed : int, default=0
+        Drives every fold split and every learner's ``random_state``.
+    debias : bool, default=True
+        ``False`` gives the plug-in estimator with conventional (first-stage-naive) errors.
+    splits : int, default=1
+        Repeated cross-fitting: S fold splits, aggregated by the median.
+    scheme : {"plain", "nested"}, default="plain"
+        How the continuation regressions' ln P_R target is cross-fitted.
+    clip : float, default=1e-4
+        CCPs are clipped to [clip, 1 - clip].
+    cov : {"clustered", "heteroskedastic"}, default="clustered"
+        Sandwich clustered by unit, or by row (cross-sections only).
+    small_sample : bool, default=True
+        Multiply the covariance by n_units / (n_units - 1).
+    nuisances : Nuisances, optional
+        Known nuisance values (e.g. the simulator's exact ones) instead of cross-fitting.
+
+    Returns
+    -------
+    Results
+
+    Notes
+    -----
+    The estimate solves :math:`\\sum_{i,t} \\psi_{it}(\\hat\\theta) = 0` with
+    :math:`\\psi = m + \\phi_\\mu + \\phi_P` (see :mod:`orthoccp.moments`), starting from the
+    plug-in pseudo-likelihood solution, and
+    :math:`\\hat V = c\\,G^{-1}\\sum_i s_i s_i' G^{-1\\prime}`, :math:`s_i = \\sum_t \\psi_{it}`.
+    With S splits, :math:`\\hat\\theta = \\mathrm{median}_s\\,\\hat\\theta_s` and
+    :math:`\\hat V = \\mathrm{median}_s[\\hat V_s + (\\hat\\theta_s - \\hat\\theta)(\\hat\\theta_s - \\hat\\theta)']`
+    (Chernozhukov et al. 2018). Valid under logit shocks, a known discount factor, finite
+    dependence, conditional independence and stationarity.
+
+    References
+    ----------
+    Hotz & Miller (1993) REStud 60; Arcidiacono & Miller (2011) Econometrica 79;
+    Chernozhukov et al. (2018) Econometrics Journal 21; Chernozhukov, Escanciano, Ichimura,
+    Newey & Robins (2022) Econometrica 90.
+    """
+    t_start = time.perf_counter()
+    if not isinstance(panel, Panel):
+        raise InputError(
+            f"panel must be an orthoccp.Panel, got {type(panel).__name__}; wrap the DataFrame "
+            f"with Panel(df, unit=..., period=..., choice=..., states=[...])."
+        )
+    if not isinstance(model, Model):
+        raise InputError(f"model must be an orthoccp.Model, got {type(model).__name__}.")
+    _check_options(folds, splits, clip, seed)
+    if scheme not in ("plain", "nested"):
+        raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
+    bound = model.bind(panel)
+    rows, corrected, accounting = account_rows(bound)
+    pair = resolve_learners(learner, regressor)
+    rng = np.random.default_rng(seed)
+    params = bound.parameters
+    p = len(params)
+    static = not bound.has_next_stage
+
+    if nuisances is not None:
+        splits = 1
+    thetas, covs, influences, decomps, plugins = [], [], [], [], []
+    n_fits = 0
+    n_clipped_moment_rows = 0
+    clipped: dict[Any, int] = {}
+    timings = {"first_stage_s": 0.0, "second_stage_s": 0.0}
+    iterations = 0
+    for _ in range(splits):
+        t0 = time.perf_counter()
+        if nuisances is not None:
+            nuis = nuisances
+        elif static:
+            J = len(panel.choices)
+            nuis = Nuisances(
+                ccp=np.full((panel.n_rows, J), 1.0 / J),
+                mu=np.full((panel.n_rows, J, bound.n_targets), np.nan),
+            )
+        else:
+            fold_of_row = unit_folds(panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys)
+            nuis = crossfit_nuisances(bound, pair, fold_of_row, rng, scheme=scheme, clip=float(clip))  # type: ignore[arg-type]
+        timings["first_stage_s"] += time.perf_counter() - t0
+        n_fits += nuis.n_fits
+        for k, v in nuis.clipped.items():
+            clipped[k] = clipped.get(k, 0) + v
+        if nuis.clipped_rows is not None:
+            # A moment row depends on the CCP at its next row.
+            nxt = panel.next_row[rows]
+            hit = nuis.clipped_rows[np.where(nxt >= 0, nxt, rows)]
+            n_clipped_moment_rows += int(hit.sum())
+
+        t1 = time.perf_counter()
+        system = build_moment_system(bound, nuis, rows, corrected)
+        theta0, info = solve_plugin(system)
+        theta = theta0
+        if debias and not static:
+            theta, info = solve_orthogonal(system, theta0)
+        iterations += info.iterations
+        comps = system.components(theta, debias=debias and not static)
+        ce = estimate_covariance(
+            cov,
+            jacobian=system.jacobian(theta),
+            components=comps,
+            units=system.units,
+            parameters=params,
+            small_sample=small_sample,
+        )
+        timings["second_stage_s"] += time.perf_counter() - t1
+        thetas.append(theta)
+        plugins.append(theta0)
+        covs.append(ce.cov)
+        decomps.append(ce.decomposition)
+        influences.append(pd.DataFrame(ce.influence, index=ce.clusters))
+
+    theta_hat = np.median(np.vstack(thetas), axis=0)
+    if splits == 1:
+        V = covs[0]
+    else:
+        V = np.median(
+            np.stack([c + np.outer(t - theta_hat, t - theta_hat) for c, t in zip(covs, thetas)]),
+            axis=0,
+        )
+    se = np.sqrt(np.diag(V))
+    if not np.all(np.isfinite(theta_hat)) or not np.all(np.isfinite(se)):
+        raise InputError("estimation produced non-finite estimates or standard errors.")
+    infl = sum(influences) / len(influences)
+    decomposition = sum(decomps) / len(decomps)
+
+    n_clipped_rows = n_clipped_moment_rows // splits
+    if n_clipped_rows > 0.01 * accounting.n_moment_rows and not static:
+        warnings.warn(
+            f"{n_clipped_rows} of {accounting.n_moment_rows} moment rows (more than 1%) use a "
+            f"probability clipped at [{clip:g}, {1 - clip:g}]; estimates may be "
+            f"sensitive to the clip bound. Inspect overlap or use a smoother learner.",
+            OrthoCCPWarning,
+            stacklevel=2,
+        )
+
+    timings["total_s"] = time.perf_counter() - t_start
+    index = pd.Index(params, name="parameter")
+    if static:
+        source = "none needed (discount 0: static logit)"
+    elif nuisances is not None:
+        source = "supplied by the caller"
+    else:
+        source = "cross-fitted"
+    return Results(
+        params=pd.Series(theta_hat, index=index, name="estimate"),
+        std_errors=pd.Series(se, index=index, name="std_error"),
+        cov=pd.DataFrame(V, index=index, columns=index),
+        debiased=bool(debias),
+        model=model.to_dict(),
+        learner=pair.name if source == "cross-fitted" else "-",
+        regressor=pair.regressor_name if source == "cross-fitted" else "-",
+        folds=int(folds),
+        splits=int(splits),
+        scheme=scheme,
+        seed=int(seed),
+        clip=float(clip),
+        cov_type=cov,
+        small_sample=bool(small_sample),
+        n_units=panel.n_units,
+        accounting=accounting,
+        clipped={str(k): int(v) for k, v in clipped.items()},
+        decomposition=decomposition,
+        influence=infl.to_numpy(),
+        influence_units=panel.unit_labels[infl.index.to_numpy()],
+        timings=timings,
+        n_learner_fits=n_fits,
+        iterations=iterations,
+        split_params=pd.DataFrame(np.vstack(thetas), columns=index) if splits > 1 else None,
+        plugin_params=pd.Series(np.median(np.vstack(plugins), axis=0), index=index, name="plug-in"),
+        nuisance_source=source,
+        version=__version__,
+    )

@@ -1,0 +1,210 @@
+"""First-stage learners: a registry of named defaults and support for any scikit-learn-style object.
+
+Every fit uses a fresh :func:`sklearn.base.clone` of the template; the user's instance is never
+fitted. Random seeds are set on every ``random_state`` parameter (also inside pipelines) from the
+one generator of the estimation run.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from sklearn.base import clone
+
+from ._errors import InputError
+
+__all__ = ["LearnerPair", "resolve_learners", "learner_names"]
+
+
+def _threads() -> int:
+    return max(1, min(os.cpu_count() or 1, 2))
+
+
+def _lgbm_common() -> dict[str, Any]:
+    # Settings chosen to work without tuning from 10^3 to 10^6 rows: shallow trees, moderate
+    # shrinkage, row/column subsampling and a minimum leaf size that keeps small-probability
+    # regions from being fitted on a handful of rows.
+    return dict(
+        n_estimators=200,
+        learning_rate=0.05,
+        num_leaves=15,
+        min_child_samples=40,
+        subsample=0.8,
+        subsample_freq=1,
+        colsample_bytree=0.8,
+        reg_lambda=1.0,
+        n_jobs=_threads(),
+        verbose=-1,
+    )
+
+
+def _lightgbm() -> tuple[Any, Any]:
+    from lightgbm import LGBMClassifier, LGBMRegressor
+
+    return LGBMClassifier(**_lgbm_common()), LGBMRegressor(**_lgbm_common())
+
+
+def _logit() -> tuple[Any, Any]:
+    from sklearn.linear_model import LinearRegression, LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    return (
+        make_pipeline(StandardScaler(), LogisticRegression(C=1e6, max_iter=5000)),
+        LinearRegression(),
+    )
+
+
+def _lasso_logit() -> tuple[Any, Any]:
+    from sklearn.linear_model import LassoCV, LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    return (
+        make_pipeline(
+            StandardScaler(),
+            LogisticRegression(l1_ratio=1.0, C=0.5, solver="saga", max_iter=2000, tol=1e-3),
+        ),
+        make_pipeline(StandardScaler(), LassoCV(cv=3, n_alphas=30)),
+    )
+
+
+def _random_forest() -> tuple[Any, Any]:
+    from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
+
+    opts = dict(n_estimators=200, min_samples_leaf=20, max_features="sqrt", n_jobs=_threads())
+    return RandomForestClassifier(**opts), RandomForestRegressor(**opts)  # type: ignore[arg-type]
+
+
+_REGISTRY: dict[str, Callable[[], tuple[Any, Any]]] = {
+    "lightgbm": _lightgbm,
+    "logit": _logit,
+    "lasso_logit": _lasso_logit,
+    "random_forest": _random_forest,
+}
+
+
+def learner_names() -> tuple[str, ...]:
+    """Names accepted by ``learner=``."""
+    return tuple(_REGISTRY)
+
+
+@dataclass(frozen=True)
+class LearnerPair:
+    """Templates for the CCP classifier and the continuation regressor.
+
+    Attributes
+    ----------
+    classifier, regressor : estimator
+        Unfitted templates; :meth:`new_classifier` and :meth:`new_regressor` clone them.
+    name : str
+        Label used in summaries (registry name or class name).
+    """
+
+    classifier: Any
+    regressor: Any
+    name: str
+    regressor_name: str
+
+    def new_classifier(self, rng: np.random.Generator) -> Any:
+        return _seeded(clone(self.classifier), rng)
+
+    def new_regressor(self, rng: np.random.Generator) -> Any:
+        return _seeded(clone(self.regressor), rng)
+
+
+def _seeded(est: Any, rng: np.random.Generator) -> Any:
+    seed = int(rng.integers(0, 2**31 - 1))
+    params = est.get_params(deep=True)
+    updates = {k: seed for k in params if k == "random_state" or k.endswith("__random_state")}
+    if updates:
+        est.set_params(**updates)
+    return est
+
+
+def _describe(obj: Any) -> str:
+    steps = getattr(obj, "steps", None)
+    if steps:
+        return "+".join(type(s[1]).__name__ for s in steps)
+    return type(obj).__name__
+
+
+def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
+    """Turn ``learner=`` / ``regressor=`` options into a :class:`LearnerPair`.
+
+    Parameters
+    ----------
+    learner : str or classifier
+        A registry name (see :func:`learner_names`) or any object with ``fit`` and
+        ``predict_proba``.
+    regressor : str or regressor, optional
+        For the continuation regressions; defaults to the registry partner of ``learner``
+        (``"lightgbm"``'s when ``learner`` is an object).
+    """
+    if isinstance(learner, str):
+        if learner not in _REGISTRY:
+            raise InputError(
+                f"learner {learner!r} is unknown; valid names: {', '.join(_REGISTRY)} "
+                f"(or pass a scikit-learn-style classifier)."
+            )
+        clf, reg = _REGISTRY[learner]()
+        name = learner
+    else:
+        for attr in ("fit", "predict_proba", "get_params"):
+            if not callable(getattr(learner, attr, None)):
+                raise InputError(
+                    f"learner {type(learner).__name__} has no {attr}() method; the CCP learner "
+                    f"must be a scikit-learn-style classifier with fit and predict_proba."
+                )
+        clf = learner
+        reg = _REGISTRY["lightgbm"]()[1]
+        name = _describe(learner)
+    if regressor is None:
+        reg_name = name if isinstance(learner, str) else "lightgbm"
+    elif isinstance(regressor, str):
+        if regressor not in _REGISTRY:
+            raise InputError(
+                f"regressor {regressor!r} is unknown; valid names: {', '.join(_REGISTRY)} "
+                f"(or pass a scikit-learn-style regressor)."
+            )
+        reg = _REGISTRY[regressor]()[1]
+        reg_name = regressor
+    else:
+        for attr in ("fit", "predict", "get_params"):
+            if not callable(getattr(regressor, attr, None)):
+                raise InputError(
+                    f"regressor {type(regressor).__name__} has no {attr}() method; it must be a "
+                    f"scikit-learn-style regressor."
+                )
+        reg = regressor
+        reg_name = _describe(regressor)
+    return LearnerPair(classifier=clf, regressor=reg, name=name, regressor_name=reg_name)
+
+
+def checked_proba(est: Any, X: np.ndarray, n_classes: int, fold: int) -> np.ndarray:
+    """``predict_proba`` aligned to codes 0..n_classes-1 through ``classes_`` and validated."""
+    raw = np.asarray(est.predict_proba(X), dtype=np.float64)
+    classes = np.asarray(getattr(est, "classes_", np.arange(raw.shape[1])))
+    if raw.ndim != 2 or raw.shape != (X.shape[0], classes.size):
+        raise InputError(
+            f"learner {type(est).__name__}.predict_proba returned shape {raw.shape}; expected "
+            f"({X.shape[0]}, {classes.size})."
+        )
+    if not np.all(np.isfinite(raw)) or raw.min() < -1e-9 or raw.max() > 1 + 1e-9:
+        raise InputError(
+            f"learner {type(est).__name__}.predict_proba returned values outside [0, 1] "
+            f"(min {np.nanmin(raw):.3g}, max {np.nanmax(raw):.3g}) in fold {fold}."
+        )
+    sums = raw.sum(axis=1)
+    if np.max(np.abs(sums - 1.0)) > 1e-6:
+        raise InputError(
+            f"learner {type(est).__name__}.predict_proba rows do not sum to 1 (largest "
+            f"deviation {np.max(np.abs(sums - 1.0)):.3g}) in fold {fold}."
+        )
+    out = np.zeros((X.shape[0], n_classes))
+    out[:, classes.astype(np.int64)] = raw
+    return out

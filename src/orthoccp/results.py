@@ -1,0 +1,307 @@
+"""Estimation results: a frozen, typed record with tables, text, HTML, LaTeX and JSON views."""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+__all__ = ["Results", "RowAccounting", "NotApplicable", "ASSUMPTIONS"]
+
+ASSUMPTIONS = (
+    "type-I extreme-value (logit) utility shocks, i.i.d. across choices and periods",
+    "known discount factor",
+    "finite dependence through the anchor choice (renewal or terminal)",
+    "conditional independence: the next state depends on the current state and choice only",
+    "stationarity: utilities, transitions and choice probabilities do not change over time",
+)
+"""The model's assumptions; the intervals' coverage holds only under them."""
+
+
+@dataclass(frozen=True)
+class NotApplicable:
+    """Marker for a statistic that does not apply, with the reason."""
+
+    reason: str
+
+    def __repr__(self) -> str:
+        return f"NotApplicable({self.reason!r})"
+
+
+@dataclass(frozen=True)
+class RowAccounting:
+    """Which rows entered the moments, and why the others did not.
+
+    Attributes
+    ----------
+    n_rows : int
+        Rows in the panel (all of them train the CCP learner).
+    n_moment_rows : int
+        Rows whose moment enters the estimation.
+    n_corrected : int
+        Moment rows whose next row enters the correction terms.
+    n_terminal : int
+        Moment rows where the terminal anchor was chosen (no next row needed).
+    excluded : dict
+        Reason -> number of rows not used as moment rows.
+    """
+
+    n_rows: int
+    n_moment_rows: int
+    n_corrected: int
+    n_terminal: int
+    excluded: dict[str, int]
+
+    def describe(self) -> str:
+        parts = [f"{self.n_moment_rows} of {self.n_rows} rows are moment rows"]
+        if self.n_terminal:
+            parts.append(f"{self.n_terminal} of them chose the terminal anchor (no next row needed)")
+        dropped = [f"{v} {k}" for k, v in self.excluded.items() if v]
+        if dropped:
+            parts.append("not used: " + ", ".join(dropped))
+        return "; ".join(parts) + "."
+
+
+def _num(x: float) -> float | None:
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True, eq=False)
+class Results:
+    """Results of a CCP estimation.
+
+    Attributes
+    ----------
+    params, std_errors : pandas.Series
+        Estimates and standard errors, indexed by parameter name.
+    cov : pandas.DataFrame
+        Covariance matrix of the estimates.
+    debiased : bool
+        True for the orthogonal (locally robust) estimator; False for the plug-in one, whose
+        standard errors ignore first-stage estimation noise.
+    decomposition : pandas.DataFrame
+        Share of each parameter's variance from the identifying moment ``m``, the continuation
+        correction ``phi_mu``, the CCP correction ``phi_P`` and their ``cross`` terms.
+    influence : numpy.ndarray
+        Per-unit influence terms (n_units x p); ``cov`` is their outer-product sum times the
+        small-sample factor. ``influence_units`` holds the matching unit labels.
+    """
+
+    params: pd.Series
+    std_errors: pd.Series
+    cov: pd.DataFrame
+    debiased: bool
+    model: dict[str, Any]
+    learner: str
+    regressor: str
+    folds: int
+    splits: int
+    scheme: str
+    seed: int
+    clip: float
+    cov_type: str
+    small_sample: bool
+    n_units: int
+    accounting: RowAccounting
+    clipped: dict[str, int]
+    decomposition: pd.DataFrame
+    influence: np.ndarray = field(repr=False)
+    influence_units: np.ndarray = field(repr=False)
+    timings: dict[str, float] = field(default_factory=dict)
+    n_learner_fits: int = 0
+    iterations: int = 0
+    split_params: pd.DataFrame | None = field(default=None, repr=False)
+    plugin_params: pd.Series | None = None
+    nuisance_source: str = "cross-fitted"
+    version: str = ""
+
+    # ----------------------------------------------------------------- statistics
+    @cached_property
+    def zstats(self) -> pd.Series:
+        """:math:`\\hat\\theta / \\mathrm{se}`."""
+        return (self.params / self.std_errors).rename("z")
+
+    @cached_property
+    def pvalues(self) -> pd.Series:
+        """Two-sided normal p-values of :math:`H_0: \\theta_k = 0`."""
+        return pd.Series(2 * stats.norm.sf(np.abs(self.zstats)), index=self.params.index, name="p")
+
+    @property
+    def hansen_j(self) -> NotApplicable:
+        """Hansen's J: the built-in moment systems are just-identified."""
+        return NotApplicable("the moment system is just-identified (as many moments as parameters)")
+
+    @property
+    def n_rows(self) -> int:
+        return self.accounting.n_rows
+
+    @property
+    def n_moment_rows(self) -> int:
+        return self.accounting.n_moment_rows
+
+    def conf_int(self, level: float = 0.95) -> pd.DataFrame:
+        """Normal-approximation confidence intervals with columns ``lower`` and ``upper``."""
+        if not 0 < level < 1:
+            raise ValueError(f"level must be in (0, 1), got {level!r}.")
+        z = stats.norm.ppf(0.5 + level / 2)
+        return pd.DataFrame(
+            {"lower": self.params - z * self.std_errors, "upper": self.params + z * self.std_errors}
+        )
+
+    def to_frame(self, level: float = 0.95) -> pd.DataFrame:
+        """Tidy table: one row per parameter."""
+        ci = self.conf_int(level)
+        return pd.DataFrame(
+            {
+                "estimate": self.params,
+                "std_error": self.std_errors,
+                "z": self.zstats,
+                "p_value": self.pvalues,
+                "ci_lower": ci["lower"],
+                "ci_upper": ci["upper"],
+            }
+        ).rename_axis("parameter")
+
+    # ----------------------------------------------------------------- views
+    @property
+    def method(self) -> str:
+        if self.debiased:
+            return "orthogonal (debiased) CCP estimator"
+        return "plug-in CCP estimator (NOT debiased; standard errors ignore first-stage noise)"
+
+    def summary(self, level: float = 0.95) -> str:
+        """Plain-text summary: estimates, sample, first stage, variance sources, assumptions."""
+        t = self.to_frame(level)
+        pct = int(round(level * 100))
+        head = f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}{f'[{pct}% conf. int.]':>24}"
+        lines = [
+            f"orthoccp {self.version}: {self.method}",
+            f"model: {self.model['kind']}, anchor {self.model['anchor']!r}, discount {self.model['discount']}",
+            "=" * len(head),
+            head,
+            "-" * len(head),
+        ]
+        for name, r in t.iterrows():
+            lines.append(
+                f"{str(name):<18}{r.estimate:>11.4f}{r.std_error:>11.4f}{r.z:>8.2f}{r.p_value:>8.3f}"
+                f"{r.ci_lower:>12.4f}{r.ci_upper:>12.4f}"
+            )
+        lines.append("-" * len(head))
+        lines.append(f"units {self.n_units}; {self.accounting.describe()}")
+        fs = (
+            f"first stage: {self.nuisance_source}; CCP learner {self.learner}, continuation "
+            f"regressor {self.regressor}; {self.folds} folds by unit, {self.splits} split(s), "
+            f"scheme {self.scheme}, seed {self.seed}; {self.n_learner_fits} learner fits"
+        )
+        lines.append(fs)
+        clipped = ", ".join(f"{k}: {v}" for k, v in self.clipped.items())
+        lines.append(f"probabilities clipped to [{self.clip:g}, {1 - self.clip:g}]; rows clipped per choice: {clipped}")
+        lines.append(
+            f"covariance: {self.cov_type} by unit"
+            + (" with n/(n-1) factor" if self.small_sample else "")
+            + ("" if self.debiased else " (first-stage noise ignored)")
+        )
+        if self.plugin_params is not None and self.debiased:
+            lines.append(
+                "plug-in estimates: "
+                + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items())
+            )
+        if self.decomposition.shape[1] > 1:
+            lines.append("variance shares (m: identifying moment, phi_mu: continuation correction, phi_P: CCP correction):")
+            for name, r in self.decomposition.iterrows():
+                lines.append(
+                    f"  {str(name):<16}" + "  ".join(f"{c} {v:6.1%}" for c, v in r.items())
+                )
+        lines.append(f"Hansen J: not applicable ({self.hansen_j.reason}).")
+        lines.append("Inference is valid only under the model's assumptions:")
+        lines.extend(f"  - {a}" for a in ASSUMPTIONS)
+        return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.summary()
+
+    def _repr_html_(self) -> str:
+        table = self.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
+        assumptions = "".join(f"<li>{a}</li>" for a in ASSUMPTIONS)
+        return (
+            f"<div><p><b>orthoccp</b>: {self.method}; model {self.model['kind']}, anchor "
+            f"{self.model['anchor']!r}, discount {self.model['discount']}</p>{table}"
+            f"<p>units {self.n_units}; {self.accounting.describe()}<br>learner {self.learner}; "
+            f"{self.folds} folds, {self.splits} split(s), seed {self.seed}</p>"
+            f"<p>Coverage holds only under the assumptions:</p><ul>{assumptions}</ul></div>"
+        )
+
+    def to_latex(self, level: float = 0.95) -> str:
+        """A booktabs-style LaTeX table of estimates and standard errors."""
+        t = self.to_frame(level)
+        rows = [
+            f"{str(k).replace('_', chr(92) + '_')} & {r.estimate:.4f} & ({r.std_error:.4f}) & "
+            f"[{r.ci_lower:.4f}, {r.ci_upper:.4f}] \\\\"
+            for k, r in t.iterrows()
+        ]
+        return "\n".join(
+            [
+                "\\begin{tabular}{lrrr}",
+                "\\toprule",
+                f"Parameter & Estimate & Std. error & {int(level * 100)}\\% interval \\\\",
+                "\\midrule",
+                *rows,
+                "\\bottomrule",
+                "\\end{tabular}",
+            ]
+        )
+
+    def to_dict(self, level: float = 0.95) -> dict[str, Any]:
+        """JSON-safe dictionary (NaN and infinities become ``None``)."""
+        t = self.to_frame(level)
+        return {
+            "params": [
+                {
+                    "name": str(k),
+                    "estimate": _num(r.estimate),
+                    "std_error": _num(r.std_error),
+                    "ci_lower": _num(r.ci_lower),
+                    "ci_upper": _num(r.ci_upper),
+                    "z": _num(r.z),
+                    "p_value": _num(r.p_value),
+                }
+                for k, r in t.iterrows()
+            ],
+            "level": level,
+            "debiased": self.debiased,
+            "model": {k: (v if k != "anchor" else str(v)) for k, v in self.model.items()},
+            "n_units": self.n_units,
+            "n_rows": self.accounting.n_rows,
+            "n_moment_rows": self.accounting.n_moment_rows,
+            "rows_excluded": dict(self.accounting.excluded),
+            "learner": self.learner,
+            "regressor": self.regressor,
+            "folds": self.folds,
+            "splits": self.splits,
+            "scheme": self.scheme,
+            "seed": self.seed,
+            "clip": self.clip,
+            "cov_type": self.cov_type,
+            "small_sample": self.small_sample,
+            "timings": {k: _num(v) for k, v in self.timings.items()},
+            "n_learner_fits": self.n_learner_fits,
+            "clipped": {str(k): int(v) for k, v in self.clipped.items()},
+            "variance_shares": {
+                str(p): {c: _num(v) for c, v in row.items()} for p, row in self.decomposition.iterrows()
+            },
+            "cov": [[_num(v) for v in row] for row in self.cov.to_numpy()],
+            "hansen_j": {"applicable": False, "reason": self.hansen_j.reason},
+            "assumptions": list(ASSUMPTIONS),
+            "version": self.version,
+        }
+
+    def to_json(self, level: float = 0.95, **kwargs: Any) -> str:
+        """:meth:`to_dict` serialised (``allow_nan=False``: never writes NaN)."""
+        return json.dumps(self.to_dict(level), allow_nan=False, **kwargs)

@@ -1,0 +1,123 @@
+"""Specification of orthoccp.estimate: the full pipeline.
+
+Oracle recovery (METHOD §7 check 2): with the exact nuisances of the solved model the estimates
+are within 3 standard errors of the truth at large N. Reproducibility and invariance follow
+scikit-learn's ``test_group_kfold`` habit: seeds fix the numbers; row order and unit labels do not
+matter.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from _support import panel_and_model, truth_nuisances
+from sklearn.linear_model import LogisticRegression
+
+import orthoccp as oc
+
+
+@pytest.mark.parametrize("name", ["ebike", "ebike3", "producers"])
+@pytest.mark.parametrize("debias", [False, True])
+def test_oracle_recovers_truth_within_three_se(big_sims, name: str, debias: bool) -> None:  # type: ignore[no-untyped-def]
+    sim = big_sims[name]
+    panel, model, order = panel_and_model(sim)
+    res = oc.estimate(panel, model, nuisances=truth_nuisances(sim, panel, model, order), debias=debias)
+    truth = pd.Series(sim.truth)[res.params.index]
+    z = (res.params - truth) / res.std_errors
+    assert np.all(np.abs(z) < 3), z
+    assert res.nuisance_source == "supplied by the caller"
+
+
+def _fit(sim, **kw):  # type: ignore[no-untyped-def]
+    panel, model, _ = panel_and_model(sim)
+    opts = dict(learner="logit", folds=3, seed=1)
+    opts.update(kw)
+    return oc.estimate(panel, model, **opts)
+
+
+def test_same_seed_same_numbers(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    a = _fit(small_ebike, learner="lightgbm")
+    b = _fit(small_ebike, learner="lightgbm")
+    np.testing.assert_array_equal(a.params.to_numpy(), b.params.to_numpy())
+    np.testing.assert_array_equal(a.std_errors.to_numpy(), b.std_errors.to_numpy())
+    c = _fit(small_ebike, learner="lightgbm", seed=2)
+    assert not np.array_equal(a.params.to_numpy(), c.params.to_numpy())
+
+
+def test_shuffled_rows_and_relabelled_units_give_same_numbers(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    base = _fit(small_ebike, learner="lightgbm")
+    df = small_ebike.data.sample(frac=1.0, random_state=3).reset_index(drop=True)
+    rng = np.random.default_rng(0)
+    units = df[small_ebike.unit].unique()
+    relabel = dict(zip(units, rng.permutation(len(units)) * 7 + 1000))
+    df[small_ebike.unit] = df[small_ebike.unit].map(relabel)
+    panel = oc.Panel(df, unit=small_ebike.unit, period=small_ebike.period, choice=small_ebike.choice,
+                     states=list(small_ebike.states))
+    _, model, _ = panel_and_model(small_ebike)
+    other = oc.estimate(panel, model, learner="lightgbm", folds=3, seed=1)
+    np.testing.assert_allclose(other.params.to_numpy(), base.params.to_numpy(), rtol=1e-10)
+    np.testing.assert_allclose(other.std_errors.to_numpy(), base.std_errors.to_numpy(), rtol=1e-10)
+
+
+def test_user_learner_is_cloned_not_fitted(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    clf = LogisticRegression(max_iter=500)
+    res = _fit(small_ebike, learner=clf, regressor="logit")
+    assert not hasattr(clf, "coef_")
+    assert res.learner == "LogisticRegression"
+    # 3 CCP fits + 3 folds x 2 choices continuation regressions.
+    assert res.n_learner_fits == 3 + 3 * 2
+
+
+def test_plugin_result_says_so_and_has_only_m(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    res = _fit(small_ebike, debias=False)
+    assert not res.debiased
+    assert "NOT debiased" in res.summary()
+    assert list(res.decomposition.columns) == ["m"]
+    deb = _fit(small_ebike)
+    assert set(deb.decomposition.columns) == {"m", "phi_mu", "phi_P", "cross"}
+    np.testing.assert_allclose(deb.decomposition.sum(axis=1), 1.0)
+
+
+def test_nested_scheme_counts_extra_fits(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    plain = _fit(small_ebike)
+    nested = _fit(small_ebike, scheme="nested")
+    # K(K-1)/2 = 3 extra classifier fits.
+    assert nested.n_learner_fits == plain.n_learner_fits + 3
+    assert np.all(np.abs(nested.params - plain.params) < 3 * plain.std_errors)
+
+
+def test_repeated_splits_take_the_median(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    res = _fit(small_ebike, splits=3)
+    assert res.split_params is not None and res.split_params.shape == (3, 2)
+    np.testing.assert_allclose(res.params, res.split_params.median(axis=0))
+    spread = ((res.split_params - res.params) ** 2).to_numpy()
+    assert np.all(res.std_errors.to_numpy() ** 2 >= np.min(spread, axis=0) - 1e-12)
+
+
+def test_row_accounting_terminal_model() -> None:
+    from orthoccp.simulate import simulate
+
+    sim = simulate("producers", units=300, periods=8, seed=2)
+    res = _fit(sim)
+    acc = res.accounting
+    exits = (sim.data[sim.choice] == sim.anchor) & (sim.data[sim.period] < sim.data[sim.period].max())
+    assert acc.n_terminal == int(exits.sum())
+    assert acc.n_moment_rows + sum(acc.excluded.values()) == len(sim.data)
+    assert "terminal" in acc.describe()
+
+
+def test_results_views_are_consistent(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    import json
+
+    res = _fit(small_ebike)
+    ci = res.conf_int(0.9)
+    assert list(ci.columns) == ["lower", "upper"]
+    np.testing.assert_allclose((ci["upper"] - ci["lower"]) / 2, 1.6448536269514722 * res.std_errors)
+    d = json.loads(res.to_json())
+    assert d["params"][0]["name"] == res.params.index[0]
+    assert d["n_moment_rows"] == res.n_moment_rows
+    assert "\\toprule" in res.to_latex()
+    assert "<table" in res._repr_html_()
+    for a in oc.ASSUMPTIONS:
+        assert a in res.summary()
