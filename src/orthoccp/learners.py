@@ -69,7 +69,7 @@ def _lasso_logit() -> tuple[Any, Any]:
             StandardScaler(),
             LogisticRegression(l1_ratio=1.0, C=0.5, solver="saga", max_iter=2000, tol=1e-3),
         ),
-        make_pipeline(StandardScaler(), LassoCV(cv=3, n_alphas=30)),
+        make_pipeline(StandardScaler(), LassoCV(cv=3)),
     )
 
 

@@ -1,0 +1,79 @@
+"""Specification of orthoccp.data: wrapping, sorting, next-row links and input errors."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import orthoccp as oc
+
+
+def _frame() -> pd.DataFrame:
+    return pd.DataFrame(
+        {
+            "id": ["b", "b", "b", "a", "a", "a"],
+            "t": [2, 0, 1, 0, 1, 3],
+            "a": ["keep", "keep", "swap", "keep", "swap", "keep"],
+            "x": [0.3, 0.1, 0.2, 0.5, 0.6, 0.7],
+            "road": pd.Categorical(["hill", "flat", "hill", "flat", "flat", "flat"]),
+        }
+    )
+
+
+def test_sorts_and_links_consecutive_periods_only() -> None:
+    p = oc.Panel(_frame(), unit="id", period="t", choice="a", states=["x"])
+    assert p.frame["id"].tolist() == ["a", "a", "a", "b", "b", "b"]
+    assert p.frame["t"].tolist() == [0, 1, 3, 0, 1, 2]
+    # a: 0 -> 1 linked; 1 -> 3 is a gap; 3 is last. b: 0 -> 1 -> 2.
+    assert p.next_row.tolist() == [1, -1, -1, 4, 5, -1]
+    assert p.gap_after.tolist() == [False, True, False, False, False, False]
+    assert p.choices == ("keep", "swap")
+    assert p.n_units == 2
+
+
+def test_categorical_states_become_indicators() -> None:
+    p = oc.Panel(_frame(), unit="id", period="t", choice="a", states=["x", "road"])
+    assert p.feature_names == ("x", "road=flat", "road=hill")
+    assert p.features.shape == (6, 3)
+    np.testing.assert_array_equal(p.features[:, 1] + p.features[:, 2], 1.0)
+
+
+def test_integer_choice_labels() -> None:
+    df = _frame().assign(a=lambda d: (d["a"] == "swap").astype(int))
+    p = oc.Panel(df, unit="id", period="t", choice="a", states=["x"])
+    assert p.choices == (0, 1)
+
+
+def _with(**changes: object) -> pd.DataFrame:
+    df = _frame()
+    for k, v in changes.items():
+        df[k] = v
+    return df
+
+
+BAD = [
+    (dict(frame=_frame(), unit="bike"), "unit column 'bike' is not in the data"),
+    (dict(frame=_frame(), states=["wear"]), "state column 'wear' is not in the data"),
+    (dict(frame=_frame(), states=[]), "states is empty"),
+    (dict(frame=_frame(), states=["x", "x"]), "listed twice"),
+    (dict(frame=_frame(), states=["t"]), "also the period column"),
+    (dict(frame=_with(t=[0, 0, 1, 0, 1, 3])), "share a unit and period"),
+    (dict(frame=_with(t=[0.5, 0, 1, 0, 1, 3])), "whole numbers"),
+    (dict(frame=_with(t=["0", "1", "2", "0", "1", "2"])), "must hold integers"),
+    (dict(frame=_with(x=[0.1, np.nan, 0.2, 0.5, 0.6, 0.7])), "1 missing or infinite"),
+    (dict(frame=_with(x=[0.1, np.inf, 0.2, 0.5, 0.6, 0.7])), "missing or infinite"),
+    (dict(frame=_with(x=["0.1", "oops", "0.2", "0.5", "0.6", "0.7"])), "holds text such as 'oops'"),
+    (dict(frame=_with(x=["0.1", "0.3", "0.2", "0.5", "0.6", "0.7"])), "numbers stored as text"),
+    (dict(frame=_with(a=["keep", None, "swap", "keep", "swap", "keep"])), "'a' column has 1 missing"),
+    (dict(frame=_frame().iloc[0:0]), "no rows"),
+    (dict(frame=[1, 2, 3]), "must be a pandas DataFrame"),
+]
+
+
+@pytest.mark.parametrize(("kwargs", "message"), BAD)
+def test_bad_inputs_raise_clear_errors(kwargs: dict, message: str) -> None:
+    opts = dict(unit="id", period="t", choice="a", states=["x"])
+    opts.update({k: v for k, v in kwargs.items() if k != "frame"})
+    with pytest.raises(oc.InputError, match=message.replace("(", r"\(").replace(")", r"\)")):
+        oc.Panel(kwargs["frame"], **opts)
