@@ -108,7 +108,7 @@ def estimate_covariance(
     clusters = _REGISTRY[name](units)
     Ginv = np.linalg.inv(jacobian)
     pieces = {k: _sum_by(clusters, v) @ -Ginv.T for k, v in components.items()}
-    influence = sum(pieces.values())
+    influence = np.sum(np.stack(list(pieces.values())), axis=0)
     n_g = influence.shape[0]
     if n_g < 2:
         raise InputError("the covariance needs at least two clusters (units).")

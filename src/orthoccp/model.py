@@ -203,8 +203,8 @@ class BoundModel:
                     f"persistent state {col!r} is not one of the states "
                     f"({', '.join(panel.states)}); persistent columns must be states."
                 )
-        zR_params = []
-        zR_constants = []
+        zR_params: list[int] = []
+        zR_constants: list[int] = []
         R_spec = {
             name: col
             for choice, spec in model.utility.items()

@@ -184,7 +184,7 @@ def crossfit_nuisances(
     if not bound.has_next_stage:
         return Nuisances(ccp=ccp, mu=mu, clipped=clipped, n_fits=n_fits,
                          timings={"ccp_s": t_ccp, "continuation_s": 0.0}, folds=folds,
-                         clipped_rows=hit.any(axis=1))
+                         clipped_rows=np.asarray(hit.any(axis=1)))
 
     t1 = time.perf_counter()
     nxt = panel.next_row
@@ -245,7 +245,7 @@ def crossfit_nuisances(
         n_fits=n_fits,
         timings={"ccp_s": t_ccp, "continuation_s": t_cont},
         folds=folds,
-        clipped_rows=hit.any(axis=1),
+        clipped_rows=np.asarray(hit.any(axis=1)),
     )
 
 
@@ -278,4 +278,4 @@ def nuisances_from_truth(
         ccp, hit = clip_probabilities(ccp, clip)
     clipped = {panel.choices[j]: int(hit[:, j].sum()) for j in range(J)}
     return Nuisances(ccp=ccp, mu=mu, clipped=clipped, n_fits=0, timings={}, folds=None,
-                     clipped_rows=hit.any(axis=1))
+                     clipped_rows=np.asarray(hit.any(axis=1)))

@@ -314,7 +314,7 @@ def _producer_transitions(X: np.ndarray) -> tuple[Transition | None, ...]:
 
 def _producer_initial(rng: np.random.Generator, X: np.ndarray) -> np.ndarray:
     """Producers enter the sample with demand uniform on levels 5..14."""
-    return rng.integers(5, _DEMAND_LEVELS, size=X.shape[0]).astype(np.intp)
+    return np.asarray(rng.integers(5, _DEMAND_LEVELS, size=X.shape[0]), dtype=np.intp)
 
 
 def _frozen(mapping: dict[str, dict[str, str]]) -> Mapping[str, Mapping[str, str]]:

@@ -158,7 +158,7 @@ def _discount(value: object) -> float:
 def _draw_choices(rng: np.random.Generator, ccp: np.ndarray) -> np.ndarray:
     """Draw one choice index per row of ``ccp`` (shape ``(n, J)``)."""
     cum = np.cumsum(ccp, axis=1)
-    draw = rng.random(ccp.shape[0])
+    draw = np.asarray(rng.random(ccp.shape[0]))
     return (cum[:, :-1] < draw[:, None]).sum(axis=1)
 
 

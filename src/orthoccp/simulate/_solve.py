@@ -132,7 +132,7 @@ class Transition:
             Next-state indices, same length as ``units``.
         """
         cum = np.cumsum(self.prob[units, states], axis=1)
-        draw = rng.random(units.shape[0])
+        draw = np.asarray(rng.random(units.shape[0]))
         slot = (cum[:, :-1] < draw[:, None]).sum(axis=1)
         return self.dest[states, slot]
 

@@ -1,0 +1,1046 @@
+"""Spec files: the TOML description of a panel, a model and the estimation options.
+
+A spec file has the tables ``[data]``, ``[model]``, ``[utility.<choice>]`` (one per choice
+with parameters), and the optional ``[first_stage]`` and ``[inference]``::
+
+    [data]
+    unit = "bike"
+    period = "week"
+    choice = "action"
+    states = ["wear", "x0", "x1"]
+    path = "panel.csv"            # optional, relative to the spec file
+
+    [model]
+    kind = "renewal"
+    anchor = "swap"
+    discount = 0.95
+    persistent = ["x0"]           # optional
+
+    [utility.keep]
+    wear_cost = "wear_scaled"     # parameter = column ("1" is a constant)
+
+    [utility.swap]
+    swap_cost = "1"
+
+    [first_stage]                 # optional
+    learner = "lightgbm"
+    folds = 5
+    seed = 0
+
+    [inference]                   # optional
+    cov = "clustered"
+
+:func:`read_spec` parses and validates a file into a frozen :class:`Spec`; every error is a
+:class:`SpecError` (an :class:`~orthoccp.InputError`) whose message names the file, the key,
+the expected type and the offending value. :func:`write_spec` writes a spec (or any nested
+mapping of TOML values) back to disk. :func:`read_data` and :func:`write_data` handle the
+panel files (CSV, or Parquet through pyarrow).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import importlib.util
+import math
+import os
+import re
+import sys
+from collections.abc import Hashable, Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from pandas.api import types as ptypes
+
+from ._errors import InputError
+from .covariance import covariance_names
+from .data import Panel
+from .learners import learner_names
+from .model import CONSTANT, Model
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - exercised on Python 3.10 only
+    import tomli as tomllib
+
+__all__ = [
+    "DataSpec",
+    "FirstStageSpec",
+    "InferenceSpec",
+    "ModelSpec",
+    "Spec",
+    "SpecError",
+    "data_format",
+    "data_stem",
+    "dumps_toml",
+    "parse_spec",
+    "read_data",
+    "read_spec",
+    "write_data",
+    "write_spec",
+]
+
+KINDS = ("renewal", "terminal")
+SCHEMES = ("plain", "nested")
+CSV_SUFFIXES = (".csv", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip")
+PARQUET_SUFFIXES = (".parquet", ".pq")
+
+
+class SpecError(InputError):
+    """A spec file (or a spec option) that is malformed, mistyped or inconsistent.
+
+    Parameters
+    ----------
+    message : str
+        Full message; it names the file, the key and the offending value.
+    key : str, optional
+        Dotted key the error is about (``"first_stage.folds"``), for programmatic use.
+    """
+
+    def __init__(self, message: str, *, key: str | None = None) -> None:
+        super().__init__(message)
+        self.key = key
+
+
+# --------------------------------------------------------------------------- dataclasses
+@dataclass(frozen=True)
+class DataSpec:
+    """The ``[data]`` table: which columns play which role.
+
+    Attributes
+    ----------
+    unit, period, choice : str
+        Columns of the decision maker, the integer period and the chosen alternative.
+    states : tuple of str
+        Columns the first-stage learners see.
+    path : pathlib.Path or None
+        Data file, already resolved against the spec's folder; ``None`` when not given.
+    """
+
+    unit: str
+    period: str
+    choice: str
+    states: tuple[str, ...]
+    path: Path | None = None
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """The ``[model]`` table.
+
+    Attributes
+    ----------
+    kind : {"renewal", "terminal"}
+        Kind of the anchor choice.
+    anchor : str or int
+        Anchor label as written in the file; matched to the data's labels by
+        :meth:`Spec.build_model`.
+    discount : float
+        Discount factor in ``[0, 1)``.
+    persistent : tuple of str
+        States a renewal does not reset.
+    """
+
+    kind: str
+    anchor: str | int
+    discount: float
+    persistent: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class FirstStageSpec:
+    """The ``[first_stage]`` table (all keys optional).
+
+    Attributes
+    ----------
+    learner : str
+        CCP learner name (see :func:`orthoccp.learner_names`).
+    regressor : str or None
+        Continuation regressor name; ``None`` uses the learner's partner.
+    folds : int
+        Cross-fitting folds (>= 2).
+    seed : int
+        Seed of the fold split and the learners (>= 0).
+    splits : int
+        Repeated cross-fitting splits (>= 1).
+    scheme : {"plain", "nested"}
+        Cross-fitting scheme of the continuation target.
+    clip : float
+        Probability clip bound in (0, 0.5).
+    """
+
+    learner: str = "lightgbm"
+    regressor: str | None = None
+    folds: int = 5
+    seed: int = 0
+    splits: int = 1
+    scheme: str = "plain"
+    clip: float = 1e-4
+
+
+@dataclass(frozen=True)
+class InferenceSpec:
+    """The ``[inference]`` table (all keys optional).
+
+    Attributes
+    ----------
+    cov : str
+        Covariance type (see :func:`orthoccp.covariance_names`).
+    small_sample : bool
+        Apply the n/(n-1) factor.
+    debias : bool
+        ``False`` selects the plug-in estimator.
+    """
+
+    cov: str = "clustered"
+    small_sample: bool = True
+    debias: bool = True
+
+
+@dataclass(frozen=True)
+class Spec:
+    """A validated spec: data roles, model, utilities and estimation options.
+
+    Attributes
+    ----------
+    data : DataSpec
+        Column roles and the optional data file.
+    model : ModelSpec
+        Kind, anchor, discount and persistent states.
+    utility : Mapping
+        Choice label (as written in the file: table keys are strings) -> parameter name ->
+        column (``"1"`` is a constant). Read-only.
+    first_stage : FirstStageSpec
+        Learner and cross-fitting options.
+    inference : InferenceSpec
+        Covariance and estimator options.
+    source : pathlib.Path or None
+        File the spec was read from.
+
+    Examples
+    --------
+    >>> spec = parse_spec({
+    ...     "data": {"unit": "id", "period": "t", "choice": "a", "states": ["x"]},
+    ...     "model": {"kind": "renewal", "anchor": "swap", "discount": 0.9},
+    ...     "utility": {"keep": {"cost": "x"}, "swap": {"swap_cost": "1"}},
+    ... })
+    >>> spec.parameters
+    ('cost', 'swap_cost')
+    >>> spec.first_stage.learner
+    'lightgbm'
+    """
+
+    data: DataSpec
+    model: ModelSpec
+    utility: Mapping[str, Mapping[str, str]]
+    first_stage: FirstStageSpec = field(default_factory=FirstStageSpec)
+    inference: InferenceSpec = field(default_factory=InferenceSpec)
+    source: Path | None = None
+
+    @property
+    def parameters(self) -> tuple[str, ...]:
+        """Parameter names in order of first appearance in the utility tables."""
+        names: list[str] = []
+        for params in self.utility.values():
+            for name in params:
+                if name not in names:
+                    names.append(name)
+        return tuple(names)
+
+    # ------------------------------------------------------------------ options
+    def with_options(
+        self,
+        *,
+        learner: str | None = None,
+        folds: int | None = None,
+        seed: int | None = None,
+        debias: bool | None = None,
+    ) -> Spec:
+        """A copy with some options replaced (``None`` keeps the spec's value).
+
+        Parameters
+        ----------
+        learner : str, optional
+            Replaces ``first_stage.learner``.
+        folds : int, optional
+            Replaces ``first_stage.folds``.
+        seed : int, optional
+            Replaces ``first_stage.seed``.
+        debias : bool, optional
+            Replaces ``inference.debias``.
+
+        Returns
+        -------
+        Spec
+
+        Raises
+        ------
+        SpecError
+            When a value is out of range; the message names the command-line option.
+        """
+        fs = self.first_stage
+        chk = _Checker(None)
+        if learner is not None:
+            fs = dataclasses.replace(fs, learner=chk.choice("--learner", learner, learner_names()))
+        if folds is not None:
+            fs = dataclasses.replace(fs, folds=chk.integer("--folds", folds, minimum=2))
+        if seed is not None:
+            fs = dataclasses.replace(fs, seed=chk.integer("--seed", seed, minimum=0))
+        inf = self.inference
+        if debias is not None:
+            inf = dataclasses.replace(inf, debias=chk.boolean("debias", debias))
+        return dataclasses.replace(self, first_stage=fs, inference=inf)
+
+    def estimate_options(self) -> dict[str, Any]:
+        """Keyword arguments for :func:`orthoccp.estimate` (everything but panel and model).
+
+        Returns
+        -------
+        dict
+            ``learner, regressor, folds, seed, splits, scheme, clip, cov, small_sample,
+            debias``.
+        """
+        fs, inf = self.first_stage, self.inference
+        return {
+            "learner": fs.learner,
+            "regressor": fs.regressor,
+            "folds": fs.folds,
+            "seed": fs.seed,
+            "splits": fs.splits,
+            "scheme": fs.scheme,
+            "clip": fs.clip,
+            "cov": inf.cov,
+            "small_sample": inf.small_sample,
+            "debias": inf.debias,
+        }
+
+    # ------------------------------------------------------------------ data
+    def data_path(self, override: str | os.PathLike[str] | None = None) -> Path:
+        """The data file: ``override`` (relative to the working directory) or ``data.path``.
+
+        Raises
+        ------
+        SpecError
+            When neither is given.
+        """
+        if override is not None:
+            return Path(override)
+        if self.data.path is None:
+            raise SpecError(
+                f"{_where(self.source)}no data file: pass DATA on the command line or set "
+                f"path in [data] (relative to the spec file).",
+                key="data.path",
+            )
+        return self.data.path
+
+    def load_data(self, override: str | os.PathLike[str] | None = None) -> pd.DataFrame:
+        """Read the data file named by :meth:`data_path` (see :func:`read_data`)."""
+        return read_data(self.data_path(override))
+
+    def build_panel(self, frame: pd.DataFrame) -> Panel:
+        """Wrap ``frame`` as a :class:`~orthoccp.Panel` with the spec's column roles.
+
+        Parameters
+        ----------
+        frame : pandas.DataFrame
+            The panel data.
+
+        Returns
+        -------
+        Panel
+
+        Raises
+        ------
+        SpecError
+            When a column named in ``[data]`` is not in ``frame``.
+        orthoccp.InputError
+            When the data fail the panel's checks (duplicates, text in a state, ...).
+        """
+        d = self.data
+        for key, name in (("unit", d.unit), ("period", d.period), ("choice", d.choice)):
+            self._require_column(frame, f"data.{key}", name)
+        for name in d.states:
+            self._require_column(frame, "data.states", name)
+        return Panel(frame, unit=d.unit, period=d.period, choice=d.choice, states=list(d.states))
+
+    def build_model(self, data: pd.DataFrame | Panel) -> Model:
+        """The :class:`~orthoccp.Model`, with choice labels matched to the data's labels.
+
+        TOML table keys are always strings, so ``[utility.1]`` and ``anchor = 1`` (or
+        ``"1"``) are matched to the integer label ``1`` when the data's choice column holds
+        integers; string labels are matched as written.
+
+        Parameters
+        ----------
+        data : pandas.DataFrame or Panel
+            The data whose choice column fixes the labels.
+
+        Returns
+        -------
+        Model
+
+        Raises
+        ------
+        SpecError
+            When the anchor or a utility choice is not observed, or a utility column is
+            not in the data.
+        """
+        if isinstance(data, Panel):
+            frame = data.frame
+            observed = list(data.choices)
+            integer_labels = all(isinstance(c, int) and not isinstance(c, bool) for c in observed)
+        else:
+            frame = data
+            self._require_column(frame, "data.choice", self.data.choice)
+            col = frame[self.data.choice]
+            integer_labels = ptypes.is_integer_dtype(col) and not ptypes.is_bool_dtype(col)
+            observed = [_plain(v) for v in pd.unique(col.dropna())]
+        anchor = self._match_choice("model.anchor", self.model.anchor, observed, integer_labels)
+        utility: dict[Hashable, dict[str, str]] = {}
+        for label, params in self.utility.items():
+            key = f"utility.{_toml_key(label)}"
+            matched = self._match_choice(key, label, observed, integer_labels)
+            for name, column in params.items():
+                if column != CONSTANT:
+                    self._require_column(frame, f"{key}.{_toml_key(name)}", column)
+            utility[matched] = dict(params)
+        return Model(
+            anchor=anchor,
+            kind=self.model.kind,  # type: ignore[arg-type]
+            discount=self.model.discount,
+            utility=utility,
+            persistent=self.model.persistent,
+        )
+
+    def _require_column(self, frame: pd.DataFrame, key: str, name: str) -> None:
+        if name not in frame.columns:
+            raise SpecError(
+                f"{_where(self.source)}{key}: column {name!r} is not in the data; available "
+                f"columns: {_list_columns(frame.columns)}.",
+                key=key,
+            )
+
+    def _match_choice(
+        self, key: str, label: str | int, observed: Sequence[Any], integer_labels: bool
+    ) -> Any:
+        if integer_labels:
+            try:
+                wanted: Any = int(str(label).strip())
+            except ValueError:
+                wanted = None
+            if wanted is not None and wanted in observed:
+                return wanted
+        for value in observed:
+            if str(value) == str(label):
+                return value
+        shown = ", ".join(repr(v) for v in sorted(observed, key=str))
+        kind = "integer " if integer_labels else ""
+        raise SpecError(
+            f"{_where(self.source)}{key}: choice {label!r} is not among the {kind}choices "
+            f"observed in column {self.data.choice!r} ({shown}).",
+            key=key,
+        )
+
+    # ------------------------------------------------------------------ output
+    def to_dict(self, *, relative_to: str | os.PathLike[str] | None = None) -> dict[str, Any]:
+        """The spec as nested plain Python values (the shape :func:`parse_spec` reads).
+
+        Parameters
+        ----------
+        relative_to : path-like, optional
+            Folder the data path is written relative to (the folder of the spec file it is
+            written to); absolute when omitted.
+
+        Returns
+        -------
+        dict
+        """
+        data: dict[str, Any] = {
+            "unit": self.data.unit,
+            "period": self.data.period,
+            "choice": self.data.choice,
+            "states": list(self.data.states),
+        }
+        if self.data.path is not None:
+            data["path"] = _relative_path(self.data.path, relative_to)
+        model: dict[str, Any] = {
+            "kind": self.model.kind,
+            "anchor": self.model.anchor,
+            "discount": self.model.discount,
+        }
+        if self.model.persistent:
+            model["persistent"] = list(self.model.persistent)
+        first_stage = {
+            k: v for k, v in dataclasses.asdict(self.first_stage).items() if v is not None
+        }
+        return {
+            "data": data,
+            "model": model,
+            "utility": {label: dict(params) for label, params in self.utility.items()},
+            "first_stage": first_stage,
+            "inference": dataclasses.asdict(self.inference),
+        }
+
+
+# --------------------------------------------------------------------------- parsing
+_TOP_KEYS = ("data", "model", "utility", "first_stage", "inference")
+_DATA_KEYS = ("unit", "period", "choice", "states", "path")
+_MODEL_KEYS = ("kind", "anchor", "discount", "persistent")
+_FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme", "clip")
+_INFERENCE_KEYS = ("cov", "small_sample", "debias")
+
+
+def _where(source: Path | None) -> str:
+    return f"{source}: " if source is not None else ""
+
+
+def _type_name(value: Any) -> str:
+    """The TOML name of a parsed value's type."""
+    if isinstance(value, bool):
+        return "boolean"
+    if isinstance(value, int):
+        return "integer"
+    if isinstance(value, float):
+        return "float"
+    if isinstance(value, str):
+        return "string"
+    if isinstance(value, (list, tuple)):
+        return "array"
+    if isinstance(value, Mapping):
+        return "table"
+    return type(value).__name__
+
+
+def _show(value: Any) -> str:
+    text = repr(value)
+    if len(text) > 60:
+        text = text[:57] + "..."
+    return f"{text} ({_type_name(value)})"
+
+
+def _list_columns(columns: Iterable[Any], limit: int = 12) -> str:
+    cols = [str(c) for c in columns]
+    more = f", ... ({len(cols) - limit} more)" if len(cols) > limit else ""
+    return ", ".join(cols[:limit]) + more
+
+
+class _Checker:
+    """Type and range checks whose errors name the file and the dotted key."""
+
+    def __init__(self, source: Path | None) -> None:
+        self.source = source
+
+    def fail(self, key: str, message: str) -> SpecError:
+        return SpecError(f"{_where(self.source)}{message}", key=key)
+
+    def table(self, key: str, value: Any) -> Mapping[str, Any]:
+        if not isinstance(value, Mapping):
+            raise self.fail(key, f"{key} must be a table, got {_show(value)}.")
+        return value
+
+    def keys(self, key: str, table: Mapping[str, Any], valid: Sequence[str]) -> None:
+        unknown = [k for k in table if k not in valid]
+        if not unknown:
+            return
+        if not key:
+            raise self.fail(
+                unknown[0],
+                f"unknown table or key {unknown[0]!r} at the top level; valid tables: "
+                f"{', '.join(valid)}.",
+            )
+        raise self.fail(
+            f"{key}.{unknown[0]}",
+            f"unknown key {unknown[0]!r} in [{key}]; valid keys: {', '.join(valid)}.",
+        )
+
+    def required(self, key: str, table: Mapping[str, Any], name: str, what: str) -> Any:
+        if name not in table:
+            raise self.fail(f"{key}.{name}", f"missing required key {key}.{name} ({what}).")
+        return table[name]
+
+    def string(self, key: str, value: Any) -> str:
+        if not isinstance(value, str):
+            raise self.fail(key, f"{key} must be a string, got {_show(value)}.")
+        if not value:
+            raise self.fail(key, f"{key} must not be empty.")
+        return value
+
+    def strings(self, key: str, value: Any, *, allow_empty: bool) -> tuple[str, ...]:
+        if not isinstance(value, (list, tuple)):
+            raise self.fail(key, f"{key} must be an array of strings, got {_show(value)}.")
+        for item in value:
+            if not isinstance(item, str) or not item:
+                raise self.fail(
+                    key, f"{key} must be an array of non-empty strings; element {_show(item)}."
+                )
+        if not value and not allow_empty:
+            raise self.fail(key, f"{key} must name at least one column, got [].")
+        dup = [v for v in value if list(value).count(v) > 1]
+        if dup:
+            raise self.fail(key, f"{key} lists {dup[0]!r} twice.")
+        return tuple(value)
+
+    def integer(self, key: str, value: Any, *, minimum: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+            raise self.fail(key, f"{key} must be an integer >= {minimum}, got {_show(value)}.")
+        if value < minimum:
+            raise self.fail(key, f"{key} must be an integer >= {minimum}, got {value!r}.")
+        return int(value)
+
+    def number(self, key: str, value: Any) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+            raise self.fail(key, f"{key} must be a number, got {_show(value)}.")
+        out = float(value)
+        if not math.isfinite(out):
+            raise self.fail(key, f"{key} must be a finite number, got {value!r}.")
+        return out
+
+    def boolean(self, key: str, value: Any) -> bool:
+        if not isinstance(value, (bool, np.bool_)):
+            raise self.fail(key, f"{key} must be true or false, got {_show(value)}.")
+        return bool(value)
+
+    def choice(self, key: str, value: Any, valid: Sequence[str]) -> str:
+        text = self.string(key, value)
+        if text not in valid:
+            raise self.fail(
+                key,
+                f"{key} must be one of {', '.join(repr(v) for v in valid)}, got {text!r}.",
+            )
+        return text
+
+    def label(self, key: str, value: Any) -> str | int:
+        if isinstance(value, bool) or not isinstance(value, (str, int)):
+            raise self.fail(
+                key, f"{key} must be a choice label (string or integer), got {_show(value)}."
+            )
+        if isinstance(value, str) and not value:
+            raise self.fail(key, f"{key} must not be empty.")
+        return value
+
+
+def parse_spec(
+    document: Mapping[str, Any],
+    *,
+    base_dir: str | os.PathLike[str] | None = None,
+    source: str | os.PathLike[str] | None = None,
+) -> Spec:
+    """Validate a parsed spec document (nested mappings, as from :mod:`tomllib`).
+
+    Parameters
+    ----------
+    document : Mapping
+        The spec's tables.
+    base_dir : path-like, optional
+        Folder that a relative ``data.path`` is resolved against; the working directory
+        when omitted.
+    source : path-like, optional
+        File name used in error messages and kept as :attr:`Spec.source`.
+
+    Returns
+    -------
+    Spec
+
+    Raises
+    ------
+    SpecError
+        For an unknown or missing key, a wrong type or an out-of-range value; the message
+        names the key, the expected type and the value, and lists valid keys or values.
+    """
+    src = Path(source) if source is not None else None
+    chk = _Checker(src)
+    doc = chk.table("spec", document)
+    chk.keys("", doc, _TOP_KEYS)
+    for name in ("data", "model", "utility"):
+        if name not in doc:
+            raise chk.fail(name, f"missing required table [{name}].")
+
+    # [data]
+    data = chk.table("data", doc["data"])
+    chk.keys("data", data, _DATA_KEYS)
+    unit = chk.string("data.unit", chk.required("data", data, "unit", "the unit column"))
+    period = chk.string("data.period", chk.required("data", data, "period", "the period column"))
+    choice = chk.string("data.choice", chk.required("data", data, "choice", "the choice column"))
+    states = chk.strings(
+        "data.states", chk.required("data", data, "states", "the state columns"), allow_empty=False
+    )
+    roles = {unit: "data.unit", period: "data.period", choice: "data.choice"}
+    if len(roles) < 3:
+        raise chk.fail("data", "data.unit, data.period and data.choice must name three different columns.")
+    for s in states:
+        if s in roles:
+            raise chk.fail("data.states", f"data.states lists {s!r}, which is already {roles[s]}.")
+    path: Path | None = None
+    if "path" in data:
+        raw_path = Path(chk.string("data.path", data["path"])).expanduser()
+        if not raw_path.is_absolute():
+            base = Path(base_dir) if base_dir is not None else Path.cwd()
+            raw_path = base / raw_path
+        path = raw_path
+
+    # [model]
+    model = chk.table("model", doc["model"])
+    chk.keys("model", model, _MODEL_KEYS)
+    kind = chk.choice("model.kind", chk.required("model", model, "kind", "'renewal' or 'terminal'"), KINDS)
+    anchor = chk.label("model.anchor", chk.required("model", model, "anchor", "the anchor choice"))
+    discount = chk.number(
+        "model.discount", chk.required("model", model, "discount", "a number in [0, 1)")
+    )
+    if not 0.0 <= discount < 1.0:
+        raise chk.fail(
+            "model.discount",
+            f"model.discount must be in [0, 1) (the infinite-horizon model needs a discount "
+            f"below 1; 0 gives a static logit), got {model['discount']!r}.",
+        )
+    persistent = chk.strings("model.persistent", model.get("persistent", []), allow_empty=True)
+    for s in persistent:
+        if s not in states:
+            raise chk.fail(
+                "model.persistent",
+                f"model.persistent lists {s!r}, which is not one of data.states.",
+            )
+
+    # [utility.<choice>]
+    utility_doc = chk.table("utility", doc["utility"])
+    if not utility_doc:
+        raise chk.fail("utility", "[utility] is empty; add a table [utility.<choice>] per choice.")
+    utility: dict[str, Mapping[str, str]] = {}
+    for label, params in utility_doc.items():
+        key = f"utility.{_toml_key(label)}"
+        if not isinstance(params, Mapping):
+            raise chk.fail(
+                key,
+                f"{key} must be a table of parameter = column (\"1\" for a constant), got "
+                f"{_show(params)}; write it as [{key}].",
+            )
+        table: dict[str, str] = {}
+        for name, column in params.items():
+            pkey = f"{key}.{_toml_key(name)}"
+            if isinstance(column, Mapping):
+                raise chk.fail(
+                    pkey, f"{pkey} must be a column name (string), got a table; nest one level only."
+                )
+            table[name] = chk.string(pkey, column)
+        utility[str(label)] = MappingProxyType(table)
+    if not any(utility.values()):
+        raise chk.fail("utility", "the [utility.<choice>] tables declare no parameters.")
+
+    # [first_stage]
+    fs_doc = chk.table("first_stage", doc.get("first_stage", {}))
+    chk.keys("first_stage", fs_doc, _FIRST_STAGE_KEYS)
+    default_fs = FirstStageSpec()
+    learners = learner_names()
+    regressor = fs_doc.get("regressor")
+    first_stage = FirstStageSpec(
+        learner=chk.choice("first_stage.learner", fs_doc.get("learner", default_fs.learner), learners),
+        regressor=None if regressor is None else chk.choice("first_stage.regressor", regressor, learners),
+        folds=chk.integer("first_stage.folds", fs_doc.get("folds", default_fs.folds), minimum=2),
+        seed=chk.integer("first_stage.seed", fs_doc.get("seed", default_fs.seed), minimum=0),
+        splits=chk.integer("first_stage.splits", fs_doc.get("splits", default_fs.splits), minimum=1),
+        scheme=chk.choice("first_stage.scheme", fs_doc.get("scheme", default_fs.scheme), SCHEMES),
+        clip=chk.number("first_stage.clip", fs_doc.get("clip", default_fs.clip)),
+    )
+    if not 0.0 < first_stage.clip < 0.5:
+        raise chk.fail(
+            "first_stage.clip",
+            f"first_stage.clip must be a probability in (0, 0.5), got {fs_doc['clip']!r}.",
+        )
+
+    # [inference]
+    inf_doc = chk.table("inference", doc.get("inference", {}))
+    chk.keys("inference", inf_doc, _INFERENCE_KEYS)
+    default_inf = InferenceSpec()
+    inference = InferenceSpec(
+        cov=chk.choice("inference.cov", inf_doc.get("cov", default_inf.cov), covariance_names()),
+        small_sample=chk.boolean(
+            "inference.small_sample", inf_doc.get("small_sample", default_inf.small_sample)
+        ),
+        debias=chk.boolean("inference.debias", inf_doc.get("debias", default_inf.debias)),
+    )
+
+    return Spec(
+        data=DataSpec(unit=unit, period=period, choice=choice, states=states, path=path),
+        model=ModelSpec(kind=kind, anchor=anchor, discount=discount, persistent=persistent),
+        utility=MappingProxyType(utility),
+        first_stage=first_stage,
+        inference=inference,
+        source=src,
+    )
+
+
+def read_spec(path: str | os.PathLike[str]) -> Spec:
+    """Read and validate a TOML spec file.
+
+    Parameters
+    ----------
+    path : path-like
+        The spec file. A relative ``data.path`` inside it is resolved against its folder.
+
+    Returns
+    -------
+    Spec
+
+    Raises
+    ------
+    FileNotFoundError
+        When the file does not exist.
+    SpecError
+        When the file is not valid TOML or fails validation (see :func:`parse_spec`).
+    """
+    p = Path(path)
+    if not p.is_file():
+        if p.is_dir():
+            raise SpecError(f"spec file {str(p)!r} is a folder, not a TOML file.", key=None)
+        raise FileNotFoundError(2, "spec file not found", str(p))
+    try:
+        with p.open("rb") as fh:
+            document = tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{p}: not valid TOML: {exc}.") from exc
+    except UnicodeDecodeError as exc:
+        raise SpecError(f"{p}: not valid TOML: the file is not UTF-8 text ({exc.reason}).") from exc
+    return parse_spec(document, base_dir=p.parent, source=p)
+
+
+# --------------------------------------------------------------------------- writing TOML
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
+_ESCAPES = {'"': '\\"', "\\": "\\\\", "\b": "\\b", "\t": "\\t", "\n": "\\n", "\f": "\\f", "\r": "\\r"}
+
+
+def _toml_string(text: str) -> str:
+    out = []
+    for ch in text:
+        if ch in _ESCAPES:
+            out.append(_ESCAPES[ch])
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
+            out.append(f"\\u{ord(ch):04x}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
+
+
+def _toml_key(key: Any) -> str:
+    text = str(key)
+    return text if _BARE_KEY.fullmatch(text) else _toml_string(text)
+
+
+def _toml_value(value: Any, where: str) -> str:
+    if isinstance(value, (bool, np.bool_)):
+        return "true" if value else "false"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        x = float(value)
+        if not math.isfinite(x):
+            raise ValueError(f"{where}: cannot write the non-finite number {x!r} to a spec file.")
+        return repr(x)
+    if isinstance(value, str):
+        return _toml_string(value)
+    if isinstance(value, os.PathLike):
+        return _toml_string(Path(value).as_posix())
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v, where) for v in value) + "]"
+    raise TypeError(f"{where}: cannot write a value of type {type(value).__name__} to TOML.")
+
+
+def _emit_table(lines: list[str], name: tuple[str, ...], table: Mapping[Any, Any]) -> None:
+    scalars = [(k, v) for k, v in table.items() if not isinstance(v, Mapping) and v is not None]
+    tables = [(k, v) for k, v in table.items() if isinstance(v, Mapping)]
+    # A table with only sub-tables needs no header of its own; an empty one does.
+    if name and (scalars or not tables):
+        if lines:
+            lines.append("")
+        lines.append("[" + ".".join(name) + "]")
+    for key, value in scalars:
+        dotted = ".".join((*name, str(key)))
+        lines.append(f"{_toml_key(key)} = {_toml_value(value, dotted)}")
+    for key, sub in tables:
+        _emit_table(lines, (*name, _toml_key(key)), sub)
+
+
+def dumps_toml(document: Mapping[str, Any], *, header: str | None = None) -> str:
+    """Serialise nested mappings of TOML values (no arrays of tables) to TOML text.
+
+    Parameters
+    ----------
+    document : Mapping
+        Tables are mappings; values are strings, booleans, integers, finite floats, paths
+        or arrays of those. ``None`` values are left out (TOML has no null).
+    header : str, optional
+        Comment written at the top, one ``#`` line per line of text.
+
+    Returns
+    -------
+    str
+    """
+    lines: list[str] = []
+    if header:
+        lines.extend(f"# {line}".rstrip() for line in header.splitlines())
+    body: list[str] = []
+    _emit_table(body, (), document)
+    if lines and body:
+        lines.append("")
+    lines.extend(body)
+    return "\n".join(lines) + "\n"
+
+
+def write_spec(
+    path: str | os.PathLike[str],
+    spec: Mapping[str, Any] | Spec,
+    *,
+    header: str | None = None,
+) -> Path:
+    """Write a spec file.
+
+    Parameters
+    ----------
+    path : path-like
+        Destination (``.toml``); its folder is created when missing.
+    spec : Mapping or Spec
+        Nested mapping with the tables of a spec file, or a :class:`Spec` (its data path is
+        written relative to the destination's folder).
+    header : str, optional
+        Comment written at the top of the file.
+
+    Returns
+    -------
+    pathlib.Path
+        The written file.
+    """
+    p = Path(path)
+    document = spec.to_dict(relative_to=p.parent) if isinstance(spec, Spec) else spec
+    text = dumps_toml(document, header=header)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    p.write_text(text, encoding="utf-8")
+    return p
+
+
+def _relative_path(path: Path, folder: str | os.PathLike[str] | None) -> str:
+    if folder is None:
+        return Path(path).absolute().as_posix()
+    try:
+        return Path(os.path.relpath(Path(path).absolute(), Path(folder).absolute())).as_posix()
+    except ValueError:  # different drives on Windows
+        return Path(path).absolute().as_posix()
+
+
+# --------------------------------------------------------------------------- data files
+def data_format(path: str | os.PathLike[str], *, writing: bool = False) -> str:
+    """The format of a data file, from its extension, checked to be readable or writable.
+
+    Parameters
+    ----------
+    path : path-like
+        Data file name.
+    writing : bool, default=False
+        Word the pyarrow message for writing rather than reading.
+
+    Returns
+    -------
+    {"csv", "parquet"}
+
+    Raises
+    ------
+    orthoccp.InputError
+        For an unsupported extension, or a Parquet file when pyarrow is not installed.
+    """
+    p = Path(path)
+    name = p.name.lower()
+    if name.endswith(CSV_SUFFIXES):
+        return "csv"
+    if name.endswith(PARQUET_SUFFIXES):
+        if importlib.util.find_spec("pyarrow") is None:
+            action = "writing" if writing else "reading"
+            raise InputError(
+                f"{action} the Parquet file {str(p)!r} needs pyarrow, which is not installed; "
+                f"install it with 'pip install pyarrow' (or 'pip install orthoccp[parquet]'), "
+                f"or use a .csv file."
+            )
+        return "parquet"
+    suffix = "".join(p.suffixes) or "(none)"
+    raise InputError(
+        f"data file {str(p)!r} has an unsupported extension {suffix!r}; use .csv or .parquet."
+    )
+
+
+def data_stem(path: str | os.PathLike[str]) -> Path:
+    """``path`` without its data extension (``panel.csv.gz`` -> ``panel``)."""
+    p = Path(path)
+    name = p.name
+    for suffix in sorted(CSV_SUFFIXES + PARQUET_SUFFIXES, key=len, reverse=True):
+        if name.lower().endswith(suffix):
+            return p.with_name(name[: -len(suffix)])
+    return p.with_suffix("")
+
+
+def read_data(path: str | os.PathLike[str]) -> pd.DataFrame:
+    """Read a panel file: CSV (optionally compressed) by pandas, Parquet by pandas + pyarrow.
+
+    Parameters
+    ----------
+    path : path-like
+        ``.csv`` (also ``.csv.gz`` etc.) or ``.parquet`` / ``.pq``.
+
+    Returns
+    -------
+    pandas.DataFrame
+
+    Raises
+    ------
+    FileNotFoundError
+        When the file does not exist.
+    orthoccp.InputError
+        For an unsupported extension, a missing pyarrow, or a file pandas cannot parse.
+    """
+    p = Path(path)
+    fmt = data_format(p)
+    if not p.is_file():
+        if p.is_dir():
+            raise InputError(f"data file {str(p)!r} is a folder, not a file.")
+        raise FileNotFoundError(2, "data file not found", str(p))
+    if fmt == "parquet":
+        try:
+            return pd.read_parquet(p, engine="pyarrow")
+        except (OSError, ValueError) as exc:
+            raise InputError(f"could not read Parquet file {str(p)!r}: {exc}") from exc
+    try:
+        return pd.read_csv(p)
+    except pd.errors.EmptyDataError as exc:
+        raise InputError(f"data file {str(p)!r} is empty (no columns to read).") from exc
+    except pd.errors.ParserError as exc:
+        raise InputError(f"could not parse CSV file {str(p)!r}: {exc}") from exc
+    except UnicodeDecodeError as exc:
+        raise InputError(f"could not read CSV file {str(p)!r}: not UTF-8 text ({exc.reason}).") from exc
+
+
+def write_data(frame: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
+    """Write a panel file, CSV or Parquet by extension (see :func:`read_data`).
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        The data; the index is not written.
+    path : path-like
+        Destination; its folder is created when missing.
+
+    Returns
+    -------
+    pathlib.Path
+        The written file.
+    """
+    p = Path(path)
+    fmt = data_format(p, writing=True)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    if fmt == "parquet":
+        frame.to_parquet(p, engine="pyarrow", index=False)
+    else:
+        frame.to_csv(p, index=False)
+    return p
+
+
+def _plain(value: Any) -> Any:
+    """NumPy scalars to Python scalars."""
+    return value.item() if isinstance(value, np.generic) else value
