@@ -65,8 +65,8 @@ def test_user_learner_is_cloned_not_fitted(small_ebike) -> None:  # type: ignore
     res = _fit(small_ebike, learner=clf, regressor="logit")
     assert not hasattr(clf, "coef_")
     assert res.learner == "LogisticRegression"
-    # 3 CCP fits + 3 folds x 2 choices continuation regressions.
-    assert res.n_learner_fits == 3 + 3 * 2
+    # 3 CCP fits + 3 nested CCP fits + 3 folds x 2 choices continuation regressions.
+    assert res.n_learner_fits == 3 + 3 + 3 * 2
 
 
 def test_plugin_result_says_so_and_has_only_m(small_ebike) -> None:  # type: ignore[no-untyped-def]
@@ -80,8 +80,9 @@ def test_plugin_result_says_so_and_has_only_m(small_ebike) -> None:  # type: ign
 
 
 def test_nested_scheme_counts_extra_fits(small_ebike) -> None:  # type: ignore[no-untyped-def]
-    plain = _fit(small_ebike)
-    nested = _fit(small_ebike, scheme="nested")
+    plain = _fit(small_ebike, scheme="plain")
+    nested = _fit(small_ebike)
+    assert nested.scheme == "nested"
     # K(K-1)/2 = 3 extra classifier fits.
     assert nested.n_learner_fits == plain.n_learner_fits + 3
     assert np.all(np.abs(nested.params - plain.params) < 3 * plain.std_errors)

@@ -69,6 +69,12 @@ class MomentSystem:
         Parameter indices of the z_R data-column targets.
     discount : float
         :math:`\\beta`.
+    instruments : numpy.ndarray or None
+        (n, J, p) instruments A_j replacing X_j in the moment (renewal-robust moments,
+        METHOD §4b); None means A = X (the pseudo-likelihood score).
+    anchor_branch : numpy.ndarray or None
+        (p,) booleans: whether the correction is applied on rows that chose the anchor.
+        False for moments orthogonal to the post-renewal value; None means all True.
     """
 
     X: np.ndarray
@@ -81,6 +87,8 @@ class MomentSystem:
     zR_params: np.ndarray
     discount: float
     anchor: int
+    instruments: np.ndarray | None = None
+    anchor_branch: np.ndarray | None = None
 
     @property
     def n_rows(self) -> int:
@@ -104,22 +112,33 @@ class MomentSystem:
         w = self.index(theta)
         return float((w[np.arange(self.n_rows), self.chosen] - logsumexp(w, axis=1)).sum())
 
-    def _centred(self, lam: np.ndarray) -> np.ndarray:
-        xbar = np.einsum("nj,njp->np", lam, self.X)
-        return self.X - xbar[:, None, :]
+    @property
+    def W(self) -> np.ndarray:
+        """Instruments of the moment (the constructed regressors unless replaced)."""
+        return self.X if self.instruments is None else self.instruments
+
+    @staticmethod
+    def _centre(lam: np.ndarray, A: np.ndarray) -> np.ndarray:
+        abar = np.einsum("nj,njp->np", lam, A)
+        return A - abar[:, None, :]
 
     def score(self, theta: np.ndarray) -> np.ndarray:
-        """Identifying moment m per row, shape (n, p)."""
+        """Identifying moment :math:`m = \\sum_j A_j (1\\{a = j\\} - \\Lambda_j)` per row, (n, p)."""
         lam = self.probabilities(theta)
         resid = -lam
         resid[np.arange(self.n_rows), self.chosen] += 1.0
-        return np.einsum("nj,njp->np", resid, self.X)
+        return np.einsum("nj,njp->np", resid, self.W)
 
     def jacobian(self, theta: np.ndarray) -> np.ndarray:
-        """:math:`G = \\sum_i \\partial m_i / \\partial\\theta'` (negative semi-definite)."""
+        """:math:`G = \\sum_i \\partial m_i / \\partial\\theta'`.
+
+        :math:`-\\sum_i\\sum_j \\Lambda_j (A_j - \\bar A)(X_j - \\bar X)'`; negative semi-definite
+        when A = X (the Hessian of the pseudo log-likelihood).
+        """
         lam = self.probabilities(theta)
-        C = self._centred(lam)
-        return -np.einsum("nj,njp,njq->pq", lam, C, C)
+        CX = self._centre(lam, self.X)
+        CW = CX if self.instruments is None else self._centre(lam, self.instruments)
+        return -np.einsum("nj,njp,njq->pq", lam, CW, CX)
 
     def corrections(self, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Correction terms :math:`(\\phi_\\mu, \\phi_P)` per row, each (n, p)."""
@@ -127,8 +146,10 @@ class MomentSystem:
             z = np.zeros((self.n_rows, self.n_params))
             return z, z.copy()
         lam = self.probabilities(theta)
-        C = self._centred(lam)
-        own = C[np.arange(self.n_rows), self.chosen]  # X_a - Xbar
+        own = self._centre(lam, self.W)[np.arange(self.n_rows), self.chosen]  # A_a - Abar
+        if self.anchor_branch is not None and not self.anchor_branch.all():
+            own = own.copy()
+            own[np.ix_(self.chosen == self.anchor, ~self.anchor_branch)] = 0.0
         g = self.discount * np.concatenate([theta[self.zR_params], [-1.0]])
         phi_mu = -own * (self.target_resid @ g)[:, None]
         phi_p = self.discount * own * self.ccp_score[:, None]

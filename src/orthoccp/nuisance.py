@@ -130,8 +130,9 @@ def crossfit_nuisances(
     folds: np.ndarray,
     rng: np.random.Generator,
     *,
-    scheme: Scheme = "plain",
+    scheme: Scheme = "nested",
     clip: float = 1e-4,
+    anchor_features: np.ndarray | None = None,
 ) -> Nuisances:
     """Out-of-fold CCPs and continuation expectations for every row.
 
@@ -145,10 +146,13 @@ def crossfit_nuisances(
         Fold per row (all rows of a unit in one fold).
     rng : numpy.random.Generator
         Seeds every learner, in a fixed order.
-    scheme : {"plain", "nested"}, default="plain"
+    scheme : {"plain", "nested"}, default="nested"
         How the ln P_R target of the continuation regressions is built (module docstring).
     clip : float, default=1e-4
         Probabilities are clipped to [clip, 1 - clip].
+    anchor_features : numpy.ndarray, optional
+        Feature columns (the persistent states) for the anchor's continuation regression of a
+        renewal model: after a renewal the next state depends on them only (METHOD §4b).
     """
     if scheme not in ("plain", "nested"):
         raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
@@ -215,6 +219,7 @@ def crossfit_nuisances(
                 n_fits += 1
 
     for j in bound.continuation_choices():
+        Xj = X[:, anchor_features] if (anchor_features is not None and j == R) else X
         rows_j = linked & (codes == j)
         for k in range(K):
             train = rows_where(rows_j & (folds != k))
@@ -222,7 +227,7 @@ def crossfit_nuisances(
             label = f"choice {panel.choices[j]!r}, fold {k}"
             for c in range(d - 1):
                 mu[pred, j, c] = _fit_predict_regression(
-                    pair, X, q_data[:, c], train, pred, rng, label
+                    pair, Xj, q_data[:, c], train, pred, rng, label
                 )
                 n_fits += 1
             if scheme == "plain":
@@ -235,7 +240,7 @@ def crossfit_nuisances(
                     key = (min(k, l), max(k, l))
                     in_l = folds == l
                     target[in_l] = nested_ell[key][in_l]
-            mu[pred, j, d - 1] = _fit_predict_regression(pair, X, target, train, pred, rng, label)
+            mu[pred, j, d - 1] = _fit_predict_regression(pair, Xj, target, train, pred, rng, label)
             n_fits += 1
     t_cont = time.perf_counter() - t1
     return Nuisances(

@@ -120,6 +120,8 @@ class Results:
     split_params: pd.DataFrame | None = field(default=None, repr=False)
     plugin_params: pd.Series | None = None
     nuisance_source: str = "cross-fitted"
+    moments: str = "standard"
+    fallback: dict[str, str] = field(default_factory=dict)
     version: str = ""
 
     # ----------------------------------------------------------------- statistics
@@ -208,6 +210,16 @@ class Results:
             + (" with n/(n-1) factor" if self.small_sample else "")
             + ("" if self.debiased else " (first-stage noise ignored)")
         )
+        if self.moments == "renewal_robust":
+            lines.append(
+                "moments: renewal_robust (instruments residualised on the persistent states "
+                + ", ".join(self.model.get("persistent", []))
+                + "; assumes a renewal does not reset them)"
+            )
+            for name, why in self.fallback.items():
+                lines.append(f"  {name}: {why}")
+        elif self.debiased:
+            lines.append("moments: standard (pseudo-likelihood score with the full correction)")
         if self.plugin_params is not None and self.debiased:
             lines.append(
                 "plug-in estimates: "
@@ -276,6 +288,8 @@ class Results:
             ],
             "level": level,
             "debiased": self.debiased,
+            "moments": self.moments,
+            "moments_fallback": dict(self.fallback),
             "model": {k: (v if k != "anchor" else str(v)) for k, v in self.model.items()},
             "n_units": self.n_units,
             "n_rows": self.accounting.n_rows,
