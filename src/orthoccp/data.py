@@ -197,7 +197,8 @@ class Panel:
             first = sorted_frame.loc[dup_mask, [unit, period]].iloc[0]
             raise InputError(
                 f"{int(dup_mask.sum())} rows share a unit and period (e.g. {unit}="
-                f"{first[unit]!r}, {period}={first[period]!r}); each unit-period must appear once."
+                f"{_plain(first[unit])!r}, {period}={_plain(first[period])!r}); each unit-period "
+                f"must appear once."
             )
 
         unit_labels, unit_codes = np.unique(sorted_frame[unit].to_numpy(), return_inverse=True)

@@ -183,6 +183,11 @@ def estimate(
     _check_options(folds, splits, clip, seed)
     if scheme not in ("plain", "nested"):
         raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
+    if scheme == "nested" and folds < 3:
+        raise InputError(
+            f"scheme='nested' needs folds >= 3 (it fits the CCP on folds outside each pair), got "
+            f"folds={folds}; use more folds or scheme='plain'."
+        )
     bound = model.bind(panel)
     moments = _choose_moments(bound, moments, debias)
     rows, corrected, accounting = account_rows(bound)

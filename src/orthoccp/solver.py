@@ -127,31 +127,37 @@ def solve_orthogonal(
         G = system.jacobian(theta)
         _checked_inverse(G, "orthogonal solve", step_size)
         Jpsi = psi_jacobian(system, theta)
+        directions = []
         if np.all(np.isfinite(Jpsi)) and np.linalg.cond(Jpsi) < _MAX_COND:
-            step = -np.linalg.solve(Jpsi, psi)
-        else:
-            step = -np.linalg.solve(G, psi)
-        full = float(np.abs(step).max())
+            directions.append(-np.linalg.solve(Jpsi, psi))
+        directions.append(-np.linalg.solve(G, psi))
+        full = float(np.abs(directions[0]).max())
         scale = tol * (1.0 + float(np.abs(theta).max()))
         if full < scale:
             return theta, SolveInfo(it, True, full, float(np.linalg.cond(G)), merit)
-        lam = 1.0
-        while True:
-            cand = theta + lam * step
-            psi_new = system.moment(cand, debias=True).sum(axis=0)
-            merit_new = float(np.linalg.norm(G0inv @ psi_new))
-            if np.isfinite(merit_new) and (merit_new < merit * (1 - 1e-4 * lam) or merit_new == 0):
+        found = None
+        for step in directions:
+            lam = 1.0
+            while lam >= 1e-8:
+                cand = theta + lam * step
+                psi_new = system.moment(cand, debias=True).sum(axis=0)
+                merit_new = float(np.linalg.norm(G0inv @ psi_new))
+                if np.isfinite(merit_new) and (merit_new < merit * (1 - 1e-4 * lam) or merit_new == 0):
+                    found = step
+                    break
+                lam *= 0.5
+            if found is not None:
                 break
-            lam *= 0.5
-            if lam < 1e-8:
-                if full < 1e3 * scale:
-                    # Round-off floor: the remaining step is far below any standard error.
-                    return theta, SolveInfo(it, True, full, float(np.linalg.cond(G)), merit)
-                raise EstimationError(
-                    f"orthogonal solve: no damped step reduces the moment norm at iteration {it} "
-                    f"(moment norm {merit:.3g}, last full step {full:.3g}, condition number "
-                    f"{np.linalg.cond(G):.3g})."
-                )
+        if found is None:
+            if min(float(np.abs(d).max()) for d in directions) < 1e3 * scale:
+                # Round-off floor: the remaining step is far below any standard error.
+                return theta, SolveInfo(it, True, full, float(np.linalg.cond(G)), merit)
+            raise EstimationError(
+                f"orthogonal solve: no damped step reduces the moment norm at iteration {it} "
+                f"(moment norm {merit:.3g}, last full step {full:.3g}, condition number of G "
+                f"{np.linalg.cond(G):.3g}, of the moment Jacobian {np.linalg.cond(Jpsi):.3g})."
+            )
+        step = found
         step_size = float(np.abs(lam * step).max())
         theta, psi, merit = cand, psi_new, merit_new
     raise EstimationError(

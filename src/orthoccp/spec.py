@@ -45,7 +45,7 @@ import math
 import os
 import re
 import sys
-from collections.abc import Hashable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Hashable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
@@ -85,6 +85,7 @@ __all__ = [
 
 KINDS = ("renewal", "terminal")
 SCHEMES = ("plain", "nested")
+MOMENTS = ("standard", "renewal_robust")
 CSV_SUFFIXES = (".csv", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip")
 PARQUET_SUFFIXES = (".parquet", ".pq")
 
@@ -154,50 +155,57 @@ class ModelSpec:
 class FirstStageSpec:
     """The ``[first_stage]`` table (all keys optional).
 
+    A key left out is ``None`` here and is not passed to :func:`orthoccp.estimate`, so the
+    estimator's own default applies (``learner="lightgbm"``, ``folds=5``, ``seed=0``, ...).
+
     Attributes
     ----------
-    learner : str
+    learner : str or None
         CCP learner name (see :func:`orthoccp.learner_names`).
     regressor : str or None
-        Continuation regressor name; ``None`` uses the learner's partner.
-    folds : int
+        Continuation regressor name (default: the learner's partner).
+    folds : int or None
         Cross-fitting folds (>= 2).
-    seed : int
+    seed : int or None
         Seed of the fold split and the learners (>= 0).
-    splits : int
+    splits : int or None
         Repeated cross-fitting splits (>= 1).
-    scheme : {"plain", "nested"}
+    scheme : {"plain", "nested"} or None
         Cross-fitting scheme of the continuation target.
-    clip : float
+    clip : float or None
         Probability clip bound in (0, 0.5).
     """
 
-    learner: str = "lightgbm"
+    learner: str | None = None
     regressor: str | None = None
-    folds: int = 5
-    seed: int = 0
-    splits: int = 1
-    scheme: str = "plain"
-    clip: float = 1e-4
+    folds: int | None = None
+    seed: int | None = None
+    splits: int | None = None
+    scheme: str | None = None
+    clip: float | None = None
 
 
 @dataclass(frozen=True)
 class InferenceSpec:
-    """The ``[inference]`` table (all keys optional).
+    """The ``[inference]`` table (all keys optional; ``None`` = the estimator's default).
 
     Attributes
     ----------
-    cov : str
-        Covariance type (see :func:`orthoccp.covariance_names`).
-    small_sample : bool
-        Apply the n/(n-1) factor.
-    debias : bool
-        ``False`` selects the plug-in estimator.
+    cov : str or None
+        Covariance type (see :func:`orthoccp.covariance_names`; default ``"clustered"``).
+    small_sample : bool or None
+        Apply the n/(n-1) factor (default true).
+    debias : bool or None
+        ``False`` selects the plug-in estimator (default true).
+    moments : {"standard", "renewal_robust"} or None
+        Moment type; by default :func:`orthoccp.estimate` chooses (renewal-robust for
+        debiased renewal models that declare persistent states).
     """
 
-    cov: str = "clustered"
-    small_sample: bool = True
-    debias: bool = True
+    cov: str | None = None
+    small_sample: bool | None = None
+    debias: bool | None = None
+    moments: str | None = None
 
 
 @dataclass(frozen=True)
@@ -229,8 +237,10 @@ class Spec:
     ... })
     >>> spec.parameters
     ('cost', 'swap_cost')
-    >>> spec.first_stage.learner
-    'lightgbm'
+    >>> spec.estimate_options()  # nothing set: the estimator's defaults apply
+    {}
+    >>> spec.with_options(learner="logit", folds=3).estimate_options()
+    {'learner': 'logit', 'folds': 3}
     """
 
     data: DataSpec
@@ -300,22 +310,12 @@ class Spec:
         Returns
         -------
         dict
-            ``learner, regressor, folds, seed, splits, scheme, clip, cov, small_sample,
-            debias``.
+            The options the spec sets, among ``learner, regressor, folds, seed, splits,
+            scheme, clip, cov, small_sample, debias, moments``; options it leaves out are
+            not passed, so the estimator's defaults apply.
         """
-        fs, inf = self.first_stage, self.inference
-        return {
-            "learner": fs.learner,
-            "regressor": fs.regressor,
-            "folds": fs.folds,
-            "seed": fs.seed,
-            "splits": fs.splits,
-            "scheme": fs.scheme,
-            "clip": fs.clip,
-            "cov": inf.cov,
-            "small_sample": inf.small_sample,
-            "debias": inf.debias,
-        }
+        merged = {**dataclasses.asdict(self.first_stage), **dataclasses.asdict(self.inference)}
+        return {k: v for k, v in merged.items() if v is not None}
 
     # ------------------------------------------------------------------ data
     def data_path(self, override: str | os.PathLike[str] | None = None) -> Path:
@@ -481,7 +481,9 @@ class Spec:
             "model": model,
             "utility": {label: dict(params) for label, params in self.utility.items()},
             "first_stage": first_stage,
-            "inference": dataclasses.asdict(self.inference),
+            "inference": {
+                k: v for k, v in dataclasses.asdict(self.inference).items() if v is not None
+            },
         }
 
 
@@ -490,7 +492,7 @@ _TOP_KEYS = ("data", "model", "utility", "first_stage", "inference")
 _DATA_KEYS = ("unit", "period", "choice", "states", "path")
 _MODEL_KEYS = ("kind", "anchor", "discount", "persistent")
 _FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme", "clip")
-_INFERENCE_KEYS = ("cov", "small_sample", "debias")
+_INFERENCE_KEYS = ("cov", "small_sample", "debias", "moments")
 
 
 def _where(source: Path | None) -> str:
@@ -669,7 +671,9 @@ def parse_spec(
     )
     roles = {unit: "data.unit", period: "data.period", choice: "data.choice"}
     if len(roles) < 3:
-        raise chk.fail("data", "data.unit, data.period and data.choice must name three different columns.")
+        raise chk.fail(
+            "data", "data.unit, data.period and data.choice must name three different columns."
+        )
     for s in states:
         if s in roles:
             raise chk.fail("data.states", f"data.states lists {s!r}, which is already {roles[s]}.")
@@ -684,7 +688,9 @@ def parse_spec(
     # [model]
     model = chk.table("model", doc["model"])
     chk.keys("model", model, _MODEL_KEYS)
-    kind = chk.choice("model.kind", chk.required("model", model, "kind", "'renewal' or 'terminal'"), KINDS)
+    kind = chk.choice(
+        "model.kind", chk.required("model", model, "kind", "'renewal' or 'terminal'"), KINDS
+    )
     anchor = chk.label("model.anchor", chk.required("model", model, "anchor", "the anchor choice"))
     discount = chk.number(
         "model.discount", chk.required("model", model, "discount", "a number in [0, 1)")
@@ -721,7 +727,8 @@ def parse_spec(
             pkey = f"{key}.{_toml_key(name)}"
             if isinstance(column, Mapping):
                 raise chk.fail(
-                    pkey, f"{pkey} must be a column name (string), got a table; nest one level only."
+                    pkey,
+                    f"{pkey} must be a column name (string), got a table; nest one level only.",
                 )
             table[name] = chk.string(pkey, column)
         utility[str(label)] = MappingProxyType(table)
@@ -731,19 +738,22 @@ def parse_spec(
     # [first_stage]
     fs_doc = chk.table("first_stage", doc.get("first_stage", {}))
     chk.keys("first_stage", fs_doc, _FIRST_STAGE_KEYS)
-    default_fs = FirstStageSpec()
     learners = learner_names()
-    regressor = fs_doc.get("regressor")
+
+    def fs(name: str, check: Callable[[str, Any], Any]) -> Any:
+        value = fs_doc.get(name)
+        return None if value is None else check(f"first_stage.{name}", value)
+
     first_stage = FirstStageSpec(
-        learner=chk.choice("first_stage.learner", fs_doc.get("learner", default_fs.learner), learners),
-        regressor=None if regressor is None else chk.choice("first_stage.regressor", regressor, learners),
-        folds=chk.integer("first_stage.folds", fs_doc.get("folds", default_fs.folds), minimum=2),
-        seed=chk.integer("first_stage.seed", fs_doc.get("seed", default_fs.seed), minimum=0),
-        splits=chk.integer("first_stage.splits", fs_doc.get("splits", default_fs.splits), minimum=1),
-        scheme=chk.choice("first_stage.scheme", fs_doc.get("scheme", default_fs.scheme), SCHEMES),
-        clip=chk.number("first_stage.clip", fs_doc.get("clip", default_fs.clip)),
+        learner=fs("learner", lambda k, v: chk.choice(k, v, learners)),
+        regressor=fs("regressor", lambda k, v: chk.choice(k, v, learners)),
+        folds=fs("folds", lambda k, v: chk.integer(k, v, minimum=2)),
+        seed=fs("seed", lambda k, v: chk.integer(k, v, minimum=0)),
+        splits=fs("splits", lambda k, v: chk.integer(k, v, minimum=1)),
+        scheme=fs("scheme", lambda k, v: chk.choice(k, v, SCHEMES)),
+        clip=fs("clip", chk.number),
     )
-    if not 0.0 < first_stage.clip < 0.5:
+    if first_stage.clip is not None and not 0.0 < first_stage.clip < 0.5:
         raise chk.fail(
             "first_stage.clip",
             f"first_stage.clip must be a probability in (0, 0.5), got {fs_doc['clip']!r}.",
@@ -752,13 +762,16 @@ def parse_spec(
     # [inference]
     inf_doc = chk.table("inference", doc.get("inference", {}))
     chk.keys("inference", inf_doc, _INFERENCE_KEYS)
-    default_inf = InferenceSpec()
+
+    def inf(name: str, check: Callable[[str, Any], Any]) -> Any:
+        value = inf_doc.get(name)
+        return None if value is None else check(f"inference.{name}", value)
+
     inference = InferenceSpec(
-        cov=chk.choice("inference.cov", inf_doc.get("cov", default_inf.cov), covariance_names()),
-        small_sample=chk.boolean(
-            "inference.small_sample", inf_doc.get("small_sample", default_inf.small_sample)
-        ),
-        debias=chk.boolean("inference.debias", inf_doc.get("debias", default_inf.debias)),
+        cov=inf("cov", lambda k, v: chk.choice(k, v, covariance_names())),
+        small_sample=inf("small_sample", chk.boolean),
+        debias=inf("debias", chk.boolean),
+        moments=inf("moments", lambda k, v: chk.choice(k, v, MOMENTS)),
     )
 
     return Spec(
@@ -806,8 +819,17 @@ def read_spec(path: str | os.PathLike[str]) -> Spec:
 
 
 # --------------------------------------------------------------------------- writing TOML
+_WIDTH = 88
 _BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
-_ESCAPES = {'"': '\\"', "\\": "\\\\", "\b": "\\b", "\t": "\\t", "\n": "\\n", "\f": "\\f", "\r": "\\r"}
+_ESCAPES = {
+    '"': '\\"',
+    "\\": "\\\\",
+    "\b": "\\b",
+    "\t": "\\t",
+    "\n": "\\n",
+    "\f": "\\f",
+    "\r": "\\r",
+}
 
 
 def _toml_string(text: str) -> str:
@@ -856,7 +878,20 @@ def _emit_table(lines: list[str], name: tuple[str, ...], table: Mapping[Any, Any
         lines.append("[" + ".".join(name) + "]")
     for key, value in scalars:
         dotted = ".".join((*name, str(key)))
-        lines.append(f"{_toml_key(key)} = {_toml_value(value, dotted)}")
+        line = f"{_toml_key(key)} = {_toml_value(value, dotted)}"
+        if len(line) > _WIDTH and isinstance(value, (list, tuple)) and value:
+            lines.append(f"{_toml_key(key)} = [")
+            items = [_toml_value(v, dotted) for v in value]
+            row = "   "
+            for item in items:
+                if len(row) + len(item) + 2 > _WIDTH and row.strip():
+                    lines.append(row.rstrip())
+                    row = "   "
+                row += f" {item},"
+            lines.append(row.rstrip())
+            lines.append("]")
+        else:
+            lines.append(line)
     for key, sub in tables:
         _emit_table(lines, (*name, _toml_key(key)), sub)
 
@@ -1013,7 +1048,9 @@ def read_data(path: str | os.PathLike[str]) -> pd.DataFrame:
     except pd.errors.ParserError as exc:
         raise InputError(f"could not parse CSV file {str(p)!r}: {exc}") from exc
     except UnicodeDecodeError as exc:
-        raise InputError(f"could not read CSV file {str(p)!r}: not UTF-8 text ({exc.reason}).") from exc
+        raise InputError(
+            f"could not read CSV file {str(p)!r}: not UTF-8 text ({exc.reason})."
+        ) from exc
 
 
 def write_data(frame: pd.DataFrame, path: str | os.PathLike[str]) -> Path:

@@ -1,0 +1,450 @@
+"""Tests of the ``orthoccp`` command line: demo, simulate, estimate, errors and JSON output."""
+
+from __future__ import annotations
+
+import dataclasses
+import io
+import json
+import math
+import os
+import re
+import shlex
+import subprocess
+import sys
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import orthoccp as oc
+from orthoccp import cli
+from orthoccp.cli import main, results_payload
+from orthoccp.simulate import simulate
+from orthoccp.spec import read_spec, write_spec
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+UNITS, PERIODS, SEED = 300, 8, 0
+COVARIATES = 5  # the scenario's relevant covariates only: keeps the learners fast
+FAST = ["--learner", "logit", "--folds", "3"]
+ENV = {**os.environ, "PYTHONWARNINGS": "ignore"}
+
+NUMBER = (int, float)
+SCHEMA: dict[str, Any] = {
+    "params": list,
+    "debiased": bool,
+    "n_units": int,
+    "n_rows": int,
+    "n_moment_rows": int,
+    "learner": str,
+    "folds": int,
+    "seed": int,
+    "timings": dict,
+    "n_learner_fits": int,
+    "clipped": dict,
+    "version": str,
+    "nulls": dict,
+    "inputs": dict,
+}
+PARAM_SCHEMA: dict[str, Any] = {
+    "name": str,
+    "estimate": NUMBER,
+    "std_error": NUMBER,
+    "ci_lower": NUMBER,
+    "ci_upper": NUMBER,
+}
+TIMINGS_SCHEMA: dict[str, Any] = {"first_stage_s": NUMBER, "second_stage_s": NUMBER, "total_s": NUMBER}
+
+
+def check_types(doc: dict[str, Any], schema: dict[str, Any], where: str) -> None:
+    """Required keys present with the right JSON types (booleans are not numbers here)."""
+    for key, kind in schema.items():
+        assert key in doc, f"{where}: missing key {key!r}"
+        value = doc[key]
+        if kind is bool:
+            assert isinstance(value, bool), f"{where}.{key}: {value!r} is not a boolean"
+        else:
+            assert not isinstance(value, bool), f"{where}.{key}: unexpected boolean"
+            assert isinstance(value, kind), f"{where}.{key}: {value!r} is not {kind}"
+
+
+def check_results_json(doc: dict[str, Any], *, debiased: bool, n_units: int) -> None:
+    """The --json document against the schema of the issue."""
+    check_types(doc, SCHEMA, "results")
+    assert doc["debiased"] is debiased
+    assert doc["n_units"] == n_units
+    assert doc["n_rows"] >= doc["n_moment_rows"] > 0
+    assert doc["params"], "no parameters"
+    for i, p in enumerate(doc["params"]):
+        check_types(p, PARAM_SCHEMA, f"params[{i}]")
+        assert math.isclose(p["ci_lower"], p["estimate"] - 1.959964 * p["std_error"], rel_tol=1e-5)
+        assert math.isclose(p["ci_upper"], p["estimate"] + 1.959964 * p["std_error"], rel_tol=1e-5)
+    check_types(doc["timings"], TIMINGS_SCHEMA, "timings")
+    for label, count in doc["clipped"].items():
+        assert isinstance(label, str) and isinstance(count, int) and not isinstance(count, bool)
+    assert doc["version"] == oc.__version__
+    assert doc["nulls"] == {} or all(isinstance(v, str) for v in doc["nulls"].values())
+
+
+def strict_json(text: str) -> Any:
+    """Parse JSON, refusing NaN and infinities."""
+
+    def refuse(name: str) -> None:
+        raise AssertionError(f"non-standard JSON constant {name}")
+
+    return json.loads(text, parse_constant=refuse)
+
+
+def run_cli(args: list[str], *, cwd: Path | None = None, timeout: float = 120) -> subprocess.CompletedProcess[str]:
+    """``python -m orthoccp.cli ARGS`` in a subprocess (stderr is a pipe, not a terminal)."""
+    return subprocess.run(
+        [sys.executable, "-m", "orthoccp.cli", *args],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        env=ENV,
+        timeout=timeout,
+    )
+
+
+def assert_one_line_error(err: str, fragment: str) -> None:
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert lines[0].startswith("orthoccp: error: "), err
+    assert re.search(fragment, lines[0]), f"{fragment!r} not in {lines[0]!r}"
+    assert "Traceback" not in err
+
+
+# --------------------------------------------------------------------------- fixtures
+@pytest.fixture(scope="module")
+def files(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    """A simulated panel (CSV) and its spec, written by ``orthoccp simulate`` in-process."""
+    folder = tmp_path_factory.mktemp("sim")
+    data = folder / "panel.csv"
+    rc = main(
+        ["simulate", "ebike", "--units", str(UNITS), "--periods", str(PERIODS), "--seed", str(SEED),
+         "--covariates", str(COVARIATES), "--out", str(data)]
+    )
+    assert rc == 0
+    return {"data": data, "spec": folder / "panel.toml", "folder": folder}
+
+
+@pytest.fixture(scope="module")
+def fast_spec(files: dict[str, Path]) -> Path:
+    """The simulated spec with a fast first stage (logit, 3 folds)."""
+    doc = tomllib.loads(files["spec"].read_text())
+    doc["first_stage"] = {"learner": "logit", "folds": 3, "seed": SEED}
+    path = files["folder"] / "fast.toml"
+    write_spec(path, doc)
+    return path
+
+
+# --------------------------------------------------------------------------- basics
+def test_version(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["--version"]) == 0
+    assert capsys.readouterr().out.strip() == f"orthoccp {oc.__version__}"
+
+
+@pytest.mark.parametrize("command", [[], ["demo"], ["simulate"], ["estimate"]])
+def test_help_has_examples(command: list[str], capsys: pytest.CaptureFixture[str]) -> None:
+    assert main([*command, "--help"]) == 0
+    out = capsys.readouterr().out
+    assert "examples:" in out
+    assert "orthoccp " + (command[0] if command else "demo") in out
+
+
+def test_no_command_and_usage_errors(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main([]) == 2
+    assert_one_line_error(capsys.readouterr().err, "choose a command")
+    assert main(["estimate", "panel.csv"]) == 2
+    assert_one_line_error(capsys.readouterr().err, r"required: --spec.*orthoccp estimate --help")
+    assert main(["simulate", "cars", "--out", "x.csv"]) == 2
+    assert_one_line_error(capsys.readouterr().err, r"invalid choice: 'cars'.*'ebike'")
+    assert main(["demo", "--units", "many"]) == 2
+    assert_one_line_error(capsys.readouterr().err, r"--units: invalid int value: 'many'")
+
+
+# --------------------------------------------------------------------------- simulate + estimate
+def test_simulate_then_estimate_subprocess(tmp_path: Path) -> None:
+    data = tmp_path / "out" / "bikes.csv"
+    sim = run_cli(
+        ["simulate", "ebike", "--units", str(UNITS), "--periods", str(PERIODS), "--seed", "4",
+         "--covariates", str(COVARIATES), "--out", str(data)]
+    )
+    assert sim.returncode == 0, sim.stderr
+    spec_path = tmp_path / "out" / "bikes.toml"
+    assert data.is_file() and spec_path.is_file()
+    doc = tomllib.loads(spec_path.read_text())
+    assert doc["data"]["path"] == "bikes.csv"  # relative to the spec
+    assert doc["model"] == {
+        "kind": "renewal",
+        "anchor": "swap",
+        "discount": 0.95,
+        "persistent": doc["model"]["persistent"],
+    }
+    assert doc["first_stage"]["seed"] == 4
+    assert "True parameters: wear_cost = -1.0, swap_cost = -5.0" in spec_path.read_text()
+    frame = pd.read_csv(data)
+    assert len(frame) == UNITS * PERIODS and frame["bike"].nunique() == UNITS
+    assert "estimate with: orthoccp estimate" in sim.stdout
+
+    out_json, out_tex = tmp_path / "res" / "r.json", tmp_path / "r.tex"
+    est = run_cli(["estimate", str(data), "--spec", str(spec_path), *FAST, "--json", str(out_json), "--latex", str(out_tex)])
+    assert est.returncode == 0, est.stderr
+    assert "orthoccp: [" not in est.stderr  # no progress when stderr is not a terminal
+    assert "error" not in est.stderr
+    assert "orthogonal (debiased) CCP estimator" in est.stdout
+    assert "wear_cost" in est.stdout and "swap_cost" in est.stdout
+    doc = strict_json(out_json.read_text())
+    check_results_json(doc, debiased=True, n_units=UNITS)
+    assert (doc["learner"], doc["folds"], doc["seed"]) == ("logit", 3, 4)
+    assert [p["name"] for p in doc["params"]] == ["wear_cost", "swap_cost"]
+    assert out_tex.read_text().startswith("\\begin{tabular}")
+
+
+def _estimates(argv: list[str], tmp_path: Path, name: str) -> dict[str, Any]:
+    out = tmp_path / f"{name}.json"
+    assert main([*argv, "--json", str(out)]) == 0
+    return strict_json(out.read_text())
+
+
+def test_estimate_reproduces_and_matches_the_api(
+    files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    argv = ["estimate", str(files["data"]), "--spec", str(fast_spec)]
+    first = _estimates(argv, tmp_path, "a")
+    second = _estimates(argv, tmp_path, "b")
+    assert first["params"] == second["params"]
+    check_results_json(first, debiased=True, n_units=UNITS)
+    # The same estimate straight from the Python API on the simulated frame.
+    sim = simulate("ebike", units=UNITS, periods=PERIODS, seed=SEED, n_covariates=COVARIATES)
+    panel = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states))
+    model = oc.Model(anchor=sim.anchor, kind=sim.kind, discount=sim.discount, utility=sim.utility, persistent=sim.persistent)  # type: ignore[arg-type]
+    res = oc.estimate(panel, model, learner="logit", folds=3, seed=SEED)
+    got = np.array([p["estimate"] for p in first["params"]])
+    np.testing.assert_allclose(got, res.params.to_numpy(), rtol=1e-10, atol=0)
+    np.testing.assert_allclose([p["std_error"] for p in first["params"]], res.std_errors.to_numpy(), rtol=1e-10)
+    # Another seed gives other folds, hence (slightly) other estimates.
+    other = _estimates([*argv, "--seed", "1"], tmp_path, "c")
+    assert other["seed"] == 1 and other["params"] != first["params"]
+    capsys.readouterr()
+
+
+def test_naive_and_overrides(files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    doc = _estimates(["estimate", str(files["data"]), "--spec", str(fast_spec), "--naive", "--folds", "4"], tmp_path, "naive")
+    check_results_json(doc, debiased=False, n_units=UNITS)
+    assert doc["folds"] == 4
+    assert "plug-in CCP estimator" in capsys.readouterr().out
+
+
+def test_data_path_from_spec_and_json_to_stdout(fast_spec: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["estimate", "--spec", str(fast_spec), "--json", "-"]) == 0
+    out = capsys.readouterr().out
+    doc = strict_json(out)  # stdout is exactly the JSON document
+    check_results_json(doc, debiased=True, n_units=UNITS)
+    assert doc["inputs"]["spec"] == str(fast_spec)
+
+
+def test_integer_choice_labels(files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    frame = pd.read_csv(files["data"])
+    frame["action"] = (frame["action"] == "swap").astype(int)
+    frame.to_csv(tmp_path / "int.csv", index=False)
+    doc = tomllib.loads(fast_spec.read_text())
+    doc["utility"] = {"0": doc["utility"]["keep"], "1": doc["utility"]["swap"]}
+    doc["data"]["path"] = "int.csv"
+    for anchor in (1, "1"):
+        doc["model"]["anchor"] = anchor
+        write_spec(tmp_path / "int.toml", doc)
+        assert main(["estimate", "--spec", str(tmp_path / "int.toml")]) == 0
+    assert "anchor 1," in capsys.readouterr().out
+    doc["model"]["anchor"] = "swap"
+    write_spec(tmp_path / "int.toml", doc)
+    assert main(["estimate", "--spec", str(tmp_path / "int.toml")]) == 2
+    assert_one_line_error(capsys.readouterr().err, r"model\.anchor: choice 'swap' is not among the integer choices")
+
+
+# --------------------------------------------------------------------------- bad input
+Case = Callable[[dict[str, Path], Path, Path], list[str]]
+
+
+def _spec_text(fast_spec: Path, tmp_path: Path, old: str, new: str) -> str:
+    text = fast_spec.read_text()
+    assert old in text, old
+    path = tmp_path / "edited.toml"
+    path.write_text(text.replace(old, new, 1))
+    return str(path)
+
+
+def _data_frame(files: dict[str, Path], tmp_path: Path, edit: Callable[[pd.DataFrame], pd.DataFrame]) -> str:
+    path = tmp_path / "edited.csv"
+    edit(pd.read_csv(files["data"])).to_csv(path, index=False)
+    return str(path)
+
+
+def _with_text_state(frame: pd.DataFrame) -> pd.DataFrame:
+    frame["x0"] = frame["x0"].astype(object)
+    frame.loc[5, "x0"] = "high"
+    return frame
+
+
+def _spec_case(old: str, new: str) -> Case:
+    return lambda f, s, t: ["estimate", str(f["data"]), "--spec", _spec_text(s, t, old, new)]
+
+
+def _data_case(edit: Callable[[pd.DataFrame], pd.DataFrame]) -> Case:
+    return lambda f, s, t: ["estimate", _data_frame(f, t, edit), "--spec", str(s)]
+
+
+BAD_INPUTS: list[tuple[str, Case, str]] = [
+    ("missing data file", lambda f, s, t: ["estimate", str(t / "nope.csv"), "--spec", str(s)], r"data file not found: '.*nope\.csv'"),
+    ("missing spec file", lambda f, s, t: ["estimate", str(f["data"]), "--spec", str(t / "nope.toml")], r"spec file not found: '.*nope\.toml'"),
+    ("unknown column", _spec_case('"wear", "x0"', '"wear", "mileage", "x0"'), r"data\.states: column 'mileage' is not in the data"),
+    ("unknown utility column", _spec_case('"wear_scaled"', '"wear_level"'), r"utility\.keep\.wear_cost: column 'wear_level'"),
+    ("anchor not in data", _spec_case('anchor = "swap"', 'anchor = "replace"'), r"model\.anchor: choice 'replace' is not among the choices.*'keep', 'swap'"),
+    ("discount 1.0", _spec_case("discount = 0.95", "discount = 1.0"), r"model\.discount must be in \[0, 1\).*got 1\.0"),
+    ("duplicate unit-period rows", _data_case(lambda d: pd.concat([d, d.iloc[[7]]])), r"edited\.csv: 2 rows share a unit and period.*bike=.*week="),
+    ("state column with text", _data_case(_with_text_state), r"state column 'x0' .*text such as 'high'"),
+    ("unknown spec key", _spec_case("folds = 3", "foldz = 3"), r"unknown key 'foldz' in \[first_stage\]; valid keys: learner, regressor, folds"),
+    ("unknown spec table", _spec_case("[first_stage]", "[first_stages]"), r"unknown table or key 'first_stages'"),
+    ("wrong type in spec", _spec_case("folds = 3", 'folds = "3"'), r"first_stage\.folds must be an integer >= 2, got '3' \(string\)"),
+    ("wrong type: discount", _spec_case("discount = 0.95", 'discount = "high"'), r"model\.discount must be a number, got 'high' \(string\)"),
+    ("invalid TOML", _spec_case("folds = 3", "folds = = 3"), r"edited\.toml: not valid TOML"),
+    ("unknown learner in spec", _spec_case('learner = "logit"', 'learner = "boosting"'), r"first_stage\.learner must be one of"),
+    ("bad --folds", lambda f, s, t: ["estimate", str(f["data"]), "--spec", str(s), "--folds", "1"], r"--folds must be an integer >= 2, got 1"),
+    ("unsupported extension", lambda f, s, t: ["estimate", str(t / "panel.xlsx"), "--spec", str(s)], r"unsupported extension '\.xlsx'; use \.csv or \.parquet"),
+    ("empty data file", lambda f, s, t: ["estimate", str(_touch(t / "empty.csv")), "--spec", str(s)], r"empty\.csv' is empty"),
+    ("simulate: bad units", lambda f, s, t: ["simulate", "ebike", "--units", "0", "--out", str(t / "x.csv")], r"units must be an integer >= 1; got 0"),
+    ("demo: out not empty", lambda f, s, t: ["demo", "--out", str(f["folder"])], r"exists and is not an empty folder"),
+    ("demo: bad folds", lambda f, s, t: ["demo", "--folds", "1", "--out", str(t / "d")], r"--folds must be an integer >= 2, got 1"),
+]
+
+
+def _touch(path: Path) -> Path:
+    path.write_text("")
+    return path
+
+
+@pytest.mark.parametrize(("case", "fragment"), [c[1:] for c in BAD_INPUTS], ids=[c[0] for c in BAD_INPUTS])
+def test_bad_input(
+    case: Case, fragment: str, files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    argv = case(files, fast_spec, tmp_path)
+    assert main(argv) == 2
+    captured = capsys.readouterr()
+    assert_one_line_error(captured.err, fragment)
+    assert captured.out == ""
+
+
+def test_parquet_needs_pyarrow(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    import importlib.util
+
+    if importlib.util.find_spec("pyarrow") is not None:
+        pytest.skip("pyarrow is installed")
+    assert main(["simulate", "ebike", "--units", "20", "--out", str(tmp_path / "p.parquet")]) == 2
+    assert_one_line_error(capsys.readouterr().err, r"needs pyarrow, which is not installed; install it with 'pip install pyarrow'")
+    assert not (tmp_path / "p.toml").exists()
+
+
+def test_bad_input_subprocess(
+    files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    spec = _spec_text(fast_spec, tmp_path, "discount = 0.95", "discount = 1.0")
+    proc = run_cli(["estimate", str(files["data"]), "--spec", spec])
+    assert proc.returncode == 2 and proc.stdout == ""
+    assert_one_line_error(proc.stderr, r"model\.discount must be in \[0, 1\)")
+    assert main(["estimate", str(files["data"]), "--spec", spec, "--debug"]) == 2
+    err = capsys.readouterr().err
+    assert "Traceback" in err and err.strip().splitlines()[-1].startswith("orthoccp: error:")
+    assert main(["--debug", "estimate", str(files["data"]), "--spec", spec]) == 2
+    assert "Traceback" in capsys.readouterr().err
+
+
+def test_estimation_error_exit_1(
+    files: dict[str, Path], fast_spec: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    def fail(*args: Any, **kwargs: Any) -> None:
+        raise oc.EstimationError("Newton iterations did not converge\n(condition number 1e12)")
+
+    monkeypatch.setattr(oc, "estimate", fail)
+    assert main(["estimate", str(files["data"]), "--spec", str(fast_spec)]) == 1
+    err = capsys.readouterr().err
+    assert err.strip() == "orthoccp: estimation failed: Newton iterations did not converge (condition number 1e12)"
+    assert main(["estimate", str(files["data"]), "--spec", str(fast_spec), "--debug"]) == 1
+    assert "Traceback" in capsys.readouterr().err
+
+
+# --------------------------------------------------------------------------- JSON and progress
+def test_json_never_writes_nan(files: dict[str, Path], fast_spec: Path) -> None:
+    spec = read_spec(fast_spec)
+    frame = spec.load_data(files["data"])
+    panel = spec.build_panel(frame)
+    res = oc.estimate(panel, spec.build_model(panel), **spec.estimate_options())
+    shares = res.decomposition.copy()
+    shares.iloc[0, 0] = np.nan
+    broken = dataclasses.replace(res, decomposition=shares, timings={**res.timings, "total_s": math.inf})
+    doc = results_payload(broken, inputs={"data": "d.csv"})
+    text = json.dumps(doc, allow_nan=False)
+    back = strict_json(text)
+    name, column = shares.index[0], shares.columns[0]
+    assert back["variance_shares"][name][column] is None
+    assert back["timings"]["total_s"] is None
+    assert f"variance_shares.{name}.{column}" in back["nulls"]
+    assert "timings.total_s" in back["nulls"]
+    assert back["inputs"] == {"data": "d.csv"}
+
+
+def test_progress_only_on_a_terminal() -> None:
+    class Terminal(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    tty, pipe = Terminal(), io.StringIO()
+    cli._Progress(stream=tty).stage("first stage")
+    cli._Progress(stream=pipe).stage("first stage")
+    assert re.fullmatch(r"orthoccp: \[\s*\d+\.\ds\] first stage\n", tty.getvalue())
+    assert pipe.getvalue() == ""
+
+
+# --------------------------------------------------------------------------- demo
+def test_demo_folder_numbering(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    made = [cli._demo_folder(None) for _ in range(3)]
+    assert [p.name for p in made] == ["orthoccp-demo", "orthoccp-demo-2", "orthoccp-demo-3"]
+    assert cli._demo_folder(str(tmp_path / "mine" / "deep")).is_dir()
+
+
+def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+    (tmp_path / "orthoccp-demo").mkdir()  # taken: the demo must pick the next name
+    proc = run_cli(["demo", "--units", str(UNITS), "--periods", str(PERIODS), "--folds", "3"], cwd=tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert "orthoccp: [" not in proc.stderr and "error" not in proc.stderr
+    folder = tmp_path / "orthoccp-demo-2"
+    assert (folder / "ebike.csv").is_file() and (folder / "ebike.toml").is_file()
+    out = proc.stdout
+    assert "orthogonal (debiased) CCP estimator" in out
+    header = next(line for line in out.splitlines() if line.startswith("parameter") and "truth" in line)
+    for column in ("truth", "plug-in", "s.e.", "debiased", "plug-in covers", "debiased covers"):
+        assert column in header
+    rows = [line.split() for line in out.splitlines() if line.startswith(("wear_cost ", "swap_cost "))]
+    table = {r[0]: r for r in rows if len(r) == 8}
+    assert set(table) == {"wear_cost", "swap_cost"}
+    assert float(table["wear_cost"][1]) == -1.0 and float(table["swap_cost"][1]) == -5.0
+    assert all(r[6] in ("yes", "no") and r[7] in ("yes", "no") for r in table.values())
+    rerun = next(line.strip() for line in out.splitlines() if line.strip().startswith("orthoccp estimate"))
+    assert rerun == "orthoccp estimate orthoccp-demo-2/ebike.csv --spec orthoccp-demo-2/ebike.toml"
+    # Run the printed command (from the same folder) and get the demo's debiased estimates.
+    monkeypatch.chdir(tmp_path)
+    argv = shlex.split(rerun)[1:]
+    assert main([*argv, "--json", "rerun.json"]) == 0
+    doc = strict_json((tmp_path / "rerun.json").read_text())
+    check_results_json(doc, debiased=True, n_units=UNITS)
+    assert doc["learner"] == "lightgbm"
+    for p in doc["params"]:
+        assert float(table[p["name"]][4]) == pytest.approx(p["estimate"], abs=5e-5)
+    capsys.readouterr()
