@@ -13,6 +13,7 @@ from ._errors import InputError, OrthoCCPWarning
 from ._version import __version__
 from .covariance import estimate_covariance
 from .data import Panel
+from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
 from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
@@ -210,7 +211,8 @@ def estimate(
     clipped: dict[Any, int] = {}
     timings = {"first_stage_s": 0.0, "second_stage_s": 0.0}
     iterations = 0
-    for _ in range(splits):
+    diagnostics: Diagnostics | None = None
+    for split in range(splits):
         t0 = time.perf_counter()
         if nuisances is not None:
             nuis = nuisances
@@ -262,6 +264,12 @@ def estimate(
             small_sample=small_sample,
         )
         timings["second_stage_s"] += time.perf_counter() - t1
+        if split == 0 and not static:
+            diagnostics = compute_diagnostics(
+                bound, nuis, rows, clip=float(clip),
+                influence=ce.influence if cov == "clustered" else None,
+                influence_units=panel.unit_labels[ce.clusters] if cov == "clustered" else None,
+            )
         thetas.append(theta)
         plugins.append(theta0)
         covs.append(ce.cov)
@@ -328,6 +336,7 @@ def estimate(
         plugin_params=pd.Series(np.median(np.vstack(plugins), axis=0), index=index, name="plug-in"),
         nuisance_source=source,
         moments=moments,
+        diagnostics=diagnostics,
         fallback=dict(plan.reasons) if plan is not None else {},
         version=__version__,
     )

@@ -89,6 +89,13 @@ def plan_robust(bound: BoundModel) -> RobustPlan:
     return RobustPlan(robust=robust, reasons=reasons)
 
 
+def _fit_weighted(est: object, X: np.ndarray, y: np.ndarray, w: np.ndarray) -> None:
+    """Fit with sample weights; for a pipeline, route them to its last step."""
+    steps = getattr(est, "steps", None)
+    key = f"{steps[-1][0]}__sample_weight" if steps else "sample_weight"
+    est.fit(X, y, **{key: w})  # type: ignore[attr-defined]
+
+
 def renewal_robust_system(
     system: MomentSystem,
     theta_prelim: np.ndarray,
@@ -130,8 +137,8 @@ def renewal_robust_system(
             pred = folds == fold
             est = pair.new_regressor(rng)
             try:
-                est.fit(F_stack[train], y_stack[train], sample_weight=w_stack[train])
-            except TypeError as exc:
+                _fit_weighted(est, F_stack[train], y_stack[train], w_stack[train])
+            except (TypeError, ValueError) as exc:
                 raise InputError(
                     f"regressor {type(est).__name__} does not accept sample_weight, which the "
                     f"renewal-robust moments need; use a registry regressor or moments='standard'."

@@ -121,6 +121,7 @@ class Results:
     plugin_params: pd.Series | None = None
     nuisance_source: str = "cross-fitted"
     moments: str = "standard"
+    diagnostics: Any = field(default=None, repr=False)
     fallback: dict[str, str] = field(default_factory=dict)
     version: str = ""
 
@@ -231,6 +232,9 @@ class Results:
                 lines.append(
                     f"  {str(name):<16}" + "  ".join(f"{c} {v:6.1%}" for c, v in r.items())
                 )
+        if self.diagnostics is not None:
+            lines.append("diagnostics (see .diagnostics for the tables):")
+            lines.extend(f"  {r}" for r in self.diagnostics.readings())
         lines.append(f"Hansen J: not applicable ({self.hansen_j.reason}).")
         lines.append("Inference is valid only under the model's assumptions:")
         lines.extend(f"  - {a}" for a in ASSUMPTIONS)

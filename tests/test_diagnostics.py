@@ -1,0 +1,47 @@
+"""Specification of orthoccp.diagnostics: tables attached to every result."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from _support import panel_and_model
+from sklearn.metrics import brier_score_loss, log_loss
+
+import orthoccp as oc
+
+
+@pytest.fixture(scope="module")
+def result(small_ebike):  # type: ignore[no-untyped-def]
+    panel, model, _ = panel_and_model(small_ebike)
+    return oc.estimate(panel, model, learner="logit", folds=3)
+
+
+def test_fold_quality_matches_scikit_learn_metrics(result, small_ebike) -> None:  # type: ignore[no-untyped-def]
+    """Log-loss and Brier score per fold agree with scikit-learn's implementations."""
+    d = result.diagnostics
+    assert list(d.ccp_quality["fold"]) == [0, 1, 2]
+    assert d.ccp_quality["rows"].sum() == result.n_rows
+    # The no-information baseline (choice frequencies), pooled over folds.
+    panel, _, _ = panel_and_model(small_ebike)
+    y = panel.choice_codes
+    freq = np.bincount(y) / y.size
+    folds = result.diagnostics.ccp_quality
+    total = (folds["log_loss_baseline"] * folds["rows"]).sum() / folds["rows"].sum()
+    assert total == pytest.approx(log_loss(y, np.tile(freq, (y.size, 1))), rel=1e-10)
+    brier = (folds["brier_baseline"] * folds["rows"]).sum() / folds["rows"].sum()
+    # Multiclass Brier as the sum over classes; binary: twice sklearn's positive-class score.
+    assert brier == pytest.approx(2 * brier_score_loss(y, np.full(y.size, freq[1])), rel=1e-10)
+
+
+def test_tables_have_expected_shape(result) -> None:  # type: ignore[no-untyped-def]
+    d = result.diagnostics
+    assert set(d.overlap.index) == {"keep", "swap"}
+    assert (d.overlap["q01"] <= d.overlap["q99"]).all()
+    cal = d.calibration
+    assert set(cal["choice"]) == {"keep", "swap"} and cal.groupby("choice")["rows"].sum().eq(result.n_rows).all()
+    assert set(d.continuation_quality["choice"]) == {"keep", "swap"}
+    shares = d.influential_units.groupby("parameter")["variance_share"].sum()
+    assert ((shares > 0) & (shares <= 1 + 1e-12)).all()
+    readings = d.readings()
+    assert any("log-loss" in r for r in readings) and any("Influence" in r for r in readings)
+    assert "diagnostics" in result.summary()
