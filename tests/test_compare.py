@@ -18,12 +18,12 @@ from orthoccp.compare import compare, difference_test
 @pytest.fixture(scope="module")
 def comparison(small_ebike):  # type: ignore[no-untyped-def]
     panel, model, _ = panel_and_model(small_ebike)
-    return compare(panel, model, first_stages={"logit": "logit", "forest": "random_forest"}, folds=3)
+    return compare(panel, model, first_stages={"logit": "logit", "lasso": "lasso_logit"}, folds=3)
 
 
 def test_difference_test_matches_hand_computation(comparison) -> None:  # type: ignore[no-untyped-def]
-    a, b = comparison.results["forest"], comparison.results["logit"]
-    t = comparison.tests["forest"]
+    a, b = comparison.results["lasso"], comparison.results["logit"]
+    t = comparison.tests["lasso"]
     d = a.influence - b.influence
     n = d.shape[0]
     se = np.sqrt(np.diag(n / (n - 1) * d.T @ d))
@@ -51,7 +51,7 @@ def test_views(comparison) -> None:  # type: ignore[no-untyped-def]
     assert frame.index.names == ["first_stage", "parameter"]
     assert np.isnan(frame.loc[("logit", "wear_cost"), "diff_vs_baseline"])
     text = comparison.summary()
-    assert "baseline: logit" in text and "joint test forest = logit" in text
+    assert "baseline: logit" in text and "joint test lasso = logit" in text
     assert "\\toprule" in comparison.to_latex()
     assert "<table" in comparison._repr_html_()
 

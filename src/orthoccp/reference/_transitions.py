@@ -57,7 +57,7 @@ def estimate_transitions(
     *,
     n_states: int,
     choices: tuple[Hashable, ...],
-    method: str | Mapping[Hashable, Any],
+    method: str | Mapping[Any, Any],
     anchor: int | None = None,
     reset_state: int = 0,
     max_increment: int | None = None,
@@ -123,7 +123,9 @@ def estimate_transitions(
     )
 
 
-def _given(method: Mapping[Hashable, Any], S: int, choices: tuple[Hashable, ...]) -> TransitionEstimate:
+def _given(
+    method: Mapping[Any, Any], S: int, choices: tuple[Hashable, ...]
+) -> TransitionEstimate:
     mats = np.empty((len(choices), S, S))
     for j, c in enumerate(choices):
         key = next((k for k in method if k == c or str(k) == str(c)), None)

@@ -1,0 +1,134 @@
+"""Figures for papers and reports (matplotlib; PNG or SVG by the file's extension).
+
+Each function draws one figure from a :class:`~orthoccp.Results` or a
+:class:`~orthoccp.Comparison` and returns the matplotlib ``Figure``; pass ``path`` to save it.
+The style is meant for print: black-and-grey lines, readable fonts, no chart junk.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ._errors import InputError
+from .compare import Comparison
+from .results import Results
+
+__all__ = ["calibration_plot", "overlap_plot", "coefficient_plot", "variance_plot"]
+
+
+def _plt() -> Any:
+    try:
+        import matplotlib
+
+        matplotlib.use("Agg", force=False)
+        import matplotlib.pyplot as plt
+    except ImportError as exc:  # pragma: no cover - depends on the environment
+        raise InputError(
+            "figures need matplotlib; install it with pip install 'orthoccp[plot]'."
+        ) from exc
+    plt.rcParams.update({"font.size": 9, "axes.spines.top": False, "axes.spines.right": False})
+    return plt
+
+
+def _save(fig: Any, path: str | Path | None) -> Any:
+    if path is not None:
+        p = Path(path)
+        if p.suffix.lower() not in (".png", ".svg", ".pdf"):
+            raise InputError(f"figure path {str(p)!r} must end in .png, .svg or .pdf.")
+        fig.savefig(p, dpi=200, bbox_inches="tight")
+    return fig
+
+
+def _diagnostics(res: Results) -> Any:
+    if res.diagnostics is None:
+        raise InputError("this result has no diagnostics (static model or supplied nuisances).")
+    return res.diagnostics
+
+
+def calibration_plot(res: Results, *, path: str | Path | None = None) -> Any:
+    """Out-of-fold predicted vs observed choice shares by decile, one panel per choice."""
+    plt = _plt()
+    cal = _diagnostics(res).calibration
+    choices = list(dict.fromkeys(cal["choice"]))
+    fig, axes = plt.subplots(1, len(choices), figsize=(3.2 * len(choices), 3.0), squeeze=False)
+    for ax, c in zip(axes[0], choices):
+        d = cal[cal["choice"] == c]
+        se = np.sqrt(np.clip(d["observed"] * (1 - d["observed"]), 1e-12, None) / d["rows"])
+        ax.errorbar(d["predicted"], d["observed"], yerr=1.96 * se, fmt="o", color="black", ms=3, lw=0.8)
+        hi = float(max(d["predicted"].max(), d["observed"].max())) * 1.05
+        ax.plot([0, hi], [0, hi], color="grey", lw=0.8, ls="--")
+        ax.set_title(f"choice {c}")
+        ax.set_xlabel("mean predicted probability")
+        ax.set_ylabel("observed share")
+    fig.suptitle(f"CCP calibration ({res.learner}, out of fold)")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def overlap_plot(res: Results, ccp: np.ndarray | None = None, *, path: str | Path | None = None) -> Any:
+    """Quantiles of the fitted CCPs per choice on a log scale, with the clip bound."""
+    plt = _plt()
+    ov = _diagnostics(res).overlap
+    fig, ax = plt.subplots(figsize=(4.5, 0.6 + 0.5 * len(ov)))
+    for i, (c, r) in enumerate(ov.iterrows()):
+        ax.plot([r["q01"], r["q99"]], [i, i], color="black", lw=2)
+        ax.plot([r["min_next"]], [i], marker="|", color="grey", ms=10)
+        ax.plot([r["median"]], [i], marker="o", color="black", ms=4)
+    ax.axvline(res.clip, color="grey", ls="--", lw=0.8)
+    ax.set_xscale("log")
+    ax.set_yticks(range(len(ov)), [str(c) for c in ov.index])
+    ax.set_xlabel("fitted probability (1%-99% range, median; | = minimum at next states)")
+    ax.set_title("Overlap of fitted CCPs (dashed: clip bound)")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def coefficient_plot(comparison: Comparison, *, level: float = 0.95, path: str | Path | None = None) -> Any:
+    """Estimates with intervals across first stages, one row per parameter."""
+    plt = _plt()
+    labels = list(comparison.results)
+    params = list(comparison.results[labels[0]].params.index)
+    fig, axes = plt.subplots(1, len(params), figsize=(3.0 * len(params), 0.6 + 0.45 * len(labels)), squeeze=False)
+    for ax, p in zip(axes[0], params):
+        for i, lab in enumerate(labels):
+            r = comparison.results[lab]
+            ci = r.conf_int(level).loc[p]
+            ax.plot([ci["lower"], ci["upper"]], [i, i], color="black", lw=1.2)
+            ax.plot([r.params[p]], [i], "o", color="black", ms=4)
+        ax.set_yticks(range(len(labels)), labels)
+        ax.set_title(p)
+        ax.invert_yaxis()
+    fig.suptitle(f"Debiased estimates by first stage ({int(level * 100)}% intervals)")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def variance_plot(res: Results, *, path: str | Path | None = None) -> Any:
+    """Stacked shares of each parameter's variance by moment component."""
+    plt = _plt()
+    dec = res.decomposition
+    fig, ax = plt.subplots(figsize=(4.5, 1.4 + 0.45 * len(dec)))
+    greys = ["0.15", "0.45", "0.7"]
+    y = np.arange(len(dec))
+    own = [c for c in dec.columns if c != "cross"]
+    left = np.zeros(len(dec))
+    for col, g in zip(own, greys):
+        vals = dec[col].to_numpy()
+        ax.barh(y, vals, left=left, color=g, edgecolor="black", lw=0.5, label=col)
+        left += vals
+    if "cross" in dec.columns:
+        cross = dec["cross"].to_numpy()
+        # Cross terms start at zero: negative ones extend to the left of the axis.
+        ax.barh(y, cross, left=np.where(cross < 0, 0.0, left), color="white", edgecolor="black",
+                hatch="///", lw=0.5, label="cross terms")
+    ax.axvline(1.0, color="grey", ls="--", lw=0.8)
+    ax.axvline(0.0, color="black", lw=0.6)
+    ax.set_yticks(y, [str(i) for i in dec.index])
+    ax.set_xlabel("share of variance (all parts add up to 1, dashed line)")
+    ax.legend(frameon=False, fontsize=8, ncol=4, loc="lower center", bbox_to_anchor=(0.5, 1.02))
+    fig.suptitle("Where the variance comes from")
+    fig.tight_layout()
+    return _save(fig, path)

@@ -1,0 +1,94 @@
+"""A self-contained HTML report a researcher can file with a paper's replication package.
+
+One page holds: the estimates of every first stage with the difference tests against the
+parametric baseline, the diagnostics with their readings, the figures (embedded PNG), the row
+accounting and the model's assumptions.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+from pathlib import Path
+from typing import Any
+
+from . import figures
+from ._version import __version__
+from .compare import Comparison
+from .results import ASSUMPTIONS, Results
+
+__all__ = ["render_report", "write_report"]
+
+
+def _figure_tag(fig: Any, alt: str) -> str:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=150, bbox_inches="tight")
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)
+    data = base64.b64encode(buf.getvalue()).decode("ascii")
+    return f'<figure><img alt="{html.escape(alt)}" src="data:image/png;base64,{data}"><figcaption>{html.escape(alt)}</figcaption></figure>'
+
+
+def _table(df: Any) -> str:
+    return df.to_html(float_format=lambda v: f"{v:.4f}", border=0, classes="t")
+
+
+def render_report(comparison: Comparison, *, title: str = "orthoccp estimation report") -> str:
+    """The report as an HTML string."""
+    base = comparison.results[comparison.baseline]
+    parts = [
+        "<!DOCTYPE html><html><head><meta charset='utf-8'>",
+        f"<title>{html.escape(title)}</title>",
+        "<style>body{font-family:Georgia,serif;max-width:60em;margin:2em auto;color:#111}"
+        "table.t{border-collapse:collapse;font-size:0.9em}table.t td,table.t th{padding:2px 8px;"
+        "border-bottom:1px solid #ccc;text-align:right}pre{background:#f6f6f6;padding:0.6em;"
+        "font-size:0.8em;overflow-x:auto}figure{margin:1em 0}img{max-width:100%}</style>",
+        "</head><body>",
+        f"<h1>{html.escape(title)}</h1>",
+        f"<p>orthoccp {__version__}. Model: {html.escape(str(base.model['kind']))}, anchor "
+        f"{html.escape(repr(base.model['anchor']))}, discount {base.model['discount']}. "
+        f"{html.escape(base.accounting.describe())} Units: {base.n_units}.</p>",
+        "<h2>Estimates by first stage</h2>",
+        _table(comparison.to_frame()),
+        f"<pre>{html.escape(comparison.summary())}</pre>",
+    ]
+    try:
+        parts.append(_figure_tag(figures.coefficient_plot(comparison), "Debiased estimates by first stage"))
+    except Exception as exc:  # figures are optional: say why one is missing
+        parts.append(f"<p>(coefficient plot not drawn: {html.escape(str(exc))})</p>")
+    for label, res in comparison.results.items():
+        parts.append(f"<h2>First stage: {html.escape(label)}</h2>")
+        parts.append(f"<pre>{html.escape(res.summary())}</pre>")
+        if res.diagnostics is not None:
+            d = res.diagnostics
+            parts.append("<ul>" + "".join(f"<li>{html.escape(r)}</li>" for r in d.readings()) + "</ul>")
+            parts.append("<h3>First-stage quality by fold</h3>" + _table(d.ccp_quality))
+            parts.append("<h3>Overlap</h3>" + _table(d.overlap))
+            if not d.continuation_quality.empty:
+                parts.append("<h3>Continuation regressions</h3>" + _table(d.continuation_quality))
+            for fn, alt in (
+                (figures.calibration_plot, f"CCP calibration ({label})"),
+                (figures.overlap_plot, f"Overlap of fitted CCPs ({label})"),
+                (figures.variance_plot, f"Variance decomposition ({label})"),
+            ):
+                try:
+                    parts.append(_figure_tag(fn(res), alt))
+                except Exception as exc:
+                    parts.append(f"<p>({html.escape(alt)} not drawn: {html.escape(str(exc))})</p>")
+    parts.append("<h2>Assumptions</h2><p>The intervals and tests are valid only under:</p><ul>")
+    parts.extend(f"<li>{html.escape(a)}</li>" for a in ASSUMPTIONS)
+    parts.append("</ul></body></html>")
+    return "\n".join(parts)
+
+
+def write_report(
+    comparison: Comparison | Results, path: str | Path, *, title: str = "orthoccp estimation report"
+) -> Path:
+    """Write :func:`render_report` to ``path`` (a single results object is accepted too)."""
+    if isinstance(comparison, Results):
+        comparison = Comparison(results={comparison.learner: comparison}, baseline=comparison.learner)
+    p = Path(path)
+    p.write_text(render_report(comparison, title=title), encoding="utf-8")
+    return p
