@@ -1,4 +1,4 @@
-"""Command-line interface: ``orthoccp demo``, ``orthoccp simulate`` and ``orthoccp estimate``.
+"""Command-line interface: ``orthoccp demo``, ``simulate``, ``estimate`` and ``montecarlo``.
 
 Exit codes: 0 on success; 2 on a usage or input error (bad option, missing file, bad spec,
 bad data), reported as one line ``orthoccp: error: ...`` on stderr; 1 when the estimation
@@ -460,6 +460,82 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
+# --------------------------------------------------------------------------- montecarlo
+def _estimator_list(text: str) -> tuple[str, ...]:
+    from .montecarlo import ESTIMATORS
+
+    names = tuple(part.strip() for part in text.split(",") if part.strip())
+    unknown = [n for n in names if n not in ESTIMATORS]
+    if not names or unknown or len(set(names)) != len(names):
+        raise argparse.ArgumentTypeError(
+            f"expected distinct names from {','.join(ESTIMATORS)} separated by commas, "
+            f"got {text!r}"
+        )
+    return names
+
+
+def _file_option(option: str, value: str | None) -> Path | None:
+    """A file-name option (no '-' for stdout), checked before the run."""
+    if value is None:
+        return None
+    p = Path(value)
+    if p.is_dir():
+        raise oc.InputError(f"{option} {value!r} is a folder; give a file name.")
+    return p
+
+
+def _cmd_montecarlo(args: argparse.Namespace) -> int:
+    from .montecarlo import run_montecarlo
+
+    out = Path(args.out)
+    if out.suffix.lower() != ".json":
+        raise oc.InputError(
+            f"--out {args.out!r} must be a .json file name (the summary CSV is written beside "
+            f"it with the extension .csv)."
+        )
+    if out.is_dir():
+        raise oc.InputError(f"--out {args.out!r} is a folder; give a file name such as mc.json.")
+    csv_path = out.with_suffix(".csv")
+    raw_path = _file_option("--replications", args.replications)
+    plot_path = _file_option("--plot", args.plot)
+    if plot_path is not None:
+        # Fail now rather than after a long run.
+        try:
+            import matplotlib  # noqa: F401
+        except ImportError as exc:
+            raise oc.InputError(
+                "--plot needs matplotlib, an optional dependency: pip install "
+                "'orthoccp[plot]' (or pip install matplotlib), or leave out --plot."
+            ) from exc
+    moments = None if args.moments == "auto" else args.moments
+    mc = run_montecarlo(
+        args.scenario,
+        reps=args.reps,
+        units=args.units,
+        periods=args.periods,
+        learner=args.learner,
+        folds=args.folds,
+        seed=args.seed,
+        jobs=args.jobs,
+        moments=moments,
+        estimators=args.estimators,
+        n_covariates=args.covariates,
+    )
+    print(mc.table())
+    failures = {k: v for k, v in mc.failures.items() if v}
+    if failures:
+        text = ", ".join(f"{k} {v} of {mc.reps}" for k, v in failures.items())
+        print(f"failed estimates (counted as failures, left out of the statistics): {text}")
+    written = [mc.to_json(out), mc.to_csv(csv_path)]
+    if raw_path is not None:
+        written.append(mc.to_csv(raw_path, which="replications"))
+    if plot_path is not None:
+        written.append(mc.plot(plot_path))
+    names = ", ".join(_display_path(p) for p in written)
+    print(f"finished in {mc.wall_seconds:.1f}s with {mc.jobs} worker(s); wrote {names}")
+    return 0
+
+
 # --------------------------------------------------------------------------- parser
 _MAIN_EPILOG = """\
 examples:
@@ -468,6 +544,7 @@ examples:
       the truth, and write the data and spec to ./orthoccp-demo/
   orthoccp simulate ebike --units 1000 --periods 12 --seed 0 --out panel.csv
   orthoccp estimate panel.csv --spec panel.toml --json results.json
+  orthoccp montecarlo ebike --reps 50 --units 500 --learner logit --out mc.json
   orthoccp estimate --help
 
 exit codes: 0 success, 2 usage or input error, 1 estimation failure.
@@ -523,8 +600,24 @@ spec file (TOML):
 """
 
 
+_MONTECARLO_EPILOG = """\
+examples:
+  orthoccp montecarlo ebike --reps 50 --units 500 --periods 12 --learner logit --out mc.json
+  orthoccp montecarlo producers --reps 200 --units 2000 --jobs 2 --out mc.json --plot mc.png
+  orthoccp montecarlo ebike3 --reps 20 --moments standard --estimators debiased,oracle \\
+      --out mc.json --replications mc-replications.csv
+
+Each replication simulates a fresh panel and runs, on the same data, the plug-in ("naive")
+estimator, the debiased estimator and the oracle (plug-in with the simulator's exact
+nuisances). Writes the JSON (settings, summary and every replication) to --out and the
+summary CSV (one row per estimator and parameter) beside it with the extension .csv.
+Replication r's seeds depend on --seed and r only, so --jobs does not change the numbers;
+learners run single-threaded in each worker. Failed estimates are counted, not dropped.
+"""
+
+
 def build_parser() -> argparse.ArgumentParser:
-    """The ``orthoccp`` argument parser with its three sub-commands.
+    """The ``orthoccp`` argument parser with its four sub-commands.
 
     Returns
     -------
@@ -689,6 +782,99 @@ def build_parser() -> argparse.ArgumentParser:
         "--seed", type=int, default=None, metavar="S", help="override first_stage.seed"
     )
     est.set_defaults(handler=_cmd_estimate)
+
+    mc = sub.add_parser(
+        "montecarlo",
+        parents=[common],
+        help="replicate a scenario: bias, SD, SE, RMSE and coverage of each estimator",
+        description=(
+            "Replicate a built-in scenario and compare the plug-in, debiased and oracle "
+            "estimators: per parameter bias, SD, mean SE, SD/SE, RMSE, coverage of the 95% "
+            "interval with its Monte Carlo standard error, runtime and failures. A counter "
+            "goes to stderr when it is a terminal."
+        ),
+        epilog=_MONTECARLO_EPILOG,
+        formatter_class=_Formatter,
+    )
+    mc.add_argument(
+        "scenario", metavar="SCENARIO", choices=scenarios, help="one of: " + ", ".join(scenarios)
+    )
+    mc.add_argument(
+        "--reps", type=int, default=100, metavar="R", help="replications (default: 100)"
+    )
+    mc.add_argument(
+        "--units",
+        type=int,
+        default=1000,
+        metavar="N",
+        help="units per replication (default: 1000)",
+    )
+    mc.add_argument(
+        "--periods", type=int, default=12, metavar="T", help="periods per unit (default: 12)"
+    )
+    mc.add_argument(
+        "--learner",
+        choices=learners,
+        default="lightgbm",
+        help="first-stage learner, single-threaded (default: lightgbm)",
+    )
+    mc.add_argument(
+        "--folds",
+        type=int,
+        default=5,
+        metavar="K",
+        help="cross-fitting folds, at least 3 (default: 5)",
+    )
+    mc.add_argument(
+        "--seed", type=int, default=0, metavar="S", help="seed of the whole run (default: 0)"
+    )
+    mc.add_argument(
+        "--jobs",
+        type=int,
+        default=1,
+        metavar="J",
+        help="worker processes, -1 for all cores (default: 1)",
+    )
+    mc.add_argument(
+        "--moments",
+        choices=["auto", "standard", "renewal_robust"],
+        default="auto",
+        help="moments of the debiased estimator; auto: renewal_robust for the renewal "
+        "scenarios, standard for producers (default: auto)",
+    )
+    mc.add_argument(
+        "--estimators",
+        type=_estimator_list,
+        default=("naive", "debiased", "oracle"),
+        metavar="LIST",
+        help="comma-separated subset of naive,debiased,oracle (default: all three)",
+    )
+    mc.add_argument(
+        "--covariates",
+        type=int,
+        default=None,
+        metavar="P",
+        help="covariates per unit (default: the scenario's)",
+    )
+    mc.add_argument(
+        "--out",
+        required=True,
+        metavar="FILE.json",
+        help="results JSON; the summary CSV goes beside it as FILE.csv",
+    )
+    mc.add_argument(
+        "--replications",
+        metavar="FILE.csv",
+        default=None,
+        help="also write the per-replication records as CSV",
+    )
+    mc.add_argument(
+        "--plot",
+        metavar="FILE.png",
+        default=None,
+        help="also write the coverage and interval-length plot (PNG; needs matplotlib)",
+    )
+    mc.set_defaults(handler=_cmd_montecarlo)
     return parser
 
 
@@ -733,7 +919,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     handler: _Handler | None = getattr(args, "handler", None)
     if handler is None:
         print(
-            f"{PROG}: error: choose a command: demo, simulate or estimate (see '{PROG} --help')",
+            f"{PROG}: error: choose a command: demo, simulate, estimate or montecarlo "
+            f"(see '{PROG} --help')",
             file=sys.stderr,
         )
         return 2

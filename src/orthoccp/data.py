@@ -6,17 +6,23 @@ plain NumPy arrays held by :class:`Panel`.
 
 from __future__ import annotations
 
-from collections.abc import Hashable, Sequence
+import warnings
+from collections.abc import Hashable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
 from pandas.api import types as ptypes
 
-from ._errors import InputError
+from ._errors import InputError, OrthoCCPWarning
 
 __all__ = ["Panel"]
+
+MISSING_OPTIONS = ("error", "drop")
+
+# Periods are compared as exact integers; beyond 2**53 float64 cannot tell t from t + 1.
+_MAX_PERIOD = 2**53
 
 
 def _check_column(frame: pd.DataFrame, name: str, role: str) -> None:
@@ -28,12 +34,65 @@ def _check_column(frame: pd.DataFrame, name: str, role: str) -> None:
         raise InputError(
             f"{role} column {name!r} is not in the data. Available columns: {cols}{more}."
         )
+    n = int((frame.columns == name).sum())
+    if n > 1:
+        raise InputError(
+            f"{role} column {name!r} appears {n} times in the data; give the columns unique names."
+        )
+
+
+def _column_names(value: Any, role: str) -> tuple[str, ...]:
+    """A list option of column names (a single name is accepted too)."""
+    if isinstance(value, str):
+        return (value,)
+    if value is None or isinstance(value, Mapping) or not isinstance(value, Iterable):
+        raise InputError(
+            f"{role} must be a list of column names, got {type(value).__name__} {value!r}."
+        )
+    return tuple(value)
+
+
+def _is_number_column(s: pd.Series) -> bool:
+    return ptypes.is_numeric_dtype(s) and not ptypes.is_bool_dtype(s)
+
+
+def _bad_values(s: pd.Series) -> np.ndarray:
+    """Rows that are missing (NaN, None, NA) or, in a numeric column, infinite."""
+    bad = np.asarray(s.isna(), dtype=bool)
+    if _is_number_column(s) and not ptypes.is_complex_dtype(s):
+        values = s.to_numpy(dtype=np.float64, na_value=np.nan)
+        bad = bad | ~np.isfinite(values)
+    return bad
+
+
+def _drop_missing(
+    frame: pd.DataFrame, columns: Sequence[tuple[str, str]]
+) -> tuple[pd.DataFrame, dict[str, int]]:
+    """Drop rows with a missing or infinite value in any of ``columns`` ((name, role) pairs).
+
+    Each dropped row is counted once, under the first of ``columns`` where it has a bad value,
+    so the counts add up to the number of dropped rows.
+    """
+    drop = np.zeros(len(frame), dtype=bool)
+    counts: dict[str, int] = {}
+    for name, role in columns:
+        s = frame[name]
+        bad = _bad_values(s)
+        new = bad & ~drop
+        if new.any():
+            what = "missing or infinite value" if _is_number_column(s) else "missing value"
+            counts[f"{what} in {role} column {name!r}"] = int(new.sum())
+        drop |= bad
+    if not drop.any():
+        return frame, {}
+    return frame.loc[~drop], counts
 
 
 def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarray, tuple[str, ...]]:
     """Numeric feature matrix for the learners; categorical states become indicator columns."""
     blocks: list[np.ndarray] = []
     names: list[str] = []
+    hint = "drop or impute those rows before wrapping the panel, or pass missing='drop'"
     for col in states:
         s = frame[col]
         if isinstance(s.dtype, pd.CategoricalDtype) or ptypes.is_object_dtype(s) or ptypes.is_string_dtype(s):
@@ -41,7 +100,7 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
                 # A text column that is really numbers typed as text is a data error.
                 converted = pd.to_numeric(s, errors="coerce")
                 bad = converted.isna() & s.notna()
-                if not bad.any():
+                if not bad.any() and s.notna().any():
                     raise InputError(
                         f"state column {col!r} holds numbers stored as text; convert it with "
                         f"pd.to_numeric before wrapping the panel."
@@ -55,17 +114,25 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
                     )
             if s.isna().any():
                 raise InputError(
-                    f"state column {col!r} has {int(s.isna().sum())} missing values; "
-                    f"drop or impute those rows before wrapping the panel."
+                    f"state column {col!r} has {int(s.isna().sum())} missing values; {hint}."
                 )
-            cat = pd.Categorical(s)
+            try:
+                cat = pd.Categorical(s)
+            except TypeError as exc:
+                raise InputError(
+                    f"state column {col!r} mixes value types that cannot be ordered (e.g. "
+                    f"strings and numbers); use one type or convert it with .astype(str)."
+                ) from exc
             for level_code, level in enumerate(cat.categories):
                 blocks.append((cat.codes == level_code).astype(np.float64)[:, None])
                 names.append(f"{col}={level}")
             continue
-        if ptypes.is_bool_dtype(s):
-            values = s.to_numpy(dtype=np.float64)
-        elif ptypes.is_numeric_dtype(s):
+        if ptypes.is_complex_dtype(s):
+            raise InputError(
+                f"state column {col!r} holds complex numbers; use real numbers, booleans or a "
+                f"categorical."
+            )
+        if ptypes.is_bool_dtype(s) or ptypes.is_numeric_dtype(s):
             values = s.to_numpy(dtype=np.float64, na_value=np.nan)
         else:
             raise InputError(
@@ -74,15 +141,42 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
             )
         n_bad = int((~np.isfinite(values)).sum())
         if n_bad:
-            raise InputError(
-                f"state column {col!r} has {n_bad} missing or infinite values; drop or "
-                f"impute those rows before wrapping the panel."
-            )
+            raise InputError(f"state column {col!r} has {n_bad} missing or infinite values; {hint}.")
         blocks.append(values[:, None])
         names.append(col)
     if not blocks:
         return np.empty((len(frame), 0)), ()
     return np.hstack(blocks), tuple(names)
+
+
+def _check_periods(per: pd.Series, period: str) -> np.ndarray:
+    """The period column as int64, or an InputError naming the first bad value."""
+    if not _is_number_column(per) or ptypes.is_complex_dtype(per):
+        raise InputError(
+            f"period column {period!r} must hold integers, got dtype {per.dtype}."
+        )
+    values = per.to_numpy(dtype=np.float64, na_value=np.nan)
+    finite = np.isfinite(values)
+    if not finite.all():
+        n_bad = int((~finite).sum())
+        raise InputError(
+            f"period column {period!r} must hold whole numbers; found {n_bad} missing or "
+            f"infinite values (drop those rows, or pass missing='drop')."
+        )
+    whole = values == np.round(values)
+    if not whole.all():
+        bad = float(values[~whole][0])
+        raise InputError(
+            f"period column {period!r} must hold whole numbers; found {bad!r}."
+        )
+    big = np.abs(values) >= _MAX_PERIOD
+    if big.any():
+        raise InputError(
+            f"period column {period!r} holds values too large to be periods (e.g. "
+            f"{float(values[big][0]):.6g}); number the periods with small integers such as "
+            f"0, 1, 2, ..."
+        )
+    return per.to_numpy(dtype=np.float64).astype(np.int64)
 
 
 @dataclass(frozen=True, eq=False)
@@ -103,6 +197,16 @@ class Panel:
     states : sequence of str
         Columns the first-stage learners see. Numeric, boolean or categorical; categorical
         states enter the learners as indicator columns.
+    missing : {"error", "drop"}, default="error"
+        What to do with rows that have a missing (NaN, None) value in the unit, period,
+        choice, state or ``extra_columns`` columns, or an infinite value in a numeric one.
+        ``"error"`` raises :class:`~orthoccp.InputError`; ``"drop"`` drops those rows, records
+        the counts in :attr:`dropped_rows` and warns (:class:`~orthoccp.OrthoCCPWarning`).
+        A dropped row leaves a gap in its unit's history: the rows around it are not linked,
+        and the row accounting of the results counts them.
+    extra_columns : sequence of str, default=()
+        Further columns whose missing values ``missing="drop"`` also drops (typically the
+        utility columns of the model). They are not features.
 
     Attributes
     ----------
@@ -116,6 +220,12 @@ class Panel:
         Index of the unit's row in the next period, or -1 when there is none.
     gap_after : numpy.ndarray
         True where the unit has a later row but its period is not consecutive.
+    n_input_rows : int
+        Rows of the frame as passed in (before ``missing="drop"``).
+    dropped_rows : dict
+        Reason -> number of rows dropped by ``missing="drop"``. Each dropped row is counted
+        once, under the first column (unit, period, choice, states, extra columns, in that
+        order) where it has a missing value, so the counts add up to :attr:`n_dropped`.
 
     Examples
     --------
@@ -132,6 +242,7 @@ class Panel:
     period: str
     choice: str
     states: tuple[str, ...]
+    missing: str = field(init=False)
     choices: tuple[Any, ...] = field(init=False)
     choice_codes: np.ndarray = field(init=False, repr=False)
     unit_codes: np.ndarray = field(init=False, repr=False)
@@ -142,6 +253,8 @@ class Panel:
     features: np.ndarray = field(init=False, repr=False)
     feature_names: tuple[str, ...] = field(init=False)
     unit_keys: np.ndarray = field(init=False, repr=False)
+    n_input_rows: int = field(init=False, repr=False)
+    dropped_rows: dict[str, int] = field(init=False, repr=False)
 
     def __init__(
         self,
@@ -151,20 +264,29 @@ class Panel:
         period: str,
         choice: str,
         states: Sequence[str],
+        missing: Literal["error", "drop"] = "error",
+        extra_columns: Sequence[str] = (),
     ) -> None:
         if not isinstance(frame, pd.DataFrame):
             raise InputError(f"data must be a pandas DataFrame, got {type(frame).__name__}.")
+        if isinstance(frame.columns, pd.MultiIndex):
+            raise InputError(
+                "data has hierarchical (MultiIndex) columns; flatten them to plain column names."
+            )
         if len(frame) == 0:
             raise InputError("data has no rows.")
-        if isinstance(states, str):
-            states = [states]
-        states = tuple(states)
+        if not isinstance(missing, str) or missing not in MISSING_OPTIONS:
+            raise InputError(f"missing must be 'error' or 'drop', got {missing!r}.")
+        states = _column_names(states, "states")
+        extra = _column_names(extra_columns, "extra_columns")
         for name, role in ((unit, "unit"), (period, "period"), (choice, "choice")):
             _check_column(frame, name, role)
         if not states:
             raise InputError("states is empty; name at least one state column.")
         for s in states:
             _check_column(frame, s, "state")
+        for s in extra:
+            _check_column(frame, s, "extra")
         roles = {unit: "unit", period: "period", choice: "choice"}
         if len(roles) < 3:
             raise InputError("unit, period and choice must be three different columns.")
@@ -175,23 +297,47 @@ class Panel:
             dup = [s for s in states if states.count(s) > 1][0]
             raise InputError(f"state {dup!r} is listed twice in states.")
 
+        n_input = len(frame)
+        dropped: dict[str, int] = {}
+        if missing == "drop":
+            checked = [(unit, "unit"), (period, "period"), (choice, "choice")]
+            checked += [(s, "state") for s in states]
+            checked += [(s, "extra") for s in extra if s not in roles and s not in states]
+            frame, dropped = _drop_missing(frame, checked)
+            if len(frame) == 0:
+                reasons = "; ".join(f"{k}: {v}" for k, v in dropped.items())
+                raise InputError(
+                    f"missing='drop' dropped all {n_input} rows ({reasons}); nothing is left "
+                    f"to estimate from."
+                )
+            if dropped:
+                n_dropped = sum(dropped.values())
+                reasons = "; ".join(f"{v} with a {k}" for k, v in dropped.items())
+                warnings.warn(
+                    f"dropped {n_dropped} of {n_input} rows ({reasons}); the rows next to "
+                    f"them are not linked across the gap (see Panel.dropped_rows and the row "
+                    f"accounting of the results).",
+                    OrthoCCPWarning,
+                    stacklevel=2,
+                )
+
         for name in (unit, choice):
             n_missing = int(frame[name].isna().sum())
             if n_missing:
-                raise InputError(f"{name!r} column has {n_missing} missing values; drop those rows.")
-        per = frame[period]
-        if not ptypes.is_numeric_dtype(per) or ptypes.is_bool_dtype(per):
-            raise InputError(
-                f"period column {period!r} must hold integers, got dtype {per.dtype}."
-            )
-        per_values = per.to_numpy(dtype=np.float64, na_value=np.nan)
-        if not np.all(np.isfinite(per_values)) or np.any(per_values != np.round(per_values)):
-            bad = per[~(np.isfinite(per_values) & (per_values == np.round(per_values)))].iloc[0]
-            raise InputError(
-                f"period column {period!r} must hold whole numbers; found {bad!r}."
-            )
+                raise InputError(
+                    f"{name!r} column has {n_missing} missing values; drop those rows, or pass "
+                    f"missing='drop'."
+                )
+        _check_periods(frame[period], period)
 
-        sorted_frame = frame.sort_values([unit, period], kind="mergesort").reset_index(drop=True)
+        try:
+            sorted_frame = frame.sort_values([unit, period], kind="mergesort").reset_index(drop=True)
+            unit_labels, unit_codes = np.unique(sorted_frame[unit].to_numpy(), return_inverse=True)
+        except TypeError as exc:
+            raise InputError(
+                f"unit column {unit!r} mixes label types that cannot be ordered (e.g. strings "
+                f"and numbers); use one type, e.g. with .astype(str)."
+            ) from exc
         dup_mask = sorted_frame.duplicated([unit, period], keep=False)
         if dup_mask.any():
             first = sorted_frame.loc[dup_mask, [unit, period]].iloc[0]
@@ -201,7 +347,6 @@ class Panel:
                 f"must appear once."
             )
 
-        unit_labels, unit_codes = np.unique(sorted_frame[unit].to_numpy(), return_inverse=True)
         choice_values = sorted_frame[choice].to_numpy()
         try:
             choices, codes = np.unique(choice_values, return_inverse=True)
@@ -210,7 +355,7 @@ class Panel:
                 f"choice column {choice!r} mixes label types (e.g. strings and numbers); "
                 f"use one type."
             ) from exc
-        periods = sorted_frame[period].to_numpy(dtype=np.int64)
+        periods = _check_periods(sorted_frame[period], period)
         n = len(sorted_frame)
         same_unit_next = np.zeros(n, dtype=bool)
         same_unit_next[:-1] = unit_codes[1:] == unit_codes[:-1]
@@ -228,6 +373,7 @@ class Panel:
         object.__setattr__(self, "period", period)
         object.__setattr__(self, "choice", choice)
         object.__setattr__(self, "states", states)
+        object.__setattr__(self, "missing", missing)
         object.__setattr__(self, "choices", tuple(_plain(c) for c in choices))
         object.__setattr__(self, "choice_codes", codes.astype(np.int64))
         object.__setattr__(self, "unit_codes", unit_codes.astype(np.int64))
@@ -238,6 +384,8 @@ class Panel:
         object.__setattr__(self, "features", features)
         object.__setattr__(self, "feature_names", feature_names)
         object.__setattr__(self, "unit_keys", unit_keys)
+        object.__setattr__(self, "n_input_rows", int(n_input))
+        object.__setattr__(self, "dropped_rows", dropped)
 
     @property
     def canonical_order(self) -> np.ndarray:
@@ -249,13 +397,25 @@ class Panel:
 
     @property
     def n_rows(self) -> int:
-        """Number of rows."""
+        """Number of rows (after ``missing="drop"``)."""
         return int(self.frame.shape[0])
 
     @property
     def n_units(self) -> int:
         """Number of decision makers."""
         return int(self.unit_labels.shape[0])
+
+    @property
+    def n_dropped(self) -> int:
+        """Rows dropped by ``missing="drop"`` (0 with ``missing="error"``)."""
+        return int(sum(self.dropped_rows.values()))
+
+    def describe_dropped(self) -> str:
+        """One line on the rows dropped for missing values (empty when none were)."""
+        if not self.dropped_rows:
+            return ""
+        reasons = ", ".join(f"{v} {k}" for k, v in self.dropped_rows.items())
+        return f"{self.n_dropped} of {self.n_input_rows} input rows dropped: {reasons}."
 
     def choice_index(self, label: Hashable) -> int:
         """Position of a choice label in :attr:`choices`.
@@ -276,7 +436,12 @@ class Panel:
         if name not in self.frame.columns:
             raise InputError(f"utility column {name!r} is not in the data.")
         s = self.frame[name]
-        if not ptypes.is_numeric_dtype(s) and not ptypes.is_bool_dtype(s):
+        if isinstance(s, pd.DataFrame):
+            raise InputError(
+                f"utility column {name!r} appears {s.shape[1]} times in the data; give the "
+                f"columns unique names."
+            )
+        if ptypes.is_complex_dtype(s) or not (ptypes.is_numeric_dtype(s) or ptypes.is_bool_dtype(s)):
             raise InputError(
                 f"utility column {name!r} must be numeric, got dtype {s.dtype}."
             )
@@ -285,7 +450,7 @@ class Panel:
         if n_bad:
             raise InputError(
                 f"utility column {name!r} has {n_bad} missing or infinite values; drop or "
-                f"impute those rows."
+                f"impute those rows, or pass missing='drop' with the column in extra_columns."
             )
         return values
 

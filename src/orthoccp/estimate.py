@@ -15,6 +15,7 @@ from .covariance import estimate_covariance
 from .data import Panel
 from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
+from .guards import dominant_units
 from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
 from .model import BoundModel, Model
@@ -189,6 +190,11 @@ def estimate(
             f"scheme='nested' needs folds >= 3 (it fits the CCP on folds outside each pair), got "
             f"folds={folds}; use more folds or scheme='plain'."
         )
+    if cov == "clustered" and panel.n_units < 2 and model.discount == 0:
+        raise InputError(
+            f"the data have {panel.n_units} unit; clustered standard errors need at least two "
+            f"clusters (units)."
+        )
     bound = model.bind(panel)
     moments = _choose_moments(bound, moments, debias)
     rows, corrected, accounting = account_rows(bound)
@@ -308,7 +314,7 @@ def estimate(
         source = "supplied by the caller"
     else:
         source = "cross-fitted"
-    return Results(
+    results = Results(
         params=pd.Series(theta_hat, index=index, name="estimate"),
         std_errors=pd.Series(se, index=index, name="std_error"),
         cov=pd.DataFrame(V, index=index, columns=index),
@@ -328,7 +334,9 @@ def estimate(
         clipped={str(k): int(v) for k, v in clipped.items()},
         decomposition=decomposition,
         influence=infl.to_numpy(),
-        influence_units=panel.unit_labels[infl.index.to_numpy()],
+        influence_units=(
+            panel.unit_labels[infl.index.to_numpy()] if cov == "clustered" else infl.index.to_numpy()
+        ),
         timings=timings,
         n_learner_fits=n_fits,
         iterations=iterations,
@@ -340,6 +348,9 @@ def estimate(
         fallback=dict(plan.reasons) if plan is not None else {},
         version=__version__,
     )
+    if cov == "clustered" and panel.n_units >= 2:
+        dominant_units(results, stacklevel=3)
+    return results
 
 
 def _choose_moments(bound: BoundModel, moments: str | None, debias: bool) -> str:

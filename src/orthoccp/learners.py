@@ -139,6 +139,13 @@ def _describe(obj: Any) -> str:
     return type(obj).__name__
 
 
+def _check_instance(obj: Any, role: str) -> None:
+    if isinstance(obj, type):
+        raise InputError(
+            f"{role} {obj.__name__} is a class; pass an instance, e.g. {role}={obj.__name__}()."
+        )
+
+
 def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
     """Turn ``learner=`` / ``regressor=`` options into a :class:`LearnerPair`.
 
@@ -160,6 +167,7 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
         clf, reg = _REGISTRY[learner]()
         name = learner
     else:
+        _check_instance(learner, "learner")
         for attr in ("fit", "predict_proba", "get_params"):
             if not callable(getattr(learner, attr, None)):
                 raise InputError(
@@ -180,6 +188,7 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
         reg = _REGISTRY[regressor]()[1]
         reg_name = regressor
     else:
+        _check_instance(regressor, "regressor")
         for attr in ("fit", "predict", "get_params"):
             if not callable(getattr(regressor, attr, None)):
                 raise InputError(
@@ -193,22 +202,52 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
 
 def checked_proba(est: Any, X: np.ndarray, n_classes: int, fold: int) -> np.ndarray:
     """``predict_proba`` aligned to codes 0..n_classes-1 through ``classes_`` and validated."""
-    raw = np.asarray(est.predict_proba(X), dtype=np.float64)
-    classes = np.asarray(getattr(est, "classes_", np.arange(raw.shape[1])))
-    if raw.ndim != 2 or raw.shape != (X.shape[0], classes.size):
+    name = type(est).__name__
+    returned = est.predict_proba(X)
+    try:
+        raw = np.asarray(returned, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
         raise InputError(
-            f"learner {type(est).__name__}.predict_proba returned shape {raw.shape}; expected "
+            f"learner {name}.predict_proba did not return a numeric array in fold {fold} "
+            f"({type(exc).__name__}: {exc})."
+        ) from exc
+    if raw.ndim != 2:
+        raise InputError(
+            f"learner {name}.predict_proba returned an array of shape {raw.shape}; expected "
+            f"one row per observation and one column per class, ({X.shape[0]}, {n_classes})."
+        )
+    classes = np.asarray(getattr(est, "classes_", np.arange(raw.shape[1])))
+    if raw.shape != (X.shape[0], classes.size):
+        raise InputError(
+            f"learner {name}.predict_proba returned shape {raw.shape}; expected "
             f"({X.shape[0]}, {classes.size})."
         )
-    if not np.all(np.isfinite(raw)) or raw.min() < -1e-9 or raw.max() > 1 + 1e-9:
+    # The learners are fitted on the choice codes 0..n_classes-1, so classes_ must hold them.
+    valid = classes.dtype.kind in "iub" or (
+        classes.dtype.kind == "f" and bool(np.all(classes == np.round(classes)))
+    )
+    if not valid or classes.size == 0 or classes.min() < 0 or classes.max() >= n_classes or (
+        np.unique(classes).size != classes.size
+    ):
         raise InputError(
-            f"learner {type(est).__name__}.predict_proba returned values outside [0, 1] "
-            f"(min {np.nanmin(raw):.3g}, max {np.nanmax(raw):.3g}) in fold {fold}."
+            f"learner {name}.classes_ is {classes.tolist()!r}; it must list distinct choice "
+            f"codes in 0..{n_classes - 1} (the codes the learner was fitted on)."
+        )
+    finite = np.isfinite(raw)
+    if not finite.all():
+        raise InputError(
+            f"learner {name}.predict_proba returned {int((~finite).sum())} non-finite values "
+            f"(NaN or infinite) in fold {fold}."
+        )
+    if raw.min() < -1e-9 or raw.max() > 1 + 1e-9:
+        raise InputError(
+            f"learner {name}.predict_proba returned values outside [0, 1] "
+            f"(min {raw.min():.3g}, max {raw.max():.3g}) in fold {fold}."
         )
     sums = raw.sum(axis=1)
     if np.max(np.abs(sums - 1.0)) > 1e-6:
         raise InputError(
-            f"learner {type(est).__name__}.predict_proba rows do not sum to 1 (largest "
+            f"learner {name}.predict_proba rows do not sum to 1 (largest "
             f"deviation {np.max(np.abs(sums - 1.0)):.3g}) in fold {fold}."
         )
     out = np.zeros((X.shape[0], n_classes))

@@ -47,6 +47,20 @@ def _checked_inverse(G: np.ndarray, what: str, step: float = float("nan")) -> np
     return np.linalg.inv(G)
 
 
+def _check_separation(system: MomentSystem, theta: np.ndarray, it: int) -> None:
+    """A 'converged' logit whose every choice is predicted with certainty has no finite MLE."""
+    lam = system.probabilities(theta)
+    chosen = lam[np.arange(system.n_rows), system.chosen]
+    if float(chosen.min()) > 1.0 - 1e-8:
+        raise EstimationError(
+            f"plug-in solve: the utility regressors predict every choice perfectly "
+            f"(separation; smallest fitted probability of the chosen alternative "
+            f"{float(chosen.min()):.12f}, max |theta| {float(np.abs(theta).max()):.3g} after "
+            f"{it} iterations); the estimates are not finite. Drop or coarsen the regressor "
+            f"that separates the choices."
+        )
+
+
 def solve_plugin(
     system: MomentSystem, *, start: np.ndarray | None = None, tol: float = 1e-10, max_iter: int = 100
 ) -> tuple[np.ndarray, SolveInfo]:
@@ -65,6 +79,7 @@ def solve_plugin(
         step = Hinv @ grad
         decrement = float(grad @ step)
         if decrement < tol:
+            _check_separation(system, theta, it)
             return theta, SolveInfo(it, True, step_size, float(np.linalg.cond(H)), float(np.abs(grad).max()))
         lam = 1.0
         while True:

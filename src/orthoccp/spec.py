@@ -9,6 +9,7 @@ with parameters), and the optional ``[first_stage]`` and ``[inference]``::
     choice = "action"
     states = ["wear", "x0", "x1"]
     path = "panel.csv"            # optional, relative to the spec file
+    missing = "error"             # optional: "drop" drops rows with missing values
 
     [model]
     kind = "renewal"
@@ -86,6 +87,7 @@ __all__ = [
 KINDS = ("renewal", "terminal")
 SCHEMES = ("plain", "nested")
 MOMENTS = ("standard", "renewal_robust")
+MISSING = ("error", "drop")
 CSV_SUFFIXES = (".csv", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip")
 PARQUET_SUFFIXES = (".parquet", ".pq")
 
@@ -119,6 +121,9 @@ class DataSpec:
         Columns the first-stage learners see.
     path : pathlib.Path or None
         Data file, already resolved against the spec's folder; ``None`` when not given.
+    missing : {"error", "drop"}
+        What :meth:`Spec.build_panel` does with rows that have missing or infinite values
+        (see :class:`~orthoccp.Panel`); ``"drop"`` also covers the utility columns.
     """
 
     unit: str
@@ -126,6 +131,7 @@ class DataSpec:
     choice: str
     states: tuple[str, ...]
     path: Path | None = None
+    missing: str = "error"
 
 
 @dataclass(frozen=True)
@@ -364,7 +370,39 @@ class Spec:
             self._require_column(frame, f"data.{key}", name)
         for name in d.states:
             self._require_column(frame, "data.states", name)
-        return Panel(frame, unit=d.unit, period=d.period, choice=d.choice, states=list(d.states))
+        # With missing = "drop" a row missing a utility value is dropped too; with "error"
+        # such a row is reported here, worded for the spec file.
+        extra: list[str] = []
+        for label, params in self.utility.items():
+            for name, column in params.items():
+                if column == CONSTANT or column in extra or column not in frame.columns:
+                    continue
+                extra.append(column)
+                values = frame[column]
+                if d.missing == "error" and ptypes.is_numeric_dtype(values):
+                    n_bad = int((~np.isfinite(values.to_numpy(np.float64, na_value=np.nan))).sum())
+                    if n_bad:
+                        key = f"utility.{_toml_key(label)}.{_toml_key(name)}"
+                        raise InputError(
+                            f"{key}: utility column {column!r} has {n_bad} missing or infinite "
+                            f"values; drop or impute those rows, or set missing = \"drop\" in "
+                            f"[data]."
+                        )
+        try:
+            return Panel(
+                frame,
+                unit=d.unit,
+                period=d.period,
+                choice=d.choice,
+                states=list(d.states),
+                missing=d.missing,  # type: ignore[arg-type]
+                extra_columns=extra if d.missing == "drop" else (),
+            )
+        except InputError as exc:
+            text = str(exc)
+            if "missing='drop'" not in text:
+                raise
+            raise InputError(text.replace("pass missing='drop'", 'set missing = "drop" in [data]')) from exc
 
     def build_model(self, data: pd.DataFrame | Panel) -> Model:
         """The :class:`~orthoccp.Model`, with choice labels matched to the data's labels.
@@ -466,6 +504,8 @@ class Spec:
         }
         if self.data.path is not None:
             data["path"] = _relative_path(self.data.path, relative_to)
+        if self.data.missing != "error":
+            data["missing"] = self.data.missing
         model: dict[str, Any] = {
             "kind": self.model.kind,
             "anchor": self.model.anchor,
@@ -489,7 +529,7 @@ class Spec:
 
 # --------------------------------------------------------------------------- parsing
 _TOP_KEYS = ("data", "model", "utility", "first_stage", "inference")
-_DATA_KEYS = ("unit", "period", "choice", "states", "path")
+_DATA_KEYS = ("unit", "period", "choice", "states", "path", "missing")
 _MODEL_KEYS = ("kind", "anchor", "discount", "persistent")
 _FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme", "clip")
 _INFERENCE_KEYS = ("cov", "small_sample", "debias", "moments")
@@ -684,6 +724,7 @@ def parse_spec(
             base = Path(base_dir) if base_dir is not None else Path.cwd()
             raw_path = base / raw_path
         path = raw_path
+    missing = chk.choice("data.missing", data.get("missing", "error"), MISSING)
 
     # [model]
     model = chk.table("model", doc["model"])
@@ -775,7 +816,9 @@ def parse_spec(
     )
 
     return Spec(
-        data=DataSpec(unit=unit, period=period, choice=choice, states=states, path=path),
+        data=DataSpec(
+            unit=unit, period=period, choice=choice, states=states, path=path, missing=missing
+        ),
         model=ModelSpec(kind=kind, anchor=anchor, discount=discount, persistent=persistent),
         utility=MappingProxyType(utility),
         first_stage=first_stage,
