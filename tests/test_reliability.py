@@ -560,6 +560,7 @@ def test_newton_failure_is_reported_never_a_silent_nan(tmp_path: Path, capsys: p
 
 
 def test_perfect_separation_is_an_error_not_a_number() -> None:
+    """Without the check, Newton 'converges' near theta = -540 with small standard errors."""
     d = base()
     d["action"] = np.where(d["wear_scaled"] > d["wear_scaled"].median(), "swap", "keep")
     panel = oc.Panel(d, unit="bike", period="week", choice="action", states=STATES)
@@ -575,6 +576,7 @@ def test_heteroskedastic_covariance_on_a_panel() -> None:
     model = oc.Model(anchor="swap", kind="renewal", discount=0.95, utility=UTILITY)
     res = oc.estimate(panel, model, learner="logit", folds=3, cov="heteroskedastic")
     assert np.all(np.isfinite(res.std_errors))
+    assert res.influence.shape[0] == len(res.influence_units) == res.n_moment_rows
 
 
 # --------------------------------------------------------------------------- determinism

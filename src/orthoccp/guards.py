@@ -74,8 +74,9 @@ def dominant_units(
     ...     influence_units=np.arange(100),
     ... )
     >>> table = dominant_units(res, warn=False)
-    >>> table.loc["cost", ["n_top", "dominated"]].tolist(), round(table.loc["cost", "share"], 3)
-    ([1, True], 0.503)
+    >>> row = table.loc["cost"]
+    >>> int(row["n_top"]), bool(row["dominated"]), round(float(row["share"]), 3), row["top_units"]
+    (1, True, 0.503, [0])
     """
     if isinstance(top_share, bool) or not isinstance(top_share, (int, float)) or not (
         0.0 < float(top_share) <= 1.0

@@ -293,9 +293,9 @@ def _single_threaded(est: Any) -> Any:
         k: 1
         for k, v in params.items()
         if (k == "n_jobs" or k.endswith("__n_jobs"))
-        and isinstance(v, numbers.Integral)
+        and isinstance(v, (int, np.integer))
         and not isinstance(v, bool)
-        and (v > 1 or v < 0)
+        and (int(v) > 1 or int(v) < 0)
     }
     if updates:
         est.set_params(**updates)
@@ -379,9 +379,9 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
     )
     model = Model(
         anchor=sim.anchor,
-        kind=sim.kind,
+        kind=sim.kind,  # type: ignore[arg-type]
         discount=sim.discount,
-        utility=sim.utility,
+        utility=dict(sim.utility),  # type: ignore[arg-type]
         persistent=tuple(sim.persistent or ()),
     )
     pair = resolve_learners(settings.learner)
@@ -774,7 +774,8 @@ class MonteCarloResults:
             lo, hi = _wilson(cov, sub["n_ok"].to_numpy(dtype=float), z)
             label = ESTIMATOR_LABELS.get(name, name)
             color = colors.get(name)
-            yerr = np.vstack([cov - lo, hi - cov])
+            # Rounding can put a bound a hair inside the share when it is 0 or 1.
+            yerr = np.clip(np.vstack([cov - lo, hi - cov]), 0.0, None)
             ax_cov.errorbar(pos, cov, yerr=yerr, fmt="o", color=color, capsize=3, label=label)
             lows.extend(lo[np.isfinite(lo)].tolist())
             length = sub["mean_ci_length"].to_numpy(dtype=float)
