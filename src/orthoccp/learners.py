@@ -146,6 +146,14 @@ def _check_instance(obj: Any, role: str) -> None:
         )
 
 
+def _check_methods(obj: Any, role: str, methods: tuple[str, ...], requirement: str) -> None:
+    """Fail clearly when a user's learner lacks a method the cross-fitting calls."""
+    _check_instance(obj, role)
+    for attr in methods:
+        if not callable(getattr(obj, attr, None)):
+            raise InputError(f"{role} {type(obj).__name__} has no {attr}() method; {requirement}.")
+
+
 def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
     """Turn ``learner=`` / ``regressor=`` options into a :class:`LearnerPair`.
 
@@ -167,13 +175,9 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
         clf, reg = _REGISTRY[learner]()
         name = learner
     else:
-        _check_instance(learner, "learner")
-        for attr in ("fit", "predict_proba", "get_params"):
-            if not callable(getattr(learner, attr, None)):
-                raise InputError(
-                    f"learner {type(learner).__name__} has no {attr}() method; the CCP learner "
-                    f"must be a scikit-learn-style classifier with fit and predict_proba."
-                )
+        _check_methods(learner, "learner", ("fit", "predict_proba", "get_params"),
+                       "the CCP learner must be a scikit-learn-style classifier with fit and "
+                       "predict_proba")
         clf = learner
         reg = _REGISTRY["lightgbm"]()[1]
         name = _describe(learner)
@@ -188,13 +192,8 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
         reg = _REGISTRY[regressor]()[1]
         reg_name = regressor
     else:
-        _check_instance(regressor, "regressor")
-        for attr in ("fit", "predict", "get_params"):
-            if not callable(getattr(regressor, attr, None)):
-                raise InputError(
-                    f"regressor {type(regressor).__name__} has no {attr}() method; it must be a "
-                    f"scikit-learn-style regressor."
-                )
+        _check_methods(regressor, "regressor", ("fit", "predict", "get_params"),
+                       "it must be a scikit-learn-style regressor")
         reg = regressor
         reg_name = _describe(regressor)
     return LearnerPair(classifier=clf, regressor=reg, name=name, regressor_name=reg_name)
