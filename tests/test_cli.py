@@ -151,7 +151,7 @@ def test_version(capsys: pytest.CaptureFixture[str]) -> None:
     assert capsys.readouterr().out.strip() == f"orthoccp {oc.__version__}"
 
 
-@pytest.mark.parametrize("command", [[], ["demo"], ["simulate"], ["estimate"]])
+@pytest.mark.parametrize("command", [[], ["demo"], ["simulate"], ["estimate"], ["compare"], ["report"]])
 def test_help_has_examples(command: list[str], capsys: pytest.CaptureFixture[str]) -> None:
     assert main([*command, "--help"]) == 0
     out = capsys.readouterr().out
@@ -322,6 +322,11 @@ BAD_INPUTS: list[tuple[str, Case, str]] = [
     ("simulate: bad units", lambda f, s, t: ["simulate", "ebike", "--units", "0", "--out", str(t / "x.csv")], r"units must be an integer >= 1; got 0"),
     ("demo: out not empty", lambda f, s, t: ["demo", "--out", str(f["folder"])], r"exists and is not an empty folder"),
     ("demo: bad folds", lambda f, s, t: ["demo", "--folds", "1", "--out", str(t / "d")], r"--folds must be an integer >= 2, got 1"),
+    ("compare: unknown learner", lambda f, s, t: ["compare", str(f["data"]), "--spec", str(s), "--with", "xgb"], r"--with: invalid choice: 'xgb'"),
+    ("compare: repeated learner", lambda f, s, t: ["compare", str(f["data"]), "--spec", str(s), "--with", "logit", "--with", "logit"], r"--with 'logit' is given twice"),
+    ("compare: baseline not compared", lambda f, s, t: ["compare", str(f["data"]), "--spec", str(s), "--with", "logit", "--baseline", "lasso_logit"], r"--baseline 'lasso_logit' is not among the first stages \(logit\); add --with lasso_logit"),
+    ("report: not html", lambda f, s, t: ["report", str(f["data"]), "--spec", str(s), "--out", str(t / "r.txt")], r"--out '.*r\.txt' must be an \.html file name"),
+    ("report: needs --out", lambda f, s, t: ["report", str(f["data"]), "--spec", str(s)], r"required: --out"),
 ]
 
 
@@ -436,6 +441,9 @@ def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pyte
     assert set(table) == {"wear_cost", "swap_cost"}
     assert float(table["wear_cost"][1]) == -1.0 and float(table["swap_cost"][1]) == -5.0
     assert all(r[6] in ("yes", "no") and r[7] in ("yes", "no") for r in table.values())
+    report = (folder / "report.html").read_text()
+    assert "Estimates against the truth (simulated data)" in report and "First stage: logit" in report
+    assert f"Wrote orthoccp-demo-2/report.html: lightgbm against the parametric logit" in out
     rerun = next(line.strip() for line in out.splitlines() if line.strip().startswith("orthoccp estimate"))
     assert rerun == "orthoccp estimate orthoccp-demo-2/ebike.csv --spec orthoccp-demo-2/ebike.toml"
     # Run the printed command (from the same folder) and get the demo's debiased estimates.
@@ -448,3 +456,46 @@ def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pyte
     for p in doc["params"]:
         assert float(table[p["name"]][4]) == pytest.approx(p["estimate"], abs=5e-5)
     capsys.readouterr()
+
+
+# --------------------------------------------------------------------------- compare, report
+def test_compare_matches_the_api_and_writes_tables(
+    files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    out = tmp_path / "cmp.json"
+    argv = ["compare", str(files["data"]), "--spec", str(fast_spec), "--with", "logit", "--with", "lasso_logit",
+            "--json", str(out), "--latex", str(tmp_path / "cmp.tex"), "--html", str(tmp_path / "cmp.html")]
+    assert main(argv) == 0
+    text = capsys.readouterr().out
+    assert "orthoccp comparison of first stages (baseline: logit); all debiased" in text
+    assert "joint test lasso_logit = logit: Wald" in text
+    doc = strict_json(out.read_text())
+    assert doc["baseline"] == "logit" and list(doc["first_stages"]) == ["logit", "lasso_logit"]
+    spec = read_spec(fast_spec)
+    panel = spec.build_panel(spec.load_data(files["data"]))
+    model = spec.build_model(panel)
+    options = {k: v for k, v in spec.estimate_options().items() if k != "learner"}
+    api = oc.compare(panel, model, first_stages={"logit": "logit", "lasso_logit": "lasso_logit"}, **options)
+    for label, res in api.results.items():
+        got = {p["name"]: p["estimate"] for p in doc["first_stages"][label]["params"]}
+        for name, value in res.params.items():
+            assert got[name] == pytest.approx(float(value), rel=1e-12)
+    test = {r["parameter"]: r for r in doc["tests"]["lasso_logit"]["parameters"]}
+    for name, row in api.tests["lasso_logit"].iterrows():
+        assert test[name]["p_value"] == pytest.approx(float(row["p_value"]), rel=1e-9)
+    assert (tmp_path / "cmp.tex").read_text().startswith("\\begin{tabular}")
+    assert "<table" in (tmp_path / "cmp.html").read_text()
+
+
+def test_report_command(files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    pytest.importorskip("matplotlib")
+    out = tmp_path / "report.html"
+    argv = ["report", str(files["data"]), "--spec", str(fast_spec), "--with", "logit", "--with", "lasso_logit",
+            "--out", str(out)]
+    assert main(argv) == 0
+    text = capsys.readouterr().out
+    assert f"wrote {out}" in text and "lasso_logit: fold stability:" in text
+    html_text = out.read_text()
+    assert "<h3>Fold stability</h3>" in html_text and html_text.count("data:image/png;base64,") >= 7
+    assert main([*argv[:-2], "--out", str(tmp_path / "quick.html"), "--no-stability"]) == 0
+    assert "Fold stability" not in (tmp_path / "quick.html").read_text()

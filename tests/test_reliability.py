@@ -276,6 +276,20 @@ BAD: dict[str, Case] = {
         r"folds must be an integer >= 2, got '3'", options={"folds": "3"},
         cli_match=r"first_stage\.folds must be an integer >= 2, got '3' \(string\)",
     ),
+    "debias of the wrong type": Case(
+        r"debias must be True or False, got 'no' \(str\)", options={"debias": "no"},
+        doc=_edit_doc("inference", "debias", "no"), cli_match=r"inference\.debias must be true or false",
+    ),
+    "small_sample of the wrong type": Case(
+        r"small_sample must be True or False, got 1 \(int\)", options={"small_sample": 1},
+        doc=_edit_doc("inference", "small_sample", 1), cli_match=r"inference\.small_sample must be true or false",
+    ),
+    "unknown covariance": Case(
+        r"cov 'robust' is unknown; valid names: clustered, heteroskedastic", options={"cov": "robust"},
+        doc=_edit_doc("inference", "cov", "robust"), cli_match=r"inference\.cov must be one of 'clustered'",
+    ),
+    "discount as text": Case(r"discount must be a number in \[0, 1\), got '0\.95'", model={"discount": "0.95"},
+                             cli_match=r"model\.discount must be a number"),
     "states of the wrong type": Case(r"states must be a list of column names, got NoneType", panel={"states": None}, cli=False),
     "states as a number (spec)": Case(
         r"", api=False, doc=_edit_doc("data", "states", 3),
@@ -422,6 +436,9 @@ def test_missing_drop_records_counts_and_warns() -> None:
     acc = res.accounting
     assert acc.n_rows == 356 and acc.n_moment_rows + sum(acc.excluded.values()) == acc.n_rows
     assert acc.excluded["gap before the next observed period"] >= 3
+    # The results carry the panel's drops too, so the summary accounts for every input row.
+    assert acc.dropped == panel.dropped_rows and acc.n_input_rows == 360
+    assert res.summary().count("4 of 360 input rows dropped (2 missing or infinite value in state column 'x0'") == 1
     # missing="error" (the default) refuses the same frame and names the option.
     with pytest.raises(oc.InputError, match=r"x0' has 2 missing or infinite values.*missing='drop'"):
         oc.Panel(frame, unit="bike", period="week", choice="action", states=STATES)
@@ -444,6 +461,7 @@ def test_missing_drop_from_the_command_line(tmp_path: Path, capsys: pytest.Captu
     res = json.loads(out.read_text())
     assert res["n_rows"] == 356
     assert res["n_moment_rows"] + sum(res["rows_excluded"].values()) == 356
+    assert res["n_rows"] + sum(res["rows_dropped"].values()) == 360
 
 
 def test_gaps_are_counted_not_linked() -> None:
@@ -517,7 +535,7 @@ def test_dominant_units_table_and_warning() -> None:
     label = res.influence_units[7].item()
     assert table.loc["swap_cost", "top_units"] == [label]
     (w,) = record
-    assert re.search(rf"parameter 'swap_cost': the top unit of 60 \({label!r}\) carry 63% of its variance", str(w.message))
+    assert re.search(rf"parameter 'swap_cost': the top unit of 60 \({label!r}\) carries 63% of its variance", str(w.message))
     assert "error" not in str(w.message)  # the CLI tests reject the word in stderr
     # Balanced influence: no warning; the top 1% of 250 units is 2 units.
     with warnings.catch_warnings():
@@ -533,17 +551,27 @@ def test_dominant_units_table_and_warning() -> None:
 Z_UTILITY = {"keep": {"wear_cost": "wear_scaled", "z_cost": "z"}, "swap": {"swap_cost": "1"}}
 
 
-def _unidentified_on_moment_rows() -> pd.DataFrame:
-    """``z`` equals ``wear_scaled`` except in the last week, whose rows are not moment rows:
-    the design passes the identification check (all rows) but the moment Jacobian is singular."""
+def _unidentified_on_moment_rows(noise: float) -> pd.DataFrame:
+    """``z`` equals ``wear_scaled`` plus ``noise`` times N(0, 1) noise, except in the last week,
+    whose rows are not moment rows: the design has full rank over all rows."""
     d = base()
     last = d["week"] == d["week"].max()
-    d["z"] = d["wear_scaled"] + np.where(last, np.random.default_rng(0).normal(size=len(d)), 0.0)
+    rng = np.random.default_rng(0)
+    d["z"] = d["wear_scaled"] + np.where(last, rng.normal(size=len(d)), noise * rng.normal(size=len(d)))
     return d
 
 
+def test_identification_is_checked_on_the_moment_rows() -> None:
+    panel = oc.Panel(_unidentified_on_moment_rows(0.0), unit="bike", period="week", choice="action", states=STATES)
+    model = oc.Model(anchor="swap", kind="renewal", discount=0.95, utility=Z_UTILITY)
+    with pytest.raises(oc.InputError, match=r"not identified: .* collinear .* in the 300 moment rows \(rank 2 of 3\)"):
+        oc.estimate(panel, model, learner="logit", folds=3)
+
+
 def test_newton_failure_is_reported_never_a_silent_nan(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    frame = _unidentified_on_moment_rows()
+    # Nearly collinear on the moment rows (noise 1e-6): rank passes, the Jacobian's condition
+    # number (~1e12) exceeds the solver's limit.
+    frame = _unidentified_on_moment_rows(1e-6)
     panel = oc.Panel(frame, unit="bike", period="week", choice="action", states=STATES)
     model = oc.Model(anchor="swap", kind="renewal", discount=0.95, utility=Z_UTILITY)
     pattern = r"plug-in solve: the Jacobian is singular or ill-conditioned \(condition number [\d.e+]+, last step \w+\)"

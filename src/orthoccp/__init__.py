@@ -12,8 +12,11 @@ from .diagnostics import Diagnostics
 from .estimate import estimate
 from .learners import learner_names
 from .model import EULER_GAMMA, Model
+from .montecarlo import MonteCarloResults, run_montecarlo
 from .nuisance import Nuisances, nuisances_from_truth
+from .report import write_report
 from .results import ASSUMPTIONS, NotApplicable, Results, RowAccounting
+from .stability import FoldStability, fold_stability
 
 __all__ = [
     "ASSUMPTIONS",
@@ -21,8 +24,10 @@ __all__ = [
     "Diagnostics",
     "EULER_GAMMA",
     "EstimationError",
+    "FoldStability",
     "InputError",
     "Model",
+    "MonteCarloResults",
     "NotApplicable",
     "Nuisances",
     "OrthoCCPWarning",
@@ -34,6 +39,9 @@ __all__ = [
     "covariance_names",
     "difference_test",
     "estimate",
+    "fold_stability",
     "learner_names",
     "nuisances_from_truth",
+    "run_montecarlo",
+    "write_report",
 ]

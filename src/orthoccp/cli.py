@@ -1,4 +1,5 @@
-"""Command-line interface: ``orthoccp demo``, ``simulate``, ``estimate`` and ``montecarlo``.
+"""Command-line interface: ``orthoccp demo``, ``simulate``, ``estimate``, ``compare``, ``report``
+and ``montecarlo``.
 
 Exit codes: 0 on success; 2 on a usage or input error (bad option, missing file, bad spec,
 bad data), reported as one line ``orthoccp: error: ...`` on stderr; 1 when the estimation
@@ -281,25 +282,29 @@ def _build_panel(spec: Spec, frame: pd.DataFrame, data_path: Path) -> oc.Panel:
         raise oc.InputError(f"{data_path}: {exc}") from exc
 
 
-def _cmd_estimate(args: argparse.Namespace) -> int:
-    progress = _Progress()
+def _read_inputs(
+    args: argparse.Namespace, progress: _Progress, **overrides: Any
+) -> tuple[Path, oc.Panel, oc.Model, dict[str, Any]]:
+    """Spec (with command-line overrides), data, panel, model and the estimate options."""
     progress.stage(f"reading the spec {args.spec}")
     spec: Spec = read_spec(args.spec)
-    spec = spec.with_options(
-        learner=args.learner,
-        folds=args.folds,
-        seed=args.seed,
-        debias=False if args.naive else None,
-    )
-    json_path = _output_path("--json", args.json)
-    latex_path = _output_path("--latex", args.latex)
+    spec = spec.with_options(folds=args.folds, seed=args.seed, **overrides)
     data_path = spec.data_path(args.data)
     progress.stage(f"reading the data {data_path}")
     frame = spec.load_data(args.data)
     progress.stage(f"checking {len(frame)} rows against the spec")
     panel = _build_panel(spec, frame, data_path)
     model = spec.build_model(panel)
-    options = spec.estimate_options()
+    return data_path, panel, model, spec.estimate_options()
+
+
+def _cmd_estimate(args: argparse.Namespace) -> int:
+    progress = _Progress()
+    json_path = _output_path("--json", args.json)
+    latex_path = _output_path("--latex", args.latex)
+    data_path, panel, model, options = _read_inputs(
+        args, progress, learner=args.learner, debias=False if args.naive else None
+    )
     method = "debiased" if options.get("debias", True) else "plug-in"
     progress.stage(
         f"estimating ({method}): cross-fitted first stage with "
@@ -321,6 +326,113 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
             _write_text(path, text)
             if not json_on_stdout:
                 print(f"wrote {path}")
+    progress.stage(f"done in {progress.elapsed:.1f}s")
+    return 0
+
+
+# --------------------------------------------------------------------------- compare, report
+def _first_stages(args: argparse.Namespace, options: dict[str, Any]) -> dict[str, str]:
+    """``--with`` names in order (default: logit, then the spec's learner), without repeats."""
+    names = list(args.first_stages or [])
+    if not names:
+        names = ["logit", str(options.get("learner", "lightgbm"))]
+    stages: dict[str, str] = {}
+    for name in names:
+        if name in stages:
+            raise oc.InputError(f"--with {name!r} is given twice; name each first stage once.")
+        stages[name] = name
+    return stages
+
+
+def _run_comparison(
+    args: argparse.Namespace, progress: _Progress
+) -> tuple[Path, oc.Panel, oc.Model, dict[str, Any], oc.Comparison]:
+    data_path, panel, model, options = _read_inputs(args, progress)
+    if options.pop("debias", True) is False:
+        raise oc.InputError(
+            "the spec sets inference.debias = false; compare and report run debiased "
+            "estimates only. Remove the key or set it to true."
+        )
+    stages = _first_stages(args, options)
+    options.pop("learner", None)
+    options.pop("regressor", None)
+    if args.baseline is not None and args.baseline not in stages:
+        raise oc.InputError(
+            f"--baseline {args.baseline!r} is not among the first stages ({', '.join(stages)}); "
+            f"add --with {args.baseline}."
+        )
+    progress.stage(f"estimating (debiased) with {', '.join(stages)}")
+    cmp = oc.compare(panel, model, first_stages=stages, baseline=args.baseline, **options)
+    return data_path, panel, model, options, cmp
+
+
+def _cmd_compare(args: argparse.Namespace) -> int:
+    progress = _Progress()
+    outputs = {
+        "--json": _output_path("--json", args.json),
+        "--latex": _output_path("--latex", args.latex),
+        "--html": _output_path("--html", args.html),
+    }
+    data_path, _, _, _, cmp = _run_comparison(args, progress)
+    print(cmp.summary())
+    doc = {
+        "inputs": {"data": str(data_path), "spec": str(args.spec)},
+        "baseline": cmp.baseline,
+        "first_stages": {
+            label: results_payload(res) for label, res in cmp.results.items()
+        },
+        "tests": {
+            label: {
+                "parameters": [
+                    {"parameter": str(k), **{c: float(v) for c, v in row.items()}}
+                    for k, row in test.iterrows()
+                ],
+                "wald": {k: float(v) for k, v in test.attrs["wald"].items()},
+            }
+            for label, test in cmp.tests.items()
+        },
+    }
+    texts = {"--json": lambda: _dumps(doc), "--latex": lambda: cmp.to_latex() + "\n",
+             "--html": cmp._repr_html_}
+    for option, path in outputs.items():
+        if path is not None:
+            _write_text(path, texts[option]())
+            print(f"wrote {path}")
+    progress.stage(f"done in {progress.elapsed:.1f}s")
+    return 0
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    from .report import write_report
+    from .stability import fold_stability
+
+    progress = _Progress()
+    out = Path(args.out)
+    if out.suffix.lower() not in (".html", ".htm"):
+        raise oc.InputError(f"--out {args.out!r} must be an .html file name.")
+    if out.is_dir():
+        raise oc.InputError(f"--out {args.out!r} is a folder; give a file name such as report.html.")
+    try:
+        import matplotlib  # noqa: F401
+    except ImportError as exc:
+        raise oc.InputError(
+            "the report's figures need matplotlib, an optional dependency: pip install "
+            "'orthoccp[plot]' (or pip install matplotlib)."
+        ) from exc
+    _, panel, model, options, cmp = _run_comparison(args, progress)
+    stability = {}
+    if args.stability:
+        for label in cmp.results:
+            if label == cmp.baseline:
+                continue
+            progress.stage(f"fold stability of {label}: refitting each fold with another seed")
+            stability[label] = fold_stability(panel, model, learner=label, **options)
+    progress.stage(f"writing {out}")
+    write_report(cmp, out, stability=stability)
+    print(cmp.summary())
+    for label, fs in stability.items():
+        print(f"{label}: {fs.reading()}")
+    print(f"wrote {out}")
     progress.stage(f"done in {progress.elapsed:.1f}s")
     return 0
 
@@ -441,6 +553,21 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     progress.stage("estimating (plug-in)")
     plugin_options = {k: v for k, v in options.items() if k != "moments"}
     plugin = oc.estimate(panel, model, **{**plugin_options, "debias": False})
+    report_path = None
+    if args.learner != "logit":
+        from .compare import Comparison, difference_test
+        from .report import write_report
+
+        progress.stage("estimating (debiased) with the parametric logit first stage")
+        parametric = oc.estimate(panel, model, **{**options, "learner": "logit", "debias": True})
+        cmp = Comparison(
+            results={"logit": parametric, args.learner: debiased},
+            baseline="logit",
+            tests={args.learner: difference_test(debiased, parametric)},
+        )
+        report_path = folder / "report.html"
+        progress.stage(f"writing {report_path}")
+        write_report(cmp, report_path, truth=dict(sim.truth), title="orthoccp demo report")
 
     print(
         f"orthoccp demo: simulated the {DEMO_SCENARIO!r} renewal scenario ({args.units} "
@@ -457,6 +584,11 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     )
     print(f"  {_rerun_command(data_path, spec_path)}")
     print("(add --naive for the plug-in estimator, --json results.json to save the results)")
+    if report_path is not None:
+        print(
+            f"Wrote {_display_path(report_path)}: {args.learner} against the parametric logit "
+            f"first stage, with diagnostics and figures (open it in a browser)."
+        )
     return 0
 
 
@@ -544,6 +676,8 @@ examples:
       the truth, and write the data and spec to ./orthoccp-demo/
   orthoccp simulate ebike --units 1000 --periods 12 --seed 0 --out panel.csv
   orthoccp estimate panel.csv --spec panel.toml --json results.json
+  orthoccp compare panel.csv --spec panel.toml --with logit --with lightgbm
+  orthoccp report panel.csv --spec panel.toml --out report.html
   orthoccp montecarlo ebike --reps 50 --units 500 --learner logit --out mc.json
   orthoccp estimate --help
 
@@ -558,6 +692,8 @@ examples:
 
 The folder receives ebike.csv (the panel) and ebike.toml (its spec, with the true
 parameters in a comment); the demo prints the command that reruns the estimate on them.
+Unless --learner is logit, it also writes report.html: the learner against the parametric
+logit first stage, the truth, diagnostics and figures (figures need matplotlib).
 """
 
 _SIMULATE_EPILOG = """\
@@ -569,6 +705,20 @@ examples:
 Writes the panel (CSV or Parquet, by the extension of --out) and a spec file beside it
 with the same name and the extension .toml. The spec's data path is relative to the spec;
 its first-stage seed is --seed. The true parameters are in a comment at the top of the spec.
+"""
+
+_COMPARE_EPILOG = """\
+examples:
+  orthoccp compare panel.csv --spec panel.toml                      # logit vs the spec's learner
+  orthoccp compare panel.csv --spec panel.toml --with logit --with lightgbm --with lasso_logit
+  orthoccp compare panel.csv --spec panel.toml --json cmp.json --latex cmp.tex
+"""
+
+_REPORT_EPILOG = """\
+examples:
+  orthoccp report panel.csv --spec panel.toml --out report.html
+  orthoccp report panel.csv --spec panel.toml --with logit --with lightgbm --out report.html
+  orthoccp report panel.csv --spec panel.toml --out report.html --no-stability   # faster
 """
 
 _ESTIMATE_EPILOG = """\
@@ -617,7 +767,7 @@ learners run single-threaded in each worker. Failed estimates are counted, not d
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The ``orthoccp`` argument parser with its four sub-commands.
+    """The ``orthoccp`` argument parser with its six sub-commands.
 
     Returns
     -------
@@ -783,6 +933,61 @@ def build_parser() -> argparse.ArgumentParser:
     )
     est.set_defaults(handler=_cmd_estimate)
 
+    for name in ("compare", "report"):
+        is_report = name == "report"
+        cp = sub.add_parser(
+            name,
+            parents=[common],
+            help=(
+                "one self-contained HTML page: comparison, diagnostics, figures, assumptions"
+                if is_report
+                else "the same model with several first stages, side by side, with equality tests"
+            ),
+            description=(
+                "Estimate the model of SPEC on DATA with several first stages (all debiased) and "
+                "test each against the baseline (the first --with) using both estimators' "
+                "per-unit influence terms."
+                + (
+                    " Write one HTML page with the comparison, every first stage's diagnostics "
+                    "and figures, the fold stability of the non-baseline first stages, and the "
+                    "assumptions; it opens in a browser with no network."
+                    if is_report
+                    else ""
+                )
+            ),
+            epilog=_REPORT_EPILOG if is_report else _COMPARE_EPILOG,
+            formatter_class=_Formatter,
+        )
+        cp.add_argument(
+            "data", metavar="DATA", nargs="?", default=None,
+            help="panel file (.csv or .parquet); default: data.path in the spec",
+        )
+        cp.add_argument("--spec", required=True, metavar="SPEC", help="spec file (TOML)")
+        cp.add_argument(
+            "--with", dest="first_stages", action="append", choices=learners, metavar="LEARNER",
+            help=(
+                "a first stage (repeatable; one of " + ", ".join(learners) + "); default: logit "
+                "and the spec's learner"
+            ),
+        )
+        cp.add_argument(
+            "--baseline", default=None, metavar="LEARNER",
+            help="the first stage the others are tested against (default: the first --with)",
+        )
+        cp.add_argument("--folds", type=int, default=None, metavar="K", help="override first_stage.folds")
+        cp.add_argument("--seed", type=int, default=None, metavar="S", help="override first_stage.seed")
+        if is_report:
+            cp.add_argument("--out", required=True, metavar="OUT", help="the HTML file to write")
+            cp.add_argument(
+                "--no-stability", dest="stability", action="store_false",
+                help="skip the fold-stability refits (they cost one more first stage per learner)",
+            )
+            cp.set_defaults(handler=_cmd_report)
+        else:
+            for opt, what in (("--json", "JSON"), ("--latex", "a LaTeX table"), ("--html", "an HTML table")):
+                cp.add_argument(opt, metavar="OUT", default=None, help=f"write the comparison as {what}")
+            cp.set_defaults(handler=_cmd_compare)
+
     mc = sub.add_parser(
         "montecarlo",
         parents=[common],
@@ -919,7 +1124,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     handler: _Handler | None = getattr(args, "handler", None)
     if handler is None:
         print(
-            f"{PROG}: error: choose a command: demo, simulate, estimate or montecarlo "
+            f"{PROG}: error: choose a command: demo, simulate, estimate, compare, report or "
+            f"montecarlo "
             f"(see '{PROG} --help')",
             file=sys.stderr,
         )

@@ -21,7 +21,7 @@ import pandas as pd
 
 from ._errors import InputError
 
-__all__ = ["CovarianceEstimate", "covariance_names", "estimate_covariance"]
+__all__ = ["CovarianceEstimate", "check_cov_name", "covariance_names", "estimate_covariance"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -70,6 +70,14 @@ def covariance_names() -> tuple[str, ...]:
     return tuple(_REGISTRY)
 
 
+def check_cov_name(name: object) -> None:
+    """Raise :class:`~orthoccp.InputError` unless ``name`` is a registered covariance."""
+    if not isinstance(name, str) or name not in _REGISTRY:
+        raise InputError(
+            f"cov {name!r} is unknown; valid names: {', '.join(_REGISTRY)}."
+        )
+
+
 def _sum_by(codes: np.ndarray, values: np.ndarray) -> np.ndarray:
     uniq, inv = np.unique(codes, return_inverse=True)
     out = np.zeros((uniq.size, values.shape[1]))
@@ -101,10 +109,7 @@ def estimate_covariance(
     small_sample : bool, default=True
         Multiply by n_g/(n_g - 1).
     """
-    if name not in _REGISTRY:
-        raise InputError(
-            f"cov {name!r} is unknown; valid names: {', '.join(_REGISTRY)}."
-        )
+    check_cov_name(name)
     clusters = _REGISTRY[name](units)
     Ginv = np.linalg.inv(jacobian)
     pieces = {k: _sum_by(clusters, v) @ -Ginv.T for k, v in components.items()}

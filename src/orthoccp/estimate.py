@@ -11,7 +11,7 @@ import pandas as pd
 
 from ._errors import InputError, OrthoCCPWarning
 from ._version import __version__
-from .covariance import estimate_covariance
+from .covariance import check_cov_name, estimate_covariance
 from .data import Panel
 from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
@@ -42,7 +42,7 @@ def account_rows(bound: BoundModel) -> tuple[np.ndarray, np.ndarray, RowAccounti
     codes = panel.choice_codes
     R = bound.anchor_index
     if not bound.has_next_stage:
-        acc = RowAccounting(n, n, 0, 0, {})
+        acc = RowAccounting(n, n, 0, 0, {}, dict(panel.dropped_rows))
         return np.arange(n), np.zeros(n, dtype=bool), acc
     linked = nxt >= 0
     is_last = ~linked & ~panel.gap_after
@@ -77,12 +77,21 @@ def account_rows(bound: BoundModel) -> tuple[np.ndarray, np.ndarray, RowAccounti
         n_corrected=int(corrected[rows].sum()),
         n_terminal=int(terminal_rows.sum()),
         excluded=excluded,
+        dropped=dict(panel.dropped_rows),
     )
     if rows.size == 0:
         raise InputError(
             "no row can serve as a moment row: no unit is observed in two consecutive periods."
         )
     return rows, corrected[rows], acc
+
+
+def _check_flags(**flags: Any) -> None:
+    for name, value in flags.items():
+        if not isinstance(value, (bool, np.bool_)):
+            raise InputError(
+                f"{name} must be True or False, got {value!r} ({type(value).__name__})."
+            )
 
 
 def _check_options(folds: Any, splits: Any, clip: Any, seed: Any) -> None:
@@ -123,7 +132,8 @@ def estimate(
         Choices, anchor, discount factor and flow utilities (see :class:`~orthoccp.Model`).
     learner : str or classifier, default="lightgbm"
         CCP learner: a registry name (``"lightgbm"``, ``"logit"``, ``"lasso_logit"``,
-        ``"random_forest"``) or any object with ``fit``/``predict_proba``. Cloned per fold.
+        ``"random_forest"``, ``"cell_frequency"`` for discrete or binned states) or any object
+        with ``fit``/``predict_proba``. Cloned per fold.
     regressor : str or regressor, optional
         Continuation regressions; defaults to the registry partner of ``learner``.
     folds : int, default=5
@@ -183,6 +193,8 @@ def estimate(
     if not isinstance(model, Model):
         raise InputError(f"model must be an orthoccp.Model, got {type(model).__name__}.")
     _check_options(folds, splits, clip, seed)
+    _check_flags(debias=debias, small_sample=small_sample)
+    check_cov_name(cov)
     if scheme not in ("plain", "nested"):
         raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
     if scheme == "nested" and folds < 3:
@@ -198,6 +210,8 @@ def estimate(
     bound = model.bind(panel)
     moments = _choose_moments(bound, moments, debias)
     rows, corrected, accounting = account_rows(bound)
+    if rows.size < panel.n_rows:
+        bound._check_identified(rows)
     pair = resolve_learners(learner, regressor)
     rng = np.random.default_rng(seed)
     params = bound.parameters

@@ -123,7 +123,7 @@ def dominant_units(
             more = f" and {row['n_top'] - _SHOWN} more" if row["n_top"] > _SHOWN else ""
             who = "unit" if row["n_top"] == 1 else f"{row['n_top']} units"
             warnings.warn(
-                f"parameter {name!r}: the top {who} of {n_units} ({shown}{more}) carry "
+                f"parameter {name!r}: the top {who} of {n_units} ({shown}{more}) {'carries' if row['n_top'] == 1 else 'carry'} "
                 f"{row['share']:.0%} of its variance (more than {float(threshold):.0%}), so "
                 f"its interval rests on a few units. Inspect them (outliers, probabilities "
                 f"near the clip bound) before trusting it.",

@@ -86,11 +86,19 @@ def _random_forest() -> tuple[Any, Any]:
     return RandomForestClassifier(**opts), RandomForestRegressor(**opts)  # type: ignore[arg-type]
 
 
+def _cell_frequency() -> tuple[Any, Any]:
+    # Hotz & Miller (1993)'s frequency estimator: for discrete or binned states only.
+    from .cell import CellFrequencyClassifier, CellFrequencyRegressor
+
+    return CellFrequencyClassifier(), CellFrequencyRegressor()
+
+
 _REGISTRY: dict[str, Callable[[], tuple[Any, Any]]] = {
     "lightgbm": _lightgbm,
     "logit": _logit,
     "lasso_logit": _lasso_logit,
     "random_forest": _random_forest,
+    "cell_frequency": _cell_frequency,
 }
 
 

@@ -83,10 +83,11 @@ class Model:
             raise InputError(
                 f"kind must be 'renewal' or 'terminal', got {self.kind!r}."
             )
-        try:
-            beta = float(self.discount)
-        except (TypeError, ValueError) as exc:
-            raise InputError(f"discount must be a number in [0, 1), got {self.discount!r}.") from exc
+        if isinstance(self.discount, (bool, np.bool_)) or not isinstance(
+            self.discount, (int, float, np.integer, np.floating)
+        ):
+            raise InputError(f"discount must be a number in [0, 1), got {self.discount!r}.")
+        beta = float(self.discount)
         if not (0.0 <= beta < 1.0) or not np.isfinite(beta):
             raise InputError(
                 f"discount must be in [0, 1), got {self.discount!r}; the infinite-horizon "
@@ -249,10 +250,16 @@ class BoundModel:
         """z_R data columns at every row (n_rows, n_zR); the ln P_R part is added later."""
         return self.Z[:, self.anchor_index, :][:, self.zR_params]
 
-    def _check_identified(self) -> None:
-        """Each parameter needs variation in z_j - z_R not spanned by the others."""
+    def _check_identified(self, rows: np.ndarray | None = None) -> None:
+        """Each parameter needs variation in z_j - z_R not spanned by the others.
+
+        ``rows`` restricts the check to the moment rows (``None``: every row); a parameter can
+        vary in the panel and still be constant on the rows that enter the moments.
+        """
         R = self.anchor_index
-        diffs = [self.Z[:, j, :] - self.Z[:, R, :] for j in range(self.Z.shape[1]) if j != R]
+        Z = self.Z if rows is None else self.Z[rows]
+        where = "in all rows" if rows is None else f"in the {Z.shape[0]} moment rows"
+        diffs = [Z[:, j, :] - Z[:, R, :] for j in range(Z.shape[1]) if j != R]
         D = np.vstack(diffs)
         # Terminal models with a constant in u_R: beta * 1 enters X and can identify it.
         if self.model.kind == "terminal" and self.zR_constants.size and self.model.discount > 0:
@@ -265,7 +272,7 @@ class BoundModel:
             bad = ", ".join(repr(names[k]) for k in zero)
             raise InputError(
                 f"parameter(s) {bad} not identified: the regressor is the same for every "
-                f"choice (z_j - z_R = 0 in all rows); a constant column under every choice, "
+                f"choice (z_j - z_R = 0 {where}); a constant column under every choice, "
                 f"or the same column under all choices, cancels. Drop the parameter or let it "
                 f"enter some choices only."
             )
@@ -282,5 +289,5 @@ class BoundModel:
             raise InputError(
                 f"parameter(s) {', '.join(map(repr, dependent))} not identified: their "
                 f"utility columns are constant or collinear with the other parameters' "
-                f"(rank {rank} of {Dn.shape[1]}). Drop one of the collinear parameters."
+                f"{where} (rank {rank} of {Dn.shape[1]}). Drop one of the collinear parameters."
             )

@@ -1,8 +1,9 @@
 """A self-contained HTML report a researcher can file with a paper's replication package.
 
 One page holds: the estimates of every first stage with the difference tests against the
-parametric baseline, the diagnostics with their readings, the figures (embedded PNG), the row
-accounting and the model's assumptions.
+parametric baseline, the diagnostics with their readings, the fold stability of the first
+stages it was computed for, the figures (embedded PNG), the row accounting and the model's
+assumptions. With simulated data, ``truth`` adds whether each interval covers the true value.
 """
 
 from __future__ import annotations
@@ -10,15 +11,22 @@ from __future__ import annotations
 import base64
 import html
 import io
+from collections.abc import Mapping
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
 
 from . import figures
+from ._errors import InputError
 from ._version import __version__
 from .compare import Comparison
 from .results import ASSUMPTIONS, Results
 
-__all__ = ["render_report", "write_report"]
+if TYPE_CHECKING:
+    from .stability import FoldStability
+
+__all__ = ["render_report", "truth_table", "write_report"]
 
 
 def _figure_tag(fig: Any, alt: str) -> str:
@@ -35,8 +43,47 @@ def _table(df: Any) -> str:
     return df.to_html(float_format=lambda v: f"{v:.4f}", border=0, classes="t")
 
 
-def render_report(comparison: Comparison, *, title: str = "orthoccp estimation report") -> str:
-    """The report as an HTML string."""
+def truth_table(comparison: Comparison, truth: Mapping[str, float], *, level: float = 0.95) -> pd.DataFrame:
+    """Per first stage and parameter: truth, estimate, interval and whether it covers.
+
+    For simulated data, whose true parameters are known.
+    """
+    rows = []
+    for label, res in comparison.results.items():
+        t = res.to_frame(level)
+        for name in t.index:
+            if name not in truth:
+                raise InputError(f"truth has no value for parameter {name!r}; give every parameter.")
+            lo, hi = float(t.loc[name, "ci_lower"]), float(t.loc[name, "ci_upper"])
+            value = float(truth[name])
+            rows.append({
+                "first_stage": label, "parameter": name, "truth": value,
+                "estimate": float(t.loc[name, "estimate"]), "ci_lower": lo, "ci_upper": hi,
+                "covers": bool(lo <= value <= hi),
+            })
+    return pd.DataFrame(rows).set_index(["first_stage", "parameter"])
+
+
+def render_report(
+    comparison: Comparison,
+    *,
+    title: str = "orthoccp estimation report",
+    stability: Mapping[str, FoldStability] | None = None,
+    truth: Mapping[str, float] | None = None,
+) -> str:
+    """The report as an HTML string.
+
+    Parameters
+    ----------
+    comparison : Comparison
+        The estimates by first stage (:func:`~orthoccp.compare`).
+    title : str
+        The page title.
+    stability : mapping, optional
+        First-stage label -> :func:`~orthoccp.stability.fold_stability` result.
+    truth : mapping, optional
+        Parameter -> true value (simulated data only): adds a coverage table.
+    """
     base = comparison.results[comparison.baseline]
     parts = [
         "<!DOCTYPE html><html><head><meta charset='utf-8'>",
@@ -54,6 +101,9 @@ def render_report(comparison: Comparison, *, title: str = "orthoccp estimation r
         _table(comparison.to_frame()),
         f"<pre>{html.escape(comparison.summary())}</pre>",
     ]
+    if truth is not None:
+        parts.append("<h2>Estimates against the truth (simulated data)</h2>")
+        parts.append(_table(truth_table(comparison, truth)))
     try:
         parts.append(_figure_tag(figures.coefficient_plot(comparison), "Debiased estimates by first stage"))
     except Exception as exc:  # figures are optional: say why one is missing
@@ -68,6 +118,13 @@ def render_report(comparison: Comparison, *, title: str = "orthoccp estimation r
             parts.append("<h3>Overlap</h3>" + _table(d.overlap))
             if not d.continuation_quality.empty:
                 parts.append("<h3>Continuation regressions</h3>" + _table(d.continuation_quality))
+        if stability and label in stability:
+            fs = stability[label]
+            parts.append(
+                "<h3>Fold stability</h3>"
+                f"<p>{html.escape(fs.reading())}</p>" + _table(fs.to_frame())
+            )
+        if res.diagnostics is not None:
             for fn, alt in (
                 (figures.calibration_plot, f"CCP calibration ({label})"),
                 (figures.overlap_plot, f"Overlap of fitted CCPs ({label})"),
@@ -84,11 +141,18 @@ def render_report(comparison: Comparison, *, title: str = "orthoccp estimation r
 
 
 def write_report(
-    comparison: Comparison | Results, path: str | Path, *, title: str = "orthoccp estimation report"
+    comparison: Comparison | Results,
+    path: str | Path,
+    *,
+    title: str = "orthoccp estimation report",
+    stability: Mapping[str, FoldStability] | None = None,
+    truth: Mapping[str, float] | None = None,
 ) -> Path:
     """Write :func:`render_report` to ``path`` (a single results object is accepted too)."""
     if isinstance(comparison, Results):
         comparison = Comparison(results={comparison.learner: comparison}, baseline=comparison.learner)
     p = Path(path)
-    p.write_text(render_report(comparison, title=title), encoding="utf-8")
+    p.write_text(
+        render_report(comparison, title=title, stability=stability, truth=truth), encoding="utf-8"
+    )
     return p

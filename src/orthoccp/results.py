@@ -50,6 +50,9 @@ class RowAccounting:
         Moment rows where the terminal anchor was chosen (no next row needed).
     excluded : dict
         Reason -> number of rows not used as moment rows.
+    dropped : dict
+        Reason -> number of input rows the panel dropped before estimation
+        (``Panel(missing="drop")``); empty when none were.
     """
 
     n_rows: int
@@ -57,9 +60,22 @@ class RowAccounting:
     n_corrected: int
     n_terminal: int
     excluded: dict[str, int]
+    dropped: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def n_input_rows(self) -> int:
+        """Rows given to :class:`~orthoccp.Panel`, before any were dropped."""
+        return self.n_rows + sum(self.dropped.values())
 
     def describe(self) -> str:
-        parts = [f"{self.n_moment_rows} of {self.n_rows} rows are moment rows"]
+        parts = []
+        if any(self.dropped.values()):
+            reasons = ", ".join(f"{v} {k}" for k, v in self.dropped.items() if v)
+            parts.append(
+                f"{self.n_input_rows - self.n_rows} of {self.n_input_rows} input rows dropped "
+                f"({reasons})"
+            )
+        parts.append(f"{self.n_moment_rows} of {self.n_rows} rows are moment rows")
         if self.n_terminal:
             parts.append(f"{self.n_terminal} of them chose the terminal anchor (no next row needed)")
         dropped = [f"{v} {k}" for k, v in self.excluded.items() if v]
@@ -299,6 +315,7 @@ class Results:
             "n_rows": self.accounting.n_rows,
             "n_moment_rows": self.accounting.n_moment_rows,
             "rows_excluded": dict(self.accounting.excluded),
+            "rows_dropped": dict(self.accounting.dropped),
             "learner": self.learner,
             "regressor": self.regressor,
             "folds": self.folds,
