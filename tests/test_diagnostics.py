@@ -45,3 +45,32 @@ def test_tables_have_expected_shape(result) -> None:  # type: ignore[no-untyped-
     readings = d.readings()
     assert any("log-loss" in r for r in readings) and any("Influence" in r for r in readings)
     assert "diagnostics" in result.summary()
+
+
+def test_rare_anchor_after_renewal_is_read_and_warned() -> None:
+    """Su & Judd (2012) bus design: right after a replacement the exact replacement probability
+    is of order 1e-5 (``p_replace`` column of the simulator), so the CCP correction's 1/P_R is
+    unreliable; the standard debiased estimate warns, and every result's diagnostics read it."""
+    from orthoccp.cell import CellFrequencyClassifier, CellFrequencyRegressor
+    from orthoccp.reference import SU_JUDD_BUS, simulate_bus
+
+    frame = simulate_bus(buses=50, periods=120, seed=1000)
+    panel = oc.Panel(frame, unit="bus", period="month", choice="action", states=["mileage"])
+    model = oc.Model(
+        anchor="replace", kind="renewal", discount=SU_JUDD_BUS.discount,
+        utility={"keep": {"theta11": "neg_mileage_k"}, "replace": {"replace_cost": "1"}},
+    )
+    learners = dict(learner=CellFrequencyClassifier(alpha=0.5), regressor=CellFrequencyRegressor(), folds=3)
+    # The warning comes before the solve, which such probabilities can break (it does here).
+    with pytest.warns(oc.OrthoCCPWarning, match=r"anchor choice 'replace' is so rare right after a renewal"):
+        with pytest.raises(oc.EstimationError, match="orthogonal solve"):
+            oc.estimate(panel, model, **learners)
+    res = oc.estimate(panel, model, debias=False, **learners)
+    chk = res.diagnostics.anchor
+    # Smoothed frequencies (alpha = 0.5) put P_R near 0.02 there, far above the truth, but the
+    # 59 rows then expect fewer than five replacements: the expected-count rule fires.
+    assert chk is not None and chk.kind == "renewal" and chk.expected_anchor < 5
+    assert chk.warning is not None and f"only {chk.expected_anchor:.1f} anchor choices are expected" in chk.warning
+    after = (panel.choice_codes == panel.choice_index("replace")) & (panel.next_row >= 0)
+    assert chk.n_rows == int(after.sum())
+    assert any(r.startswith("Anchor probability at the states right after a renewal") for r in res.diagnostics.readings())

@@ -3,12 +3,14 @@
 The public surface is listed in ``__all__``; everything else is private.
 """
 
+from . import discrete
 from ._errors import EstimationError, InputError, OrthoCCPWarning
 from ._version import __version__
 from .compare import Comparison, compare, difference_test
 from .covariance import covariance_names
 from .data import Panel
 from .diagnostics import Diagnostics
+from .discrete import DiscreteResults, bin_states, check_anchor_probability, estimate_discrete
 from .estimate import estimate
 from .learners import learner_names
 from .model import EULER_GAMMA, Model
@@ -22,6 +24,7 @@ __all__ = [
     "ASSUMPTIONS",
     "Comparison",
     "Diagnostics",
+    "DiscreteResults",
     "EULER_GAMMA",
     "EstimationError",
     "FoldStability",
@@ -35,10 +38,14 @@ __all__ = [
     "Results",
     "RowAccounting",
     "__version__",
+    "bin_states",
+    "check_anchor_probability",
     "compare",
     "covariance_names",
     "difference_test",
+    "discrete",
     "estimate",
+    "estimate_discrete",
     "fold_stability",
     "learner_names",
     "nuisances_from_truth",

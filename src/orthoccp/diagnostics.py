@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from .model import BoundModel
+from .anchor import AnchorCheck, check_anchor_probability
 from .nuisance import Nuisances
 
 __all__ = ["Diagnostics", "compute_diagnostics"]
@@ -39,6 +40,10 @@ class Diagnostics:
         Per choice and target: out-of-fold :math:`R^2` of the continuation regressions.
     influential_units : pandas.DataFrame
         The units with the largest share of each parameter's variance.
+    anchor : AnchorCheck or None
+        The estimated anchor probability where the CCP correction divides by it (the states
+        right after a renewal; every next state in a terminal model), with a warning when it
+        is too small for the correction to be reliable.
     """
 
     overlap: pd.DataFrame
@@ -46,6 +51,7 @@ class Diagnostics:
     calibration: pd.DataFrame
     continuation_quality: pd.DataFrame
     influential_units: pd.DataFrame = field(default_factory=pd.DataFrame)
+    anchor: AnchorCheck | None = None
 
     def readings(self) -> list[str]:
         """One plain-language sentence per diagnostic."""
@@ -93,6 +99,8 @@ class Diagnostics:
                     else "."
                 )
             )
+        if self.anchor is not None:
+            out.extend(self.anchor.readings())
         return out
 
 
@@ -230,12 +238,18 @@ def compute_diagnostics(
                 infl_rows.append(
                     {"parameter": name, "unit": _plain(influence_units[i]), "variance_share": float(share[i])}
                 )
+    anchor = None
+    if bound.has_next_stage:
+        anchor = check_anchor_probability(
+            panel, P, anchor=choices[bound.anchor_index], kind=bound.model.kind  # type: ignore[arg-type]
+        )
     return Diagnostics(
         overlap=overlap,
         ccp_quality=ccp_quality,
         calibration=calibration,
         continuation_quality=continuation_quality,
         influential_units=pd.DataFrame(infl_rows),
+        anchor=anchor,
     )
 
 

@@ -12,6 +12,7 @@ import pandas as pd
 from ._errors import InputError, OrthoCCPWarning
 from ._version import __version__
 from .covariance import check_cov_name, estimate_covariance
+from .anchor import check_anchor_probability
 from .data import Panel
 from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
@@ -257,6 +258,14 @@ def estimate(
             nxt = panel.next_row[rows]
             hit = nuis.clipped_rows[np.where(nxt >= 0, nxt, rows)]
             n_clipped_moment_rows += int(hit.sum())
+
+        if split == 0 and debias and moments == "standard" and not static:
+            # Before the solve, which is the step a tiny P_R can break.
+            check = check_anchor_probability(
+                panel, nuis.ccp, anchor=panel.choices[bound.anchor_index], kind=model.kind  # type: ignore[arg-type]
+            )
+            if check.warning:
+                warnings.warn(check.warning, OrthoCCPWarning, stacklevel=2)
 
         t1 = time.perf_counter()
         system = build_moment_system(bound, nuis, rows, corrected)

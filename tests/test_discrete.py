@@ -1,0 +1,419 @@
+"""Specification of orthoccp.discrete: inversion, transitions, NPL, forward simulation, anchor check.
+
+Outside references: the full-solution Bellman solver and NFXP MLE of orthoccp.reference
+(Rust 1987) for the identities of Hotz & Miller (1993) and Aguirregabiria & Mira (2002);
+statsmodels' Logit and MNLogit for the static (discount 0) case, with Greene's published
+logit estimates on the Spector & Mazzeo (1980) data.
+"""
+
+from __future__ import annotations
+
+import doctest
+import importlib
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+
+import orthoccp as oc
+from orthoccp.discrete import (
+    DiscreteResults,
+    bin_states,
+    build_problem,
+    check_anchor_probability,
+    estimate_discrete,
+    estimate_transition_matrices,
+    hotz_miller_values,
+    simulate_continuation,
+    state_space,
+)
+from orthoccp.discrete._inversion import inversion_terms
+from orthoccp.discrete._scenario import CHOICES, INVENTORY, simulate_inventory
+from orthoccp.reference import SU_JUDD_BUS, NFXPProblem, simulate_bus, solve_bellman, solve_bus
+
+BUS = SU_JUDD_BUS
+
+
+@pytest.fixture(scope="module")
+def bus_frame() -> pd.DataFrame:
+    return simulate_bus(buses=50, periods=120, seed=1000)
+
+
+@pytest.fixture(scope="module")
+def bus_panel(bus_frame: pd.DataFrame) -> oc.Panel:
+    return oc.Panel(bus_frame, unit="bus", period="month", choice="action", states=["mileage"])
+
+
+@pytest.fixture(scope="module")
+def inventory_panel() -> oc.Panel:
+    df = simulate_inventory(units=300, periods=20, seed=7)
+    return oc.Panel(df, unit="shop", period="period", choice="order", states=["stock"])
+
+
+def _bus_npl(panel: oc.Panel, **kw: object) -> DiscreteResults:
+    return estimate_discrete(panel, utility=BUS.utility_spec(), discount=BUS.discount,
+                             n_states=BUS.n_states, transitions="increments",
+                             reset_choices=["replace"], **kw)
+
+
+# --------------------------------------------------------------------------- inversion
+def test_inversion_equals_value_function_bus() -> None:
+    # Hotz & Miller (1993, Prop. 1): at the model's CCPs the inversion returns its value
+    # function; the Bellman solve is to sup-norm 1e-12, so 1e-8 leaves room for rounding
+    # amplified by 1/(1 - beta) = 40.
+    sol = solve_bus(BUS)
+    V = hotz_miller_values(sol.ccp, BUS.flow_utility(), BUS.transitions(), discount=BUS.discount)
+    np.testing.assert_allclose(V, sol.value, rtol=0, atol=1e-8)
+
+
+def test_inversion_equals_value_function_three_choices_no_anchor() -> None:
+    # Same identity on a model with no renewal or terminal choice (our inventory scenario).
+    sol = INVENTORY.solve()
+    Z, names = INVENTORY.design()
+    theta = np.array([INVENTORY.truth[k] for k in names])
+    V = hotz_miller_values(sol.ccp, Z @ theta, INVENTORY.transitions(), discount=INVENTORY.discount)
+    np.testing.assert_allclose(V, sol.value, rtol=0, atol=1e-8)
+
+
+def test_policy_step_has_fixed_point_at_model_ccps() -> None:
+    # Aguirregabiria & Mira (2002, Prop. 1): Lambda(u + beta F W(P)) = P at the solution.
+    sol = INVENTORY.solve()
+    Z, names = INVENTORY.design()
+    theta = np.array([INVENTORY.truth[k] for k in names])
+    mats = tuple(INVENTORY.transitions())
+    inv = inversion_terms(sol.ccp, Z, [np.asarray(m) for m in mats], INVENTORY.discount)
+    v = inv.Zt @ theta + inv.et
+    P = np.exp(v - v.max(axis=1, keepdims=True))
+    P /= P.sum(axis=1, keepdims=True)
+    np.testing.assert_allclose(P, sol.ccp, rtol=0, atol=1e-10)
+
+
+# --------------------------------------------------------------------------- NPL = MLE
+def test_npl_fixed_point_is_the_nfxp_mle(bus_frame: pd.DataFrame, bus_panel: oc.Panel) -> None:
+    # Aguirregabiria & Mira (2002, Prop. 3): the NPL fixed point is the MLE given the
+    # transitions. NFXP stops at |grad l / N| < 1e-9, so its distance to the exact maximiser
+    # is at most ||(H/N)^{-1}|| * 1e-9 * sqrt(p); NPL stops at a CCP change of 1e-10.
+    nf = oc.reference.nfxp_estimate(
+        bus_frame, state="mileage", choice="action", unit="bus", period="month",
+        choices=("keep", "replace"), anchor="replace", utility=BUS.utility_spec(),
+        discount=BUS.discount, transitions="increments", n_states=BUS.n_states)
+    res = _bus_npl(bus_panel)
+    assert res.converged and res.last_change < 1e-10
+    theta = res.params[list(nf.params.index)].to_numpy()
+    H = nf.problem.evaluate(theta).hessian / nf.n_obs
+    bound = np.linalg.norm(np.linalg.inv(H), 2) * 1e-9 * np.sqrt(2) * 10
+    np.testing.assert_allclose(theta, nf.params.to_numpy(), rtol=0, atol=bound)
+    # The full-likelihood score vanishes at the NPL estimate (to the NFXP tolerance).
+    assert np.max(np.abs(nf.problem.gradient(theta) / nf.n_obs)) < 1e-9
+    assert res.loglik == pytest.approx(nf.loglik, rel=1e-10)
+
+
+def test_pseudo_scores_equal_full_likelihood_scores(bus_panel: oc.Panel) -> None:
+    # Zero-Jacobian property (Aguirregabiria & Mira 2002, Prop. 2): at the fixed point each
+    # observation's pseudo-score equals its full-likelihood score, computed by the reference
+    # through the implicit function theorem.
+    res = _bus_npl(bus_panel)
+    prob = build_problem(bus_panel, utility=BUS.utility_spec(), discount=BUS.discount,
+                         n_states=BUS.n_states, transitions="increments",
+                         reset_choices=["replace"])
+    ref = NFXPProblem(design=prob.design, transitions=prob.transitions.dense(),
+                      discount=BUS.discount, counts=prob.counts, parameters=prob.parameters,
+                      choices=prob.choices)
+    ev = ref.evaluate(res.params.to_numpy())
+    I_full = ref.opg(ev)
+    # The pseudo information is sum_s n_s sum_j P_j g_j g_j' with the same g.
+    n_s = prob.counts.sum(axis=1)
+    P = ev.solution.ccp
+    I_expected = np.einsum("s,sj,sja,sjb->ab", n_s, P, ev.cell_scores, ev.cell_scores)
+    np.testing.assert_allclose(res.information, I_expected, rtol=1e-7)
+    assert np.all(np.isfinite(I_full))
+
+
+def test_npl_covariance_matches_mle_information_without_transition_noise(
+    bus_panel: oc.Panel,
+) -> None:
+    # Without the transition step and clustering, the NPL sandwich uses the MLE's scores and
+    # its expected information: by the information equality (Rust 1987) the standard errors
+    # agree with the inverse observed information up to sampling noise, O(N^{-1/2}) relative;
+    # 50 units -> 25% is about two of those.
+    res = _bus_npl(bus_panel, cov="heteroskedastic", transition_noise=False)
+    se_info = np.sqrt(np.diag(np.linalg.inv(res.information)))
+    np.testing.assert_allclose(res.std_errors.to_numpy(), se_info, rtol=0.25)
+
+
+# --------------------------------------------------------------------------- discount 0
+def test_static_logit_matches_greene_and_statsmodels() -> None:
+    # Greene, Econometric Analysis, logit on Spector & Mazzeo (1980): const -13.021,
+    # GPA 2.826, TUCE 0.095, PSI 2.379 (3 decimals published); statsmodels Logit MLE and
+    # HC0 robust standard errors to 1e-6 (both Newton to 1e-11 and 1e-8 on this concave
+    # problem).
+    d = sm.datasets.spector.load_pandas().data
+    df = d.assign(unit=np.arange(len(d)), period=0, grade=d["GRADE"].astype(int))
+    panel = oc.Panel(df, unit="unit", period="period", choice="grade", states=["GPA", "TUCE", "PSI"])
+    res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic",
+                            utility={1: {"const": "1", "GPA": "GPA", "TUCE": "TUCE", "PSI": "PSI"}})
+    published = {"const": -13.021, "GPA": 2.826, "TUCE": 0.095, "PSI": 2.379}
+    for k, v in published.items():
+        assert res.params[k] == pytest.approx(v, abs=5e-4)
+    X = sm.add_constant(d[["GPA", "TUCE", "PSI"]]).rename(columns={"const": "const"})
+    fit = sm.Logit(d["GRADE"], X).fit(disp=0, cov_type="HC0", tol=1e-12)
+    np.testing.assert_allclose(res.params[X.columns].to_numpy(), fit.params.to_numpy(), atol=1e-6)
+    np.testing.assert_allclose(res.std_errors[X.columns].to_numpy(), fit.bse.to_numpy(), rtol=1e-5)
+
+
+def test_static_multinomial_matches_statsmodels_mnlogit() -> None:
+    # statsmodels MNLogit on its anes96 data (944 voters, 7 party identifications): MLE to
+    # 1e-5 and HC0 standard errors to 1e-4 relative (Newton tolerances of both fits).
+    d = sm.datasets.anes96.load_pandas().data
+    cols = ["logpopul", "selfLR", "age", "educ", "income"]
+    df = d.assign(unit=np.arange(len(d)), period=0, pid=d["PID"].astype(int))
+    panel = oc.Panel(df, unit="unit", period="period", choice="pid", states=cols)
+    utility = {j: {f"const_{j}": "1", **{f"{c}_{j}": c for c in cols}} for j in range(1, 7)}
+    res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic",
+                            utility=utility)
+    fit = sm.MNLogit(d["PID"], sm.add_constant(d[cols])).fit(
+        disp=0, method="newton", maxiter=100, cov_type="HC0")
+    ours = np.array([[res.params[f"{c}_{j}"] for j in range(1, 7)] for c in ["const", *cols]])
+    se = np.array([[res.std_errors[f"{c}_{j}"] for j in range(1, 7)] for c in ["const", *cols]])
+    np.testing.assert_allclose(ours, fit.params.to_numpy(), atol=1e-5)
+    np.testing.assert_allclose(se, fit.bse.to_numpy(), rtol=1e-4)
+
+
+# --------------------------------------------------------------------------- transitions
+def _weighted_frequency(prob, unit: int, h: float, alpha: float) -> np.ndarray:
+    """Cell frequencies (with smoothing alpha toward the pooled distribution) when unit's
+    transitions carry weight 1 + h: the estimator's definition, differentiated in h."""
+    o = prob.transitions._obs
+    w = np.where(o["unit"] == unit, 1.0 + h, 1.0)
+    S, J = prob.counts.shape
+    F = np.zeros((J, S, S))
+    for j in range(J):
+        sel = o["choice"] == j
+        C = np.zeros((S, S))
+        np.add.at(C, (o["state"][sel], o["next_state"][sel]), w[sel])
+        q = C.sum(axis=0) / C.sum()
+        n = C.sum(axis=1)
+        fill = alpha if alpha > 0 else (n == 0).astype(float)
+        F[j] = (C + np.multiply.outer(np.broadcast_to(fill, n.shape), q)) / (n + fill)[:, None]
+    return F
+
+
+@pytest.mark.parametrize("alpha", [0.0, 2.0])
+def test_transition_correction_matches_finite_differences(
+    inventory_panel: oc.Panel, alpha: float
+) -> None:
+    # Two-step estimation (Newey & McFadden 1994, Thm 6.1): unit i's transition term is
+    # dS/dF . D_i with D_i = d F_hat / d (weight of unit i). Check the adjoint formula
+    # against central differences of -sum_s n_s sum_j P_j g_j ln P_j(F_hat(h)) solved by the
+    # reference Bellman solver (step 1e-5: truncation O(h^2) ~ 1e-10, rounding ~ 1e-9).
+    res = estimate_discrete(inventory_panel, utility=INVENTORY.utility_spec(),
+                            discount=INVENTORY.discount, n_states=INVENTORY.n_states,
+                            transitions="frequency", smoothing=alpha)
+    prob = build_problem(inventory_panel, utility=INVENTORY.utility_spec(),
+                         discount=INVENTORY.discount, n_states=INVENTORY.n_states,
+                         transitions="frequency", smoothing=alpha)
+    np.testing.assert_allclose(prob.transitions.dense(), _weighted_frequency(prob, 0, 0.0, alpha),
+                               atol=1e-12)
+    theta = res.params.to_numpy()
+    u = prob.design @ theta
+    ref = NFXPProblem(design=prob.design, transitions=prob.transitions.dense(),
+                      discount=INVENTORY.discount, counts=prob.counts,
+                      parameters=prob.parameters, choices=prob.choices)
+    ev = ref.evaluate(theta)
+    w = prob.counts.sum(axis=1)[:, None, None] * ev.solution.ccp[:, :, None] * ev.cell_scores
+    h = 1e-5
+    for unit in (0, 5, 17):
+        lp = [solve_bellman(u, _weighted_frequency(prob, unit, s * h, alpha),
+                            INVENTORY.discount).log_ccp for s in (1, -1)]
+        fd = -np.einsum("sjk,sj->k", w, (lp[0] - lp[1]) / (2 * h))
+        ours = res.information @ res.influence_parts["transitions"][unit]
+        np.testing.assert_allclose(ours, fd, rtol=1e-5, atol=1e-7 * np.abs(fd).max())
+
+
+def test_increment_transitions_reproduce_reference(bus_frame: pd.DataFrame) -> None:
+    # The reference's Rust (1987) first step: same pmf and matrices.
+    from orthoccp.reference import estimate_transitions
+
+    df = bus_frame
+    s = df["mileage"].to_numpy()
+    a = (df["action"] == "replace").to_numpy().astype(int)
+    nxt = np.r_[s[1:], -1]
+    linked = np.r_[df["bus"].to_numpy()[1:] == df["bus"].to_numpy()[:-1], False]
+    rows = np.flatnonzero(linked)
+    ours = estimate_transition_matrices(s[rows], a[rows], nxt[rows], n_states=175,
+                                        choices=("keep", "replace"), method="increments",
+                                        reset_choices=["replace"])
+    ref = estimate_transitions(s[rows], a[rows], nxt[rows], n_states=175,
+                               choices=("keep", "replace"), method="increments", anchor=1)
+    np.testing.assert_allclose(ours.increments, ref.increments, atol=1e-15)
+    np.testing.assert_allclose(ours.dense(), ref.matrices, atol=1e-15)
+
+
+# --------------------------------------------------------------------------- forward simulation
+def test_forward_simulated_values_converge_to_inversion(inventory_panel: oc.Panel) -> None:
+    # Hotz, Miller, Sanders & Smith (1994): the simulated continuation is an unbiased
+    # average of paths, so its error shrinks like 1/sqrt(paths) (up to the truncation
+    # beta^T <= 1e-6). Checked per cell against the simulation's own standard error, and
+    # the error at 16x the paths must be about 4x smaller (at most half).
+    prob = build_problem(inventory_panel, utility=INVENTORY.utility_spec(),
+                         discount=INVENTORY.discount, n_states=INVENTORY.n_states,
+                         transitions="increments", base=INVENTORY.bases())
+    P = INVENTORY.solve().ccp
+    inv = inversion_terms(P, prob.design, prob.mats, prob.discount)
+    states = np.arange(prob.design.shape[0])
+    theta = np.array([INVENTORY.truth[k] for k in prob.parameters])
+    errors = []
+    for M in (50, 800):
+        sim = simulate_continuation(P, prob.design, prob.mats, prob.discount, states,
+                                    n_paths=M, horizon=270, seed=3)
+        v_sim = sim.Zt @ theta + sim.et
+        v_inv = inv.Zt @ theta + inv.et
+        th1 = np.append(theta, 1.0)
+        se = prob.discount * np.sqrt(np.einsum("a,sjab,b->sj", th1, sim.mean_cov, th1))
+        z = np.abs(v_sim - v_inv) / se
+        assert np.quantile(z, 0.95) < 3.0 and z.max() < 5.0
+        errors.append(np.sqrt(np.mean((v_sim - v_inv) ** 2)))
+    assert errors[1] < 0.5 * errors[0]
+
+
+def test_forward_estimates_approach_inversion_estimates(inventory_panel: oc.Panel) -> None:
+    # The forward-simulation estimate of the same one-step estimator approaches the
+    # inversion's as paths grow; the difference stays within 4 simulation standard errors.
+    common = dict(utility=INVENTORY.utility_spec(), discount=INVENTORY.discount,
+                  n_states=INVENTORY.n_states, transitions="increments",
+                  base=INVENTORY.bases(), estimator="pml")
+    exact = estimate_discrete(inventory_panel, **common)
+    gaps = []
+    for M in (100, 1600):
+        sim = estimate_discrete(inventory_panel, values="simulation", n_paths=M, seed=11, **common)
+        sim_se = np.sqrt(sim.decomposition["simulation"] * sim.std_errors**2)
+        gap = (sim.params - exact.params).abs()
+        assert (gap <= 4 * sim_se).all()
+        gaps.append(float(np.sqrt(np.mean((gap / exact.std_errors) ** 2))))
+    assert gaps[1] < 0.5 * gaps[0]
+
+
+def test_forward_draws_are_reproducible_and_common_across_theta(inventory_panel: oc.Panel) -> None:
+    prob = build_problem(inventory_panel, utility=INVENTORY.utility_spec(),
+                         discount=INVENTORY.discount, n_states=INVENTORY.n_states)
+    P = INVENTORY.solve().ccp
+    a = simulate_continuation(P, prob.design, prob.mats, prob.discount, np.arange(25),
+                              n_paths=20, horizon=30, seed=5)
+    b = simulate_continuation(P, prob.design, prob.mats, prob.discount, np.arange(25),
+                              n_paths=20, horizon=30, seed=5)
+    np.testing.assert_array_equal(a.Zt, b.Zt)
+    np.testing.assert_array_equal(a.et, b.et)
+
+
+# --------------------------------------------------------------------------- three choices
+def test_npl_recovers_truth_without_finite_dependence() -> None:
+    # Large sample of our inventory scenario: every estimate within 3 SE of the truth
+    # (a 3-SE band misses with probability 0.3% per parameter when the SEs are right).
+    df = simulate_inventory(units=3000, periods=20, seed=2)
+    panel = oc.Panel(df, unit="shop", period="period", choice="order", states=["stock"])
+    res = estimate_discrete(panel, utility=INVENTORY.utility_spec(), discount=INVENTORY.discount,
+                            n_states=INVENTORY.n_states, transitions="increments",
+                            base=INVENTORY.bases())
+    truth = pd.Series(INVENTORY.truth)[res.params.index]
+    assert res.converged
+    assert ((res.params - truth).abs() <= 3 * res.std_errors).all()
+
+
+# --------------------------------------------------------------------------- results object
+def test_results_object_views(bus_panel: oc.Panel) -> None:
+    res = _bus_npl(bus_panel)
+    assert isinstance(res, oc.Results)
+    text = res.summary()
+    assert "NPL iterations" in text and "no renewal or terminal choice needed" in text
+    out = json.loads(res.to_json())
+    assert out["estimator"]["name"] == "npl" and out["estimator"]["converged"] is True
+    assert [p["name"] for p in out["params"]] == ["theta11", "RC"]
+    assert res.conf_int().shape == (2, 2)
+    assert res.influence.shape == (50, 2)
+    np.testing.assert_allclose(res.cov.to_numpy(), res.influence.T @ res.influence)
+
+
+def test_unit_relabelling_and_row_order_do_not_change_estimates(bus_frame: pd.DataFrame) -> None:
+    base = _bus_npl(oc.Panel(bus_frame, unit="bus", period="month", choice="action",
+                             states=["mileage"]))
+    shuffled = bus_frame.sample(frac=1.0, random_state=0).assign(bus=lambda d: 1000 - d["bus"])
+    other = _bus_npl(oc.Panel(shuffled, unit="bus", period="month", choice="action",
+                              states=["mileage"]))
+    np.testing.assert_allclose(other.params, base.params, rtol=1e-12)
+    np.testing.assert_allclose(other.std_errors, base.std_errors, rtol=1e-10)
+
+
+# --------------------------------------------------------------------------- anchor check
+def test_anchor_check_warns_on_the_bus_design(bus_frame: pd.DataFrame, bus_panel: oc.Panel) -> None:
+    # Exact CCPs of the Su & Judd design: right after a replacement P_R is of order 1e-5.
+    ccp = bus_panel.frame[["p_keep", "p_replace"]].to_numpy()
+    chk = check_anchor_probability(bus_panel, ccp, anchor="replace")
+    assert chk.n_rows == int((bus_frame["action"] == "replace").sum()) - int(
+        ((bus_frame["action"] == "replace") & (bus_frame["month"] == 119)).sum())
+    assert chk.median < 1e-3 and chk.warning is not None and "renewal-robust" in chk.warning
+    assert any("Anchor probability" in r for r in chk.readings())
+
+
+def test_anchor_check_silent_when_anchor_is_common(bus_panel: oc.Panel) -> None:
+    ccp = np.tile([0.7, 0.3], (bus_panel.n_rows, 1))
+    chk = check_anchor_probability(bus_panel, ccp, anchor="replace", min_expected=1.0)
+    assert chk.warning is None and chk.median == pytest.approx(0.3)
+
+
+# --------------------------------------------------------------------------- states, inputs
+def test_state_space_and_binning() -> None:
+    df = pd.DataFrame({"id": np.repeat(np.arange(10), 5), "t": np.tile(np.arange(5), 10)})
+    rng = np.random.default_rng(0)
+    df["x"] = rng.normal(size=50)
+    df["a"] = rng.integers(0, 2, size=50)
+    binned, edges = bin_states(df, ["x"], bins=4)
+    assert binned["x_bin"].nunique() == 4 and edges["x"].size == 5
+    assert (binned.groupby("x_bin")["x"].mean() == binned.groupby("x_bin")["x_mid"].first()).all()
+    panel = oc.Panel(binned, unit="id", period="t", choice="a", states=["x_bin"])
+    sp = state_space(panel)
+    assert sp.n_states == 4 and np.array_equal(sp.codes, panel.frame["x_bin"].to_numpy())
+
+
+def _bad_calls(panel: oc.Panel) -> list:
+    u = BUS.utility_spec()
+    base = dict(utility=u, discount=0.975, n_states=175)
+    return [
+        (dict(base, estimator="full"), "estimator must be"),
+        (dict(base, values="simulation"), "needs estimator='pml'"),
+        (dict(base, discount=1.0), "discount must be"),
+        (dict(base, transitions="kernel"), "transitions must be"),
+        (dict(base, smoothing=-1.0), "smoothing must be"),
+        (dict(base, n_states=10), "integer codes 0..9"),
+        (dict(base, utility={"keep": {"c": "1"}, "replace": {"c": "1"}}), "not all identified"),
+        (dict(base, utility={"stop": {"c": "1"}}), "not one of the choices"),
+        (dict(base, initial_ccp=np.ones((175, 2))), "initial_ccp must be"),
+        (dict(base, transitions="increments", increment_range=(1, 0)), "smallest <= largest"),
+    ]
+
+
+def test_bad_inputs_raise_clear_errors(bus_panel: oc.Panel) -> None:
+    for kwargs, match in _bad_calls(bus_panel):
+        with pytest.raises(oc.InputError, match=match):
+            estimate_discrete(bus_panel, **kwargs)
+
+
+def test_regressor_that_varies_within_a_state_is_refused(inventory_panel: oc.Panel) -> None:
+    frame = inventory_panel.frame.assign(noise=np.arange(inventory_panel.n_rows, dtype=float))
+    panel = oc.Panel(frame, unit="shop", period="period", choice="order", states=["stock"])
+    with pytest.raises(oc.InputError, match="varies within a state"):
+        estimate_discrete(panel, utility={"large": {"c": "1"}, "small": {"n": "noise"}},
+                          discount=0.9)
+
+
+@pytest.mark.parametrize("name", ["orthoccp.discrete._states", "orthoccp.discrete._inversion",
+                                  "orthoccp.discrete._transitions", "orthoccp.anchor",
+                                  "orthoccp.discrete._scenario", "orthoccp.discrete._estimate"])
+def test_docstring_examples(name: str) -> None:
+    result = doctest.testmod(importlib.import_module(name), optionflags=doctest.NORMALIZE_WHITESPACE)
+    assert result.failed == 0
+
+
+def test_choices_order_of_scenario_matches_panel(inventory_panel: oc.Panel) -> None:
+    assert tuple(inventory_panel.choices) == CHOICES
