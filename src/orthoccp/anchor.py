@@ -78,7 +78,7 @@ class AnchorCheck:
             f"{self.observed_anchor} observed."
         ]
         if self.warning:
-            out.append(self.warning)
+            out.append("Warning: " + self.warning)
         return out
 
 
@@ -172,7 +172,7 @@ def check_anchor_probability(
     if problems:
         where = "right after a renewal" if kind == "renewal" else "at the next states"
         warning = (
-            f"Warning: the anchor choice {anchor!r} is so rare {where} that the CCP correction, "
+            f"the anchor choice {anchor!r} is so rare {where} that the CCP correction, "
             f"which divides by its probability, is unreliable: {'; '.join(problems)}. Use the "
             f"discrete-state estimators (orthoccp.discrete.estimate_discrete: NPL or forward "
             f"simulation, which need no anchor) or, in a renewal model, the renewal-robust "

@@ -282,18 +282,41 @@ def _build_panel(spec: Spec, frame: pd.DataFrame, data_path: Path) -> oc.Panel:
         raise oc.InputError(f"{data_path}: {exc}") from exc
 
 
-def _read_inputs(
-    args: argparse.Namespace, progress: _Progress, **overrides: Any
-) -> tuple[Path, oc.Panel, oc.Model, dict[str, Any]]:
-    """Spec (with command-line overrides), data, panel, model and the estimate options."""
+def _read_spec(args: argparse.Namespace, progress: _Progress, **overrides: Any) -> Spec:
     progress.stage(f"reading the spec {args.spec}")
     spec: Spec = read_spec(args.spec)
-    spec = spec.with_options(folds=args.folds, seed=args.seed, **overrides)
+    if spec.estimator.discrete:
+        flags = {"learner": "--learner", "debias": "--naive"}
+        given = [flags.get(k, f"--{k}") for k, v in overrides.items() if v is not None]
+        if getattr(args, "folds", None) is not None:
+            given.append("--folds")
+        if given:
+            raise oc.InputError(
+                f"{given[0]} does not apply: the spec selects estimator.method = "
+                f"{spec.estimator.method!r}, which fits no learner; drop the option."
+            )
+    return spec.with_options(folds=args.folds, seed=args.seed, **overrides)
+
+
+def _load_panel(args: argparse.Namespace, spec: Spec, progress: _Progress) -> tuple[Path, oc.Panel]:
     data_path = spec.data_path(args.data)
     progress.stage(f"reading the data {data_path}")
     frame = spec.load_data(args.data)
     progress.stage(f"checking {len(frame)} rows against the spec")
-    panel = _build_panel(spec, frame, data_path)
+    return data_path, _build_panel(spec, frame, data_path)
+
+
+def _read_inputs(
+    args: argparse.Namespace, progress: _Progress, **overrides: Any
+) -> tuple[Path, oc.Panel, oc.Model, dict[str, Any]]:
+    """Spec (with command-line overrides), data, panel, model and the estimate options."""
+    spec = _read_spec(args, progress, **overrides)
+    if spec.estimator.discrete:
+        raise oc.InputError(
+            f"this command runs the orthogonal estimator; the spec selects estimator.method = "
+            f"{spec.estimator.method!r}. Use 'orthoccp estimate' for it."
+        )
+    data_path, panel = _load_panel(args, spec, progress)
     model = spec.build_model(panel)
     return data_path, panel, model, spec.estimate_options()
 
@@ -302,15 +325,23 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
     progress = _Progress()
     json_path = _output_path("--json", args.json)
     latex_path = _output_path("--latex", args.latex)
-    data_path, panel, model, options = _read_inputs(
-        args, progress, learner=args.learner, debias=False if args.naive else None
-    )
-    method = "debiased" if options.get("debias", True) else "plug-in"
-    progress.stage(
-        f"estimating ({method}): cross-fitted first stage with "
-        f"{options.get('learner', 'the default learner')}, then the second stage"
-    )
-    res = oc.estimate(panel, model, **options)
+    overrides = dict(learner=args.learner, debias=False if args.naive else None)
+    spec = _read_spec(args, progress, **overrides)
+    data_path, panel = _load_panel(args, spec, progress)
+    if spec.estimator.discrete:
+        progress.stage(f"estimating by {spec.estimator.method.upper()} on the discrete states")
+        res: oc.Results = oc.estimate_discrete(
+            panel, utility=spec.build_utility(panel), **spec.discrete_options(panel)
+        )
+    else:
+        model = spec.build_model(panel)
+        options = spec.estimate_options()
+        method = "debiased" if options.get("debias", True) else "plug-in"
+        progress.stage(
+            f"estimating ({method}): cross-fitted first stage with "
+            f"{options.get('learner', 'the default learner')}, then the second stage"
+        )
+        res = oc.estimate(panel, model, **options)
     progress.stage("writing the results")
     payload = results_payload(res, inputs={"data": str(data_path), "spec": str(args.spec)})
     # With '--json -' stdout carries the JSON document only.

@@ -260,9 +260,12 @@ def estimate(
             n_clipped_moment_rows += int(hit.sum())
 
         if split == 0 and debias and moments == "standard" and not static:
-            # Before the solve, which is the step a tiny P_R can break.
+            # Before the solve, which is the step a tiny P_R can break. Only the probability
+            # rule warns here; the expected-count rule, which small panels trip easily, is
+            # left to the diagnostics' reading.
             check = check_anchor_probability(
-                panel, nuis.ccp, anchor=panel.choices[bound.anchor_index], kind=model.kind  # type: ignore[arg-type]
+                panel, nuis.ccp, anchor=panel.choices[bound.anchor_index], kind=model.kind,  # type: ignore[arg-type]
+                min_expected=0.0,
             )
             if check.warning:
                 warnings.warn(check.warning, OrthoCCPWarning, stacklevel=2)

@@ -69,6 +69,7 @@ else:  # pragma: no cover - exercised on Python 3.10 only
 
 __all__ = [
     "DataSpec",
+    "EstimatorSpec",
     "FirstStageSpec",
     "InferenceSpec",
     "ModelSpec",
@@ -88,6 +89,9 @@ KINDS = ("renewal", "terminal")
 SCHEMES = ("plain", "nested")
 MOMENTS = ("standard", "renewal_robust")
 MISSING = ("error", "drop")
+METHODS = ("orthogonal", "npl", "pml")
+VALUES = ("inversion", "simulation")
+TRANSITIONS = ("frequency", "increments")
 CSV_SUFFIXES = (".csv", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip")
 PARQUET_SUFFIXES = (".parquet", ".pq")
 
@@ -140,9 +144,10 @@ class ModelSpec:
 
     Attributes
     ----------
-    kind : {"renewal", "terminal"}
-        Kind of the anchor choice.
-    anchor : str or int
+    kind : {"renewal", "terminal"} or None
+        Kind of the anchor choice (``None`` only for the discrete-state estimators, which
+        need no anchor).
+    anchor : str or int or None
         Anchor label as written in the file; matched to the data's labels by
         :meth:`Spec.build_model`.
     discount : float
@@ -151,8 +156,8 @@ class ModelSpec:
         States a renewal does not reset.
     """
 
-    kind: str
-    anchor: str | int
+    kind: str | None
+    anchor: str | int | None
     discount: float
     persistent: tuple[str, ...] = ()
 
@@ -215,6 +220,40 @@ class InferenceSpec:
 
 
 @dataclass(frozen=True)
+class EstimatorSpec:
+    """The ``[estimator]`` table: which estimator runs (all keys optional).
+
+    Attributes
+    ----------
+    method : {"orthogonal", "npl", "pml"}
+        ``"orthogonal"`` (default): :func:`orthoccp.estimate`, cross-fitted first stages and
+        the orthogonal finite-dependence moments. ``"npl"`` and ``"pml"``:
+        :func:`orthoccp.estimate_discrete` for discrete states (NPL iterations, or
+        pseudo-likelihood steps); they need no anchor and fit no learner.
+    values, transitions, smoothing, reset_choices, n_states, steps, max_iterations, tol, n_paths, horizon
+        Options of :func:`orthoccp.estimate_discrete` (``None``: its default); only with
+        ``method = "npl"`` or ``"pml"``.
+    """
+
+    method: str = "orthogonal"
+    values: str | None = None
+    transitions: str | None = None
+    smoothing: float | None = None
+    reset_choices: tuple[str, ...] | None = None
+    n_states: int | None = None
+    steps: int | None = None
+    max_iterations: int | None = None
+    tol: float | None = None
+    n_paths: int | None = None
+    horizon: int | None = None
+
+    @property
+    def discrete(self) -> bool:
+        """True for the discrete-state estimators."""
+        return self.method != "orthogonal"
+
+
+@dataclass(frozen=True)
 class Spec:
     """A validated spec: data roles, model, utilities and estimation options.
 
@@ -231,6 +270,8 @@ class Spec:
         Learner and cross-fitting options.
     inference : InferenceSpec
         Covariance and estimator options.
+    estimator : EstimatorSpec
+        Which estimator runs (default the orthogonal CCP estimator).
     source : pathlib.Path or None
         File the spec was read from.
 
@@ -255,6 +296,7 @@ class Spec:
     first_stage: FirstStageSpec = field(default_factory=FirstStageSpec)
     inference: InferenceSpec = field(default_factory=InferenceSpec)
     source: Path | None = None
+    estimator: EstimatorSpec = field(default_factory=EstimatorSpec)
 
     @property
     def parameters(self) -> tuple[str, ...]:
@@ -426,6 +468,64 @@ class Spec:
             When the anchor or a utility choice is not observed, or a utility column is
             not in the data.
         """
+        if self.model.kind is None or self.model.anchor is None:
+            raise SpecError(
+                f"{_where(self.source)}model.kind and model.anchor are required by the "
+                f"orthogonal estimator.",
+                key="model",
+            )
+        _, observed, integer_labels = self._observed(data)
+        anchor = self._match_choice("model.anchor", self.model.anchor, observed, integer_labels)
+        utility = self._matched_utility(data)
+        return Model(
+            anchor=anchor,
+            kind=self.model.kind,  # type: ignore[arg-type]
+            discount=self.model.discount,
+            utility=utility,
+            persistent=self.model.persistent,
+        )
+
+    def build_utility(self, data: pd.DataFrame | Panel) -> dict[Hashable, dict[str, str]]:
+        """The utility tables with choice labels matched to the data's (see :meth:`build_model`).
+
+        For :func:`orthoccp.estimate_discrete`, which takes the utility directly.
+        """
+        return self._matched_utility(data)
+
+    def discrete_options(self, data: pd.DataFrame | Panel) -> dict[str, Any]:
+        """Keyword arguments for :func:`orthoccp.estimate_discrete` besides panel and utility.
+
+        ``estimator``, ``discount``, the ``[estimator]`` options that are set (the
+        ``reset_choices`` labels matched to ``data``'s choices), and ``seed``, ``cov`` and
+        ``small_sample`` from ``[first_stage]`` and ``[inference]``.
+        """
+        est = self.estimator
+        if not est.discrete:
+            raise SpecError(
+                f"{_where(self.source)}estimator.method is 'orthogonal'; discrete_options "
+                f"applies to 'npl' and 'pml'.",
+                key="estimator.method",
+            )
+        out: dict[str, Any] = {"estimator": est.method, "discount": self.model.discount}
+        for key in ("values", "transitions", "smoothing", "n_states", "steps", "max_iterations",
+                    "tol", "n_paths", "horizon"):
+            value = getattr(est, key)
+            if value is not None:
+                out[key] = value
+        if est.reset_choices is not None:
+            _, observed, integer_labels = self._observed(data)
+            out["reset_choices"] = tuple(
+                self._match_choice("estimator.reset_choices", c, observed, integer_labels)
+                for c in est.reset_choices
+            )
+        for key, value in (("seed", self.first_stage.seed), ("cov", self.inference.cov),
+                           ("small_sample", self.inference.small_sample)):
+            if value is not None:
+                out[key] = value
+        return out
+
+    def _observed(self, data: pd.DataFrame | Panel) -> tuple[pd.DataFrame, list[Any], bool]:
+        """The frame, the observed choice labels, and whether they are integers."""
         if isinstance(data, Panel):
             frame = data.frame
             observed = list(data.choices)
@@ -436,7 +536,10 @@ class Spec:
             col = frame[self.data.choice]
             integer_labels = ptypes.is_integer_dtype(col) and not ptypes.is_bool_dtype(col)
             observed = [_plain(v) for v in pd.unique(col.dropna())]
-        anchor = self._match_choice("model.anchor", self.model.anchor, observed, integer_labels)
+        return frame, observed, integer_labels
+
+    def _matched_utility(self, data: pd.DataFrame | Panel) -> dict[Hashable, dict[str, str]]:
+        frame, observed, integer_labels = self._observed(data)
         utility: dict[Hashable, dict[str, str]] = {}
         for label, params in self.utility.items():
             key = f"utility.{_toml_key(label)}"
@@ -445,13 +548,7 @@ class Spec:
                 if column != CONSTANT:
                     self._require_column(frame, f"{key}.{_toml_key(name)}", column)
             utility[matched] = dict(params)
-        return Model(
-            anchor=anchor,
-            kind=self.model.kind,  # type: ignore[arg-type]
-            discount=self.model.discount,
-            utility=utility,
-            persistent=self.model.persistent,
-        )
+        return utility
 
     def _require_column(self, frame: pd.DataFrame, key: str, name: str) -> None:
         if name not in frame.columns:
@@ -507,9 +604,10 @@ class Spec:
         if self.data.missing != "error":
             data["missing"] = self.data.missing
         model: dict[str, Any] = {
-            "kind": self.model.kind,
-            "anchor": self.model.anchor,
-            "discount": self.model.discount,
+            k: v
+            for k, v in (("kind", self.model.kind), ("anchor", self.model.anchor),
+                         ("discount", self.model.discount))
+            if v is not None
         }
         if self.model.persistent:
             model["persistent"] = list(self.model.persistent)
@@ -524,15 +622,33 @@ class Spec:
             "inference": {
                 k: v for k, v in dataclasses.asdict(self.inference).items() if v is not None
             },
+            **(
+                {"estimator": {
+                    k: (list(v) if isinstance(v, tuple) else v)
+                    for k, v in dataclasses.asdict(self.estimator).items() if v is not None
+                }}
+                if self.estimator.discrete
+                else {}
+            ),
         }
 
 
 # --------------------------------------------------------------------------- parsing
-_TOP_KEYS = ("data", "model", "utility", "first_stage", "inference")
+_TOP_KEYS = ("data", "model", "utility", "first_stage", "inference", "estimator")
 _DATA_KEYS = ("unit", "period", "choice", "states", "path", "missing")
 _MODEL_KEYS = ("kind", "anchor", "discount", "persistent")
 _FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme", "clip")
 _INFERENCE_KEYS = ("cov", "small_sample", "debias", "moments")
+_ESTIMATOR_KEYS = (
+    "method", "values", "transitions", "smoothing", "reset_choices", "n_states", "steps",
+    "max_iterations", "tol", "n_paths", "horizon",
+)
+# Options of the orthogonal estimator that the discrete-state estimators do not use.
+_ORTHOGONAL_ONLY = (
+    "first_stage.learner", "first_stage.regressor", "first_stage.folds", "first_stage.splits",
+    "first_stage.scheme", "first_stage.clip", "inference.debias", "inference.moments",
+    "model.persistent",
+)
 
 
 def _where(source: Path | None) -> str:
@@ -726,13 +842,21 @@ def parse_spec(
         path = raw_path
     missing = chk.choice("data.missing", data.get("missing", "error"), MISSING)
 
+    estimator = _parse_estimator(chk, doc.get("estimator", {}))
+
     # [model]
     model = chk.table("model", doc["model"])
     chk.keys("model", model, _MODEL_KEYS)
-    kind = chk.choice(
-        "model.kind", chk.required("model", model, "kind", "'renewal' or 'terminal'"), KINDS
-    )
-    anchor = chk.label("model.anchor", chk.required("model", model, "anchor", "the anchor choice"))
+    kind: str | None = None
+    anchor: str | int | None = None
+    if not estimator.discrete or "kind" in model:
+        kind = chk.choice(
+            "model.kind", chk.required("model", model, "kind", "'renewal' or 'terminal'"), KINDS
+        )
+    if not estimator.discrete or "anchor" in model:
+        anchor = chk.label(
+            "model.anchor", chk.required("model", model, "anchor", "the anchor choice")
+        )
     discount = chk.number(
         "model.discount", chk.required("model", model, "discount", "a number in [0, 1)")
     )
@@ -815,6 +939,17 @@ def parse_spec(
         moments=inf("moments", lambda k, v: chk.choice(k, v, MOMENTS)),
     )
 
+    if estimator.discrete:
+        tables = {"first_stage": fs_doc, "inference": inf_doc, "model": model}
+        for dotted in _ORTHOGONAL_ONLY:
+            table, key = dotted.split(".")
+            if key in tables[table]:
+                raise chk.fail(
+                    dotted,
+                    f"{dotted} does not apply with estimator.method = {estimator.method!r} (the "
+                    f"discrete-state estimators fit no learner and use no anchor); remove it, "
+                    f"or set estimator.method = \"orthogonal\".",
+                )
     return Spec(
         data=DataSpec(
             unit=unit, period=period, choice=choice, states=states, path=path, missing=missing
@@ -824,6 +959,52 @@ def parse_spec(
         first_stage=first_stage,
         inference=inference,
         source=src,
+        estimator=estimator,
+    )
+
+
+def _parse_estimator(chk: _Checker, value: Any) -> EstimatorSpec:
+    est_doc = chk.table("estimator", value)
+    chk.keys("estimator", est_doc, _ESTIMATOR_KEYS)
+    method = chk.choice("estimator.method", est_doc.get("method", "orthogonal"), METHODS)
+    if method == "orthogonal":
+        extra = [k for k in est_doc if k != "method"]
+        if extra:
+            raise chk.fail(
+                f"estimator.{extra[0]}",
+                f"estimator.{extra[0]} applies to the discrete-state estimators only; set "
+                f"estimator.method = \"npl\" or \"pml\", or remove it.",
+            )
+        return EstimatorSpec()
+
+    def opt(name: str, check: Callable[[str, Any], Any]) -> Any:
+        v = est_doc.get(name)
+        return None if v is None else check(f"estimator.{name}", v)
+
+    def positive(k: str, v: Any) -> float:
+        x = chk.number(k, v)
+        if not x > 0:
+            raise chk.fail(k, f"{k} must be a number > 0, got {v!r}.")
+        return x
+
+    def non_negative(k: str, v: Any) -> float:
+        x = chk.number(k, v)
+        if not x >= 0:
+            raise chk.fail(k, f"{k} must be a number >= 0, got {v!r}.")
+        return x
+
+    return EstimatorSpec(
+        method=method,
+        values=opt("values", lambda k, v: chk.choice(k, v, VALUES)),
+        transitions=opt("transitions", lambda k, v: chk.choice(k, v, TRANSITIONS)),
+        smoothing=opt("smoothing", non_negative),
+        reset_choices=opt("reset_choices", lambda k, v: chk.strings(k, v, allow_empty=True)),
+        n_states=opt("n_states", lambda k, v: chk.integer(k, v, minimum=1)),
+        steps=opt("steps", lambda k, v: chk.integer(k, v, minimum=1)),
+        max_iterations=opt("max_iterations", lambda k, v: chk.integer(k, v, minimum=1)),
+        tol=opt("tol", positive),
+        n_paths=opt("n_paths", lambda k, v: chk.integer(k, v, minimum=1)),
+        horizon=opt("horizon", lambda k, v: chk.integer(k, v, minimum=1)),
     )
 
 
