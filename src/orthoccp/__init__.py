@@ -8,6 +8,14 @@ from ._errors import EstimationError, InputError, OrthoCCPWarning
 from ._version import __version__
 from .compare import Comparison, compare, difference_test
 from .covariance import covariance_names
+from .custom import (
+    HansenJ,
+    MomentResults,
+    Nuisance,
+    OrthogonalityCheck,
+    check_orthogonality,
+    estimate_moments,
+)
 from .data import Panel
 from .diagnostics import Diagnostics
 from .discrete import DiscreteResults, bin_states, check_anchor_probability, estimate_discrete
@@ -28,11 +36,15 @@ __all__ = [
     "EULER_GAMMA",
     "EstimationError",
     "FoldStability",
+    "HansenJ",
     "InputError",
     "Model",
+    "MomentResults",
     "MonteCarloResults",
     "NotApplicable",
+    "Nuisance",
     "Nuisances",
+    "OrthogonalityCheck",
     "OrthoCCPWarning",
     "Panel",
     "Results",
@@ -40,12 +52,14 @@ __all__ = [
     "__version__",
     "bin_states",
     "check_anchor_probability",
+    "check_orthogonality",
     "compare",
     "covariance_names",
     "difference_test",
     "discrete",
     "estimate",
     "estimate_discrete",
+    "estimate_moments",
     "fold_stability",
     "learner_names",
     "nuisances_from_truth",

@@ -942,8 +942,8 @@ def parse_spec(
     if estimator.discrete:
         tables = {"first_stage": fs_doc, "inference": inf_doc, "model": model}
         for dotted in _ORTHOGONAL_ONLY:
-            table, key = dotted.split(".")
-            if key in tables[table]:
+            section, key = dotted.split(".")
+            if key in tables[section]:
                 raise chk.fail(
                     dotted,
                     f"{dotted} does not apply with estimator.method = {estimator.method!r} (the "

@@ -1,0 +1,389 @@
+"""The pipeline for user moments: bind -> folds -> cross-fit -> Riesz weights -> GMM -> sandwich."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .._errors import InputError
+from .._version import __version__
+from ..covariance import check_cov_name, estimate_covariance
+from ..data import Panel
+from ..folds import unit_folds
+from ..learners import LearnerPair, resolve_learners
+from ..results import NotApplicable, Results, RowAccounting
+from ._crossfit import FittedNuisance, crossfit
+from ._functions import MomentFunction
+from ._gmm import GMMFit, HansenJ, cluster_sums, numerical_jacobian, two_step_gmm
+from ._riesz import RieszFit, check_method, correction_terms, fit_corrections
+from ._spec import Nuisance, Rows, bind_nuisance
+
+__all__ = ["estimate_moments", "MomentFit", "MomentResults"]
+
+USER_ASSUMPTIONS = (
+    "the moment has mean zero at the true parameters and the true nuisances",
+    "each nuisance is the conditional expectation of its target given its features",
+    "units are independent (standard errors are clustered by unit)",
+)
+
+
+@dataclass(frozen=True, eq=False)
+class MomentFit:
+    """Everything the estimate used: data view, nuisances, weights, moment (for checks)."""
+
+    rows: Rows
+    moment: MomentFunction
+    fitted: list[FittedNuisance]
+    riesz: list[RieszFit]
+    folds: np.ndarray
+    units: np.ndarray
+    n_units: int
+    theta: np.ndarray
+    parameters: tuple[str, ...]
+
+    def values(self) -> dict[str, np.ndarray]:
+        """Cross-fitted nuisance values by label."""
+        nu: dict[str, np.ndarray] = {}
+        for f in self.fitted:
+            nu.update(f.values)
+        return nu
+
+    def corrections(self, nu: Mapping[str, np.ndarray] | None = None) -> dict[str, np.ndarray]:
+        """Per-row correction of each nuisance (at ``nu``, default the fitted values)."""
+        return correction_terms(self.fitted, self.riesz, self.rows, self.values() if nu is None else nu)
+
+
+@dataclass(frozen=True, eq=False)
+class MomentResults(Results):
+    """:class:`~orthoccp.Results` of :func:`estimate_moments`, with Hansen's J when it applies.
+
+    Attributes
+    ----------
+    hansen : HansenJ or NotApplicable
+        The over-identification test (``NotApplicable`` for just-identified moments).
+    fit : MomentFit
+        Nuisance values and correction weights (used by :func:`check_orthogonality`).
+    """
+
+    hansen: HansenJ | NotApplicable = NotApplicable("not computed")
+    fit: MomentFit | None = field(default=None, repr=False)
+
+    @property
+    def hansen_j(self) -> HansenJ | NotApplicable:  # type: ignore[override]
+        return self.hansen
+
+    @property
+    def method(self) -> str:
+        if self.debiased:
+            return "GMM with user moments, automatically debiased (Riesz regression)"
+        return "GMM with user moments, plug-in (NOT debiased; standard errors ignore first-stage noise)"
+
+    def summary(self, level: float = 0.95) -> str:
+        t = self.to_frame(level)
+        pct = int(round(level * 100))
+        head = f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}{f'[{pct}% conf. int.]':>24}"
+        lines = [f"orthoccp {self.version}: {self.method}",
+                 f"moments: {self.model['n_moments']} for {len(self.params)} parameters; "
+                 f"nuisances: {', '.join(self.model['nuisances'])}",
+                 "=" * len(head), head, "-" * len(head)]
+        for name, r in t.iterrows():
+            lines.append(
+                f"{str(name):<18}{r.estimate:>11.4f}{r.std_error:>11.4f}{r.z:>8.2f}{r.p_value:>8.3f}"
+                f"{r.ci_lower:>12.4f}{r.ci_upper:>12.4f}"
+            )
+        lines.append("-" * len(head))
+        lines.append(f"units {self.n_units}; {self.accounting.describe()}")
+        lines.append(f"first stage: {self.learner}; {self.folds} folds by unit, seed {self.seed}; "
+                     f"{self.n_learner_fits} learner fits")
+        if self.debiased:
+            lines.append(f"correction: {self.model['riesz']}")
+        lines.append(f"covariance: {self.cov_type} by unit" + (" with n/(n-1) factor" if self.small_sample else ""))
+        h = self.hansen
+        lines.append(f"Hansen J: {h}" if isinstance(h, HansenJ) else f"Hansen J: not applicable ({h.reason}).")
+        lines.append("Inference is valid only under the assumptions:")
+        lines.extend(f"  - {a}" for a in USER_ASSUMPTIONS)
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        table = self.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
+        return f"<div><p><b>orthoccp</b>: {self.method}</p>{table}<pre>{self.summary()}</pre></div>"
+
+    def to_dict(self, level: float = 0.95) -> dict[str, Any]:
+        h = self.hansen
+        # The base view expects a NotApplicable marker; the test result is written below.
+        out = Results.to_dict(replace(self, hansen=NotApplicable("-")), level)
+        out["hansen_j"] = (
+            {"applicable": True, "statistic": h.statistic, "df": h.df, "p_value": h.pvalue}
+            if isinstance(h, HansenJ) else {"applicable": False, "reason": h.reason}
+        )
+        out["assumptions"] = list(USER_ASSUMPTIONS)
+        return out
+
+
+def _check_options(folds: Any, seed: Any, clip: Any, parameters: Any, start: Any) -> np.ndarray:
+    if isinstance(folds, bool) or not isinstance(folds, (int, np.integer)) or folds < 2:
+        raise InputError(f"folds must be an integer >= 2, got {folds!r}.")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InputError(f"seed must be a non-negative integer, got {seed!r}.")
+    if not isinstance(clip, (float, int)) or isinstance(clip, bool) or not (0 < float(clip) < 0.5):
+        raise InputError(f"clip must be a probability in (0, 0.5), got {clip!r}.")
+    if isinstance(parameters, str) or not isinstance(parameters, Sequence) or not parameters or not all(
+        isinstance(p, str) and p for p in parameters
+    ) or len(set(parameters)) != len(parameters):
+        raise InputError(
+            f"parameters must be a non-empty list of distinct names, got {parameters!r}."
+        )
+    theta0 = np.zeros(len(parameters)) if start is None else np.asarray(start, dtype=np.float64).reshape(-1)
+    if theta0.size != len(parameters) or not np.all(np.isfinite(theta0)):
+        raise InputError(
+            f"start must hold {len(parameters)} finite numbers (one per parameter), got {start!r}."
+        )
+    return theta0
+
+
+def _riesz_pair(riesz_learner: Any) -> LearnerPair:
+    """``riesz_learner``: a registry name or a (classifier, regressor) pair."""
+    if isinstance(riesz_learner, str):
+        return resolve_learners(riesz_learner)
+    if isinstance(riesz_learner, tuple) and len(riesz_learner) == 2:
+        return resolve_learners(riesz_learner[0], riesz_learner[1])
+    raise InputError(
+        f"riesz_learner must be a registry name or a (classifier, regressor) pair, got "
+        f"{type(riesz_learner).__name__}."
+    )
+
+
+def _check_nuisances(nuisances: Any) -> list[Nuisance]:
+    if isinstance(nuisances, Nuisance):
+        nuisances = [nuisances]
+    if not isinstance(nuisances, Sequence) or not nuisances or not all(
+        isinstance(n, Nuisance) for n in nuisances
+    ):
+        raise InputError(
+            f"nuisances must be a non-empty list of orthoccp Nuisance objects, got {nuisances!r}."
+        )
+    seen: set[str] = set()
+    for n in nuisances:
+        for label in n.labels:
+            if label in seen:
+                raise InputError(
+                    f"nuisance value name {label!r} is used twice; every nuisance name and "
+                    f"evaluation label must be unique."
+                )
+            seen.add(label)
+    return list(nuisances)
+
+
+def estimate_moments(
+    panel: Panel,
+    moment: Callable[[np.ndarray, Rows, Mapping[str, np.ndarray]], Any],
+    nuisances: Sequence[Nuisance],
+    *,
+    parameters: Sequence[str],
+    start: Sequence[float] | None = None,
+    folds: int = 5,
+    seed: int = 0,
+    debias: bool = True,
+    riesz: str = "lasso",
+    penalty: float = 1.0,
+    next_weights: str = "projected",
+    riesz_learner: Any = "lightgbm",
+    riesz_updates: int = 2,
+    clip: float = 1e-4,
+    cov: str = "clustered",
+    small_sample: bool = True,
+) -> MomentResults:
+    """Estimate parameters from a user-written moment with automatically debiased ML nuisances.
+
+    Parameters
+    ----------
+    panel : Panel
+        The data; ``moment`` and the targets see its rows as :class:`Rows`.
+    moment : callable
+        ``moment(theta, rows, nu) -> (n_rows, k)`` array with k >= number of parameters;
+        ``nu`` maps every nuisance name and evaluation label to one value per row. Rows where
+        any component is NaN are not moment rows. Row t may use the values of row t only.
+    nuisances : sequence of Nuisance
+        In dependency order (a generated target may use earlier nuisances' values).
+    parameters : sequence of str
+        Names of the entries of ``theta``.
+    start : sequence of float, optional
+        Starting values (default zeros).
+    folds : int, default=5
+        Cross-fitting folds, by unit (:func:`orthoccp.folds.unit_folds`).
+    seed : int, default=0
+        Drives the folds and every learner's ``random_state``.
+    debias : bool, default=True
+        ``False`` gives the plug-in GMM estimate (no corrections).
+    riesz : {"lasso", "learner"}, default="lasso"
+        Penalised Riesz regression on each nuisance's dictionary, or a learner-based fit.
+    penalty : float, default=1.0
+        c in :math:`r = c\\,\\hat\\sigma_\\alpha\\sqrt{\\ln p / n}`; 0 gives the unpenalised
+        projection.
+    next_weights : {"projected", "observed"}, default="projected"
+        How values at the unit's next row are corrected (see :mod:`orthoccp.custom._riesz`):
+        ``"observed"`` uses the observed derivative on the moment row, valid under the
+        conditional independence of dynamic discrete choice models.
+    riesz_learner : str or (classifier, regressor), default="lightgbm"
+        Learners for ``riesz="learner"``: the regressor fits the derivatives, the classifier
+        the density ratio between evaluation points and training rows.
+    riesz_updates : int, default=2
+        Times the weights are recomputed at the latest estimate (the first at the plug-in).
+    clip : float, default=1e-4
+        Probabilities of binary nuisances are clipped to [clip, 1 - clip].
+    cov : {"clustered", "heteroskedastic"}, default="clustered"
+        Sandwich clustered by unit, or by row.
+    small_sample : bool, default=True
+        Multiply the covariance by n_units / (n_units - 1).
+
+    Returns
+    -------
+    MomentResults
+        A :class:`~orthoccp.Results` with ``hansen_j`` and the ``fit`` for
+        :func:`check_orthogonality`.
+
+    Notes
+    -----
+    The corrected moment is :math:`\\psi = m + \\sum_\\gamma \\alpha_\\gamma(Z)(Y - \\gamma(Z))`
+    with Riesz weights found automatically (Chernozhukov, Newey & Singh 2022). The estimate
+    is two-step GMM on :math:`\\sum\\psi` (see :mod:`orthoccp.custom._gmm`) with
+    :math:`\\hat V = c\\,(AG)^{-1}A\\hat\\Omega A'(AG)^{-1\\prime}`, :math:`A = G'W`,
+    :math:`G = \\sum_t \\partial m_t/\\partial\\theta'`, :math:`\\hat\\Omega = \\sum_i s_i s_i'`.
+
+    References
+    ----------
+    Chernozhukov, Newey & Singh (2022) Econometrica 90; Chernozhukov, Escanciano, Ichimura,
+    Newey & Robins (2022) Econometrica 90; Hansen (1982) Econometrica 50.
+    """
+    t_start = time.perf_counter()
+    if not isinstance(panel, Panel):
+        raise InputError(
+            f"panel must be an orthoccp.Panel, got {type(panel).__name__}; wrap the DataFrame "
+            f"with Panel(df, unit=..., period=..., choice=..., states=[...])."
+        )
+    specs = _check_nuisances(nuisances)
+    theta0 = _check_options(folds, seed, clip, parameters, start)
+    check_method(riesz, penalty, next_weights)
+    check_cov_name(cov)
+    for name, flag in (("debias", debias), ("small_sample", small_sample)):
+        if not isinstance(flag, (bool, np.bool_)):
+            raise InputError(f"{name} must be True or False, got {flag!r}.")
+    if isinstance(riesz_updates, bool) or not isinstance(riesz_updates, (int, np.integer)) or riesz_updates < 1:
+        raise InputError(f"riesz_updates must be a positive integer, got {riesz_updates!r}.")
+    rows = Rows(panel)
+    mfun = MomentFunction(moment, rows)
+    designs = [bind_nuisance(s, panel, rows) for s in specs]
+    rng = np.random.default_rng(seed)
+    fold_of_row = unit_folds(panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys)
+    t0 = time.perf_counter()
+    fitted = crossfit(designs, rows, fold_of_row, panel.canonical_order, rng, clip=float(clip))
+    timings = {"first_stage_s": time.perf_counter() - t0}
+    n_fits = sum(f.n_fits for f in fitted)
+    nu: dict[str, np.ndarray] = {}
+    for f in fitted:
+        nu.update(f.values)
+
+    first = mfun.raw(theta0, nu)
+    use = np.all(np.isfinite(first), axis=1)
+    k, p = first.shape[1], theta0.size
+    if k < p:
+        raise InputError(
+            f"the moment has {k} component(s) for {p} parameters; GMM needs at least as many "
+            f"moments as parameters."
+        )
+    if not use.any():
+        raise InputError("the moment is NaN on every row at the start; no row can be a moment row.")
+    mfun.use = use
+    units = panel.unit_codes if cov == "clustered" else np.arange(panel.n_rows)
+    n_g = int(units.max()) + 1
+    if n_g < 2:
+        raise InputError("the covariance needs at least two clusters (units).")
+
+    def system(extra: np.ndarray) -> tuple[Callable[[np.ndarray], np.ndarray], Callable[[np.ndarray], np.ndarray]]:
+        def sums(th: np.ndarray) -> np.ndarray:
+            return cluster_sums(mfun(th, nu) + extra, units, n_g)
+
+        def gbar(th: np.ndarray) -> np.ndarray:
+            return (mfun(th, nu) + extra).sum(axis=0) / n_g
+
+        return gbar, sums
+
+    t1 = time.perf_counter()
+    zero = np.zeros((rows.n_rows, k))
+    plug: GMMFit = two_step_gmm(*system(zero), theta0, what="plug-in GMM")
+    result = plug
+    riesz_fits: list[RieszFit] = []
+    phis: dict[str, np.ndarray] = {}
+    pair = _riesz_pair(riesz_learner) if (debias and riesz == "learner") else None
+    iterations = plug.iterations
+    if debias:
+        theta_cur = plug.theta
+        for _ in range(int(riesz_updates)):
+            riesz_fits, extra_fits = fit_corrections(
+                mfun, theta_cur, fitted, rows, fold_of_row, method=riesz,  # type: ignore[arg-type]
+                penalty=float(penalty), next_weights=next_weights,  # type: ignore[arg-type]
+                riesz_pair=pair, rng=rng, clip=float(clip),
+            )
+            n_fits += extra_fits
+            phis = correction_terms(fitted, riesz_fits, rows, nu)
+            result = two_step_gmm(*system(sum(phis.values(), zero)), theta_cur, what="debiased GMM")
+            iterations += result.iterations
+            theta_cur = result.theta
+    theta = result.theta
+    timings["second_stage_s"] = time.perf_counter() - t1
+
+    Gsum = numerical_jacobian(lambda th: mfun(th, nu).sum(axis=0), theta)
+    A = np.eye(p) if result.weight is None else Gsum.T @ result.weight
+    components = {"m": mfun(theta, nu) @ A.T}
+    components.update({f"phi_{name}": v @ A.T for name, v in phis.items()})
+    params = tuple(parameters)
+    ce = estimate_covariance(cov, jacobian=A @ Gsum, components=components, units=units,
+                             parameters=params, small_sample=bool(small_sample))
+    se = np.sqrt(np.diag(ce.cov))
+    if not np.all(np.isfinite(theta)) or not np.all(np.isfinite(se)):
+        raise InputError("estimation produced non-finite estimates or standard errors.")
+    corrected = np.zeros(rows.n_rows, dtype=bool)
+    for v in phis.values():
+        corrected |= np.any(v != 0, axis=1)
+    accounting = RowAccounting(
+        n_rows=rows.n_rows, n_moment_rows=int(use.sum()), n_corrected=int((corrected & use).sum()),
+        n_terminal=0, excluded={"moment not defined (NaN)": int((~use).sum())},
+        dropped=dict(panel.dropped_rows),
+    )
+    fit = MomentFit(rows, mfun, fitted, riesz_fits, fold_of_row, units, n_g, theta, params)
+    index = pd.Index(params, name="parameter")
+    timings["total_s"] = time.perf_counter() - t_start
+    hansen: HansenJ | NotApplicable = (
+        result.hansen if result.hansen is not None
+        else NotApplicable("the moment system is just-identified (as many moments as parameters)")
+    )
+    describe = "; ".join(f"{f.name}: {f.learner_name}" for f in fitted)
+    riesz_text = (
+        f"{riesz} Riesz regression (penalty {penalty:g}; dictionary sizes "
+        + ", ".join(f"{r.name} {r.n_terms}" for r in riesz_fits)
+        + f"), next-row values {next_weights}"
+        if riesz == "lasso" else f"learner-based Riesz fit ({riesz_learner}), next-row values {next_weights}"
+    )
+    return MomentResults(
+        params=pd.Series(theta, index=index, name="estimate"),
+        std_errors=pd.Series(se, index=index, name="std_error"),
+        cov=pd.DataFrame(ce.cov, index=index, columns=index),
+        debiased=bool(debias),
+        model={"kind": "user moments", "anchor": "-", "discount": "-", "n_moments": k,
+               "nuisances": [f.name for f in fitted], "riesz": riesz_text},
+        learner=describe, regressor="-", folds=int(folds), splits=1, scheme="plain",
+        seed=int(seed), clip=float(clip), cov_type=cov, small_sample=bool(small_sample),
+        n_units=panel.n_units, accounting=accounting,
+        clipped={f.name: f.clipped for f in fitted if f.design.spec.binary},
+        decomposition=ce.decomposition, influence=ce.influence,
+        influence_units=panel.unit_labels[ce.clusters] if cov == "clustered" else ce.clusters,
+        timings=timings, n_learner_fits=n_fits, iterations=iterations,
+        plugin_params=pd.Series(plug.theta, index=index, name="plug-in"),
+        nuisance_source="cross-fitted", moments="user", version=__version__,
+        hansen=hansen, fit=fit,
+    )
