@@ -146,7 +146,30 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
         names.append(col)
     if not blocks:
         return np.empty((len(frame), 0)), ()
-    return np.hstack(blocks), tuple(names)
+    # Column-major, so each state is one contiguous column that the frame can share
+    # (_share_state_columns); learners get row-major copies of their rows (backends.take_rows).
+    out = np.empty((len(frame), len(blocks)), order="F")
+    for i, block in enumerate(blocks):
+        out[:, i] = block[:, 0]
+    return out, tuple(names)
+
+
+def _share_state_columns(
+    frame: pd.DataFrame, features: np.ndarray, names: tuple[str, ...]
+) -> pd.DataFrame:
+    """The frame with its float64 state columns replaced by views of the feature matrix.
+
+    The values are the same, so the states are held once instead of twice. Copy-on-write keeps
+    a later change to the frame from reaching the features.
+    """
+    if len(set(names)) < len(names):  # a column named like an indicator ("c=1"): keep copies
+        return frame
+    position = {name: i for i, name in enumerate(names)}
+    shared = [c for c in frame.columns if c in position and frame[c].dtype == np.float64]
+    if not shared:
+        return frame
+    columns = {c: features[:, position[c]] if c in shared else frame[c] for c in frame.columns}
+    return pd.DataFrame(columns, index=frame.index, copy=False)
 
 
 def _check_periods(per: pd.Series, period: str) -> np.ndarray:
@@ -367,6 +390,8 @@ class Panel:
 
         features, feature_names = _state_matrix(sorted_frame, states)
         unit_keys = _unit_keys(sorted_frame[[period, choice, *states]], unit_codes, periods)
+        if sorted_frame.columns.is_unique:
+            sorted_frame = _share_state_columns(sorted_frame, features, feature_names)
 
         object.__setattr__(self, "frame", sorted_frame)
         object.__setattr__(self, "unit", unit)

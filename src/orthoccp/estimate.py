@@ -17,6 +17,7 @@ from .data import Panel
 from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
 from .guards import dominant_units
+from .backends import FeatureRows, resolve_backend
 from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
 from .model import BoundModel, Model
@@ -122,6 +123,8 @@ def estimate(
     small_sample: bool = True,
     moments: str | None = None,
     nuisances: Nuisances | None = None,
+    backend: Any = None,
+    n_jobs: int | None = None,
 ) -> Results:
     """Estimate a dynamic discrete choice model by cross-fitted, orthogonal CCP moments.
 
@@ -163,6 +166,15 @@ def estimate(
         persistent states, ``"standard"`` otherwise.
     nuisances : Nuisances, optional
         Known nuisance values (e.g. the simulator's exact ones) instead of cross-fitting.
+    backend : {"sequential", "joblib", "dask"}, distributed.Client or str, optional
+        Where the cross-fitting's learner fits run: in this process, in ``n_jobs`` joblib
+        worker processes, or on a Dask cluster (a ``distributed.Client``, a scheduler address
+        such as ``"tcp://10.0.0.5:8786"``, or ``"dask"`` for the session's client). Default:
+        ``"joblib"`` when ``n_jobs`` > 1, else ``"sequential"``. The estimates are identical
+        on every backend; see ``docs/scaling.md``.
+    n_jobs : int, optional
+        Worker processes for ``backend="joblib"`` (-1: one per core). Learners inside the
+        workers are capped at cores // n_jobs threads.
 
     Returns
     -------
@@ -196,6 +208,7 @@ def estimate(
     _check_options(folds, splits, clip, seed)
     _check_flags(debias=debias, small_sample=small_sample)
     check_cov_name(cov)
+    runner = resolve_backend(backend, n_jobs)
     if scheme not in ("plain", "nested"):
         raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
     if scheme == "nested" and folds < 3:
@@ -247,7 +260,7 @@ def estimate(
             fold_of_row = unit_folds(panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys)
             nuis = crossfit_nuisances(
                 bound, pair, fold_of_row, rng, scheme=scheme, clip=float(clip),  # type: ignore[arg-type]
-                anchor_features=fcols,
+                anchor_features=fcols, backend=runner,
             )
         timings["first_stage_s"] += time.perf_counter() - t0
         n_fits += nuis.n_fits
@@ -280,7 +293,8 @@ def estimate(
                 panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys
             )
             system = renewal_robust_system(
-                system, theta0, panel.features[rows][:, fcols], row_folds[rows], plan, pair, rng
+                system, theta0, FeatureRows(panel.features, rows, fcols), row_folds[rows], plan,
+                pair, rng, backend=runner,
             )
             n_fits += int(folds) * int(plan.robust.sum())
         if debias and not static:
@@ -332,6 +346,8 @@ def estimate(
             stacklevel=2,
         )
 
+    timings["learner_fit_s"] = runner.tally.fit_s
+    timings["learner_predict_s"] = runner.tally.predict_s
     timings["total_s"] = time.perf_counter() - t_start
     index = pd.Index(params, name="parameter")
     if static:

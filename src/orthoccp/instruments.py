@@ -22,14 +22,16 @@ the same just-identified system.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass, replace
 
 import numpy as np
 
-from ._errors import InputError
+from .backends import Backend, FeatureRows, resolve_backend
 from .learners import LearnerPair
 from .model import CONSTANT, BoundModel
 from .moments import MomentSystem
+from .nuisance import FoldFit, fit_predict, learner_dtype
 
 __all__ = ["RobustPlan", "plan_robust", "renewal_robust_system", "persistent_feature_columns"]
 
@@ -89,21 +91,16 @@ def plan_robust(bound: BoundModel) -> RobustPlan:
     return RobustPlan(robust=robust, reasons=reasons)
 
 
-def _fit_weighted(est: object, X: np.ndarray, y: np.ndarray, w: np.ndarray) -> None:
-    """Fit with sample weights; for a pipeline, route them to its last step."""
-    steps = getattr(est, "steps", None)
-    key = f"{steps[-1][0]}__sample_weight" if steps else "sample_weight"
-    est.fit(X, y, **{key: w})  # type: ignore[attr-defined]
-
-
 def renewal_robust_system(
     system: MomentSystem,
     theta_prelim: np.ndarray,
-    f: np.ndarray,
+    f: np.ndarray | FeatureRows,
     folds: np.ndarray,
     plan: RobustPlan,
     pair: LearnerPair,
     rng: np.random.Generator,
+    *,
+    backend: Backend | None = None,
 ) -> MomentSystem:
     """The moment system with residualised instruments for the robust parameters.
 
@@ -113,11 +110,18 @@ def renewal_robust_system(
         The standard system (instruments X) at the moment rows.
     theta_prelim : numpy.ndarray
         Preliminary estimate (the plug-in solution) at which the weights are evaluated.
-    f : numpy.ndarray
-        (n_moment_rows, q) persistent-state features of the moment rows.
+    f : numpy.ndarray or FeatureRows
+        (n_moment_rows, q) persistent-state features of the moment rows, or the same named
+        by index arrays into the panel's feature matrix
+        (``FeatureRows(panel.features, rows, persistent_columns)``), which avoids a copy.
     folds : numpy.ndarray
         Fold of each moment row (the nuisances' folds).
+    backend : Backend, optional
+        Where the K fits per robust parameter run (:func:`orthoccp.backends.resolve_backend`);
+        sequential by default. The numbers do not depend on it.
     """
+    view = f if isinstance(f, FeatureRows) else FeatureRows(np.asarray(f))
+    backend = backend if backend is not None else resolve_backend("sequential")
     R = system.anchor
     lam = system.probabilities(theta_prelim)
     n, J, p = system.X.shape
@@ -125,25 +129,27 @@ def renewal_robust_system(
     weight = lam[:, others] * lam[:, R : R + 1]  # (n, J-1)
     K = int(folds.max()) + 1
     A = system.X.copy()
-    # Stack (row, choice) pairs for the weighted regression.
-    F_stack = np.repeat(f, others.size, axis=0)
+    # (row, choice) pairs for the weighted regression, named by their moment row.
+    row_stack = np.repeat(np.arange(n), others.size)
     w_stack = weight.reshape(-1)
     fold_stack = np.repeat(folds, others.size)
-    for k in np.flatnonzero(plan.robust):
-        y_stack = system.X[:, others, k].reshape(-1)
-        c = np.empty(n)
-        for fold in range(K):
-            train = fold_stack != fold
-            pred = folds == fold
-            est = pair.new_regressor(rng)
-            try:
-                _fit_weighted(est, F_stack[train], y_stack[train], w_stack[train])
-            except (TypeError, ValueError) as exc:
-                raise InputError(
-                    f"regressor {type(est).__name__} does not accept sample_weight, which the "
-                    f"renewal-robust moments need; use a registry regressor or moments='standard'."
-                ) from exc
-            c[pred] = np.asarray(est.predict(f[pred]), dtype=np.float64).reshape(-1)
-        A[:, others, k] = system.X[:, others, k] - c[:, None]
+    dtype = learner_dtype(pair.regressor)
+    jobs = [(k, fold, pair.new_regressor(rng)) for k in np.flatnonzero(plan.robust) for fold in range(K)]
+
+    def tasks() -> Iterator[FoldFit]:
+        for k, fold, est in jobs:
+            train = np.flatnonzero(fold_stack != fold)
+            y = system.X[:, others, k].reshape(-1)[train]
+            pred = view.base_rows(np.flatnonzero(folds == fold))
+            yield FoldFit(est, view.base_rows(row_stack[train]), pred, y, view.cols, dtype,
+                          f"the renewal-robust projection, fold {fold}", fold,
+                          weight=w_stack[train])
+
+    c = np.empty(n)
+    with backend.session(view.base, dtype=dtype) as session:
+        for (k, fold, _), pred in zip(jobs, session.map(fit_predict, tasks())):
+            c[folds == fold] = pred
+            if fold == K - 1:
+                A[:, others, k] = system.X[:, others, k] - c[:, None]
     A[:, R, :] = 0.0
     return replace(system, instruments=A, anchor_branch=~plan.robust)

@@ -22,15 +22,25 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field
+from collections.abc import Iterator
 from typing import Any, Literal
 
 import numpy as np
 
 from ._errors import InputError
+from .backends import Backend, limit_threads, resolve_backend, take_rows
 from .learners import LearnerPair, checked_proba
 from .model import BoundModel
 
-__all__ = ["Nuisances", "crossfit_nuisances", "nuisances_from_truth", "clip_probabilities"]
+__all__ = [
+    "FoldFit",
+    "Nuisances",
+    "clip_probabilities",
+    "crossfit_nuisances",
+    "fit_predict",
+    "learner_dtype",
+    "nuisances_from_truth",
+]
 
 Scheme = Literal["plain", "nested"]
 
@@ -51,7 +61,8 @@ class Nuisances:
     n_fits : int
         Learner fits performed.
     timings : dict
-        Seconds spent in the CCP and continuation fits.
+        Seconds spent in the classifier fits (``ccp_s``: the K fold fits and the nested
+        scheme's pair fits) and the continuation regressions (``continuation_s``).
     folds : numpy.ndarray or None
         Fold of each row (None for externally supplied nuisances).
     """
@@ -76,17 +87,108 @@ def clip_probabilities(P: np.ndarray, eps: float) -> tuple[np.ndarray, np.ndarra
     return Q, hit
 
 
-def _fit_classifier(
-    pair: LearnerPair,
-    X: np.ndarray,
-    codes: np.ndarray,
-    train: np.ndarray,
-    J: int,
-    rng: np.random.Generator,
-    fold_label: str,
-    choices: tuple[Any, ...],
-) -> Any:
-    present = np.bincount(codes[train], minlength=J)
+def learner_dtype(*templates: Any) -> type:
+    """Feature dtype for the learners: float32 when every template is a tree ensemble.
+
+    Tree learners only compare a feature with split thresholds. scikit-learn's trees and
+    forests convert their input to float32 themselves, so for them float32 changes nothing.
+    LightGBM bins each feature into at most ``max_bin`` (255) intervals between observed
+    values; rounding to float32 (relative error below 6e-8) moves those boundaries by as
+    much and can only merge values that differ by less, so the fit sees the same ordering of
+    the data up to such near-ties. Any other learner (linear models, user objects whose
+    arithmetic may depend on the dtype) gets float64.
+    """
+    for est in templates:
+        steps = getattr(est, "steps", None)
+        last = steps[-1][1] if steps else est
+        module = type(last).__module__
+        if not (module.startswith("lightgbm") or module.startswith("sklearn.ensemble._forest")
+                or module.startswith("sklearn.tree")):
+            return np.float64
+    return np.float32
+
+
+@dataclass(frozen=True, eq=False)
+class FoldFit:
+    """One learner fit on rows of the shared feature matrix and its out-of-fold predictions.
+
+    Attributes
+    ----------
+    est : estimator
+        A seeded, unfitted clone.
+    train, predict : numpy.ndarray
+        Row positions (in the shared matrix) to fit on, in this order, and to predict at.
+    y : numpy.ndarray
+        Target of each training row (choice codes for a classifier).
+    cols : numpy.ndarray or None
+        Feature columns used (all when None).
+    dtype : type
+        Feature dtype handed to the learner (:func:`learner_dtype`).
+    what : str
+        Names the fit in error messages.
+    fold : int
+        Fold predicted (for ``predict_proba`` messages).
+    n_classes : int
+        Choices J for a classifier (probabilities aligned through ``classes_``); 0 for a
+        regressor.
+    weight : numpy.ndarray or None
+        Sample weights of the training rows.
+    """
+
+    est: Any
+    train: np.ndarray
+    predict: np.ndarray
+    y: np.ndarray
+    cols: np.ndarray | None
+    dtype: type
+    what: str
+    fold: int = 0
+    n_classes: int = 0
+    weight: np.ndarray | None = None
+
+
+def fit_predict(shared: np.ndarray, task: FoldFit, threads: int | None) -> tuple[np.ndarray, float, float]:
+    """Run a :class:`FoldFit`: the predictions and the seconds in ``fit`` and in ``predict``.
+
+    This is the unit of work every backend runs (:mod:`orthoccp.backends`).
+    """
+    est = limit_threads(task.est, threads)
+    X_train = take_rows(shared, task.train, task.cols, task.dtype)
+    t0 = time.perf_counter()
+    if task.weight is None:
+        est.fit(X_train, task.y)
+    else:
+        _fit_weighted(est, X_train, task.y, task.weight)
+    fit_s = time.perf_counter() - t0
+    del X_train
+    X_pred = take_rows(shared, task.predict, task.cols, task.dtype)
+    t1 = time.perf_counter()
+    if task.n_classes:
+        out = checked_proba(est, X_pred, task.n_classes, task.fold)
+    else:
+        out = np.asarray(est.predict(X_pred), dtype=np.float64).reshape(-1)
+        if out.shape[0] != task.predict.size or not np.all(np.isfinite(out)):
+            raise InputError(
+                f"regressor {type(est).__name__}.predict returned a bad result for {task.what} "
+                f"(shape {out.shape}, finite={bool(np.all(np.isfinite(out)))})."
+            )
+    return out, fit_s, time.perf_counter() - t1
+
+
+def _fit_weighted(est: Any, X: np.ndarray, y: np.ndarray, w: np.ndarray) -> None:
+    """Fit with sample weights; for a pipeline, route them to its last step."""
+    steps = getattr(est, "steps", None)
+    key = f"{steps[-1][0]}__sample_weight" if steps else "sample_weight"
+    try:
+        est.fit(X, y, **{key: w})
+    except (TypeError, ValueError) as exc:
+        raise InputError(
+            f"regressor {type(est).__name__} does not accept sample_weight, which the "
+            f"renewal-robust moments need; use a registry regressor or moments='standard'."
+        ) from exc
+
+
+def _check_choices(present: np.ndarray, fold_label: str, choices: tuple[Any, ...]) -> None:
     if (present == 0).any():
         missing = [choices[j] for j in np.flatnonzero(present == 0)]
         raise InputError(
@@ -94,34 +196,14 @@ def _fit_classifier(
             f"{fold_label}; every choice must be observed outside each fold. Use fewer folds "
             f"or more units."
         )
-    est = pair.new_classifier(rng)
-    est.fit(X[train], codes[train])
-    return est
 
 
-def _fit_predict_regression(
-    pair: LearnerPair,
-    X: np.ndarray,
-    y: np.ndarray,
-    train: np.ndarray,
-    predict: np.ndarray,
-    rng: np.random.Generator,
-    what: str,
-) -> np.ndarray:
-    if train.size < 2:
+def _check_regression_rows(n_train: int, what: str) -> None:
+    if n_train < 2:
         raise InputError(
-            f"only {train.size} training row(s) for the continuation regression of {what}; the "
+            f"only {n_train} training row(s) for the continuation regression of {what}; the "
             f"choice is too rare for cross-fitting. Use fewer folds or more units."
         )
-    est = pair.new_regressor(rng)
-    est.fit(X[train], y[train])
-    out = np.asarray(est.predict(X[predict]), dtype=np.float64).reshape(-1)
-    if out.shape[0] != predict.size or not np.all(np.isfinite(out)):
-        raise InputError(
-            f"regressor {type(est).__name__}.predict returned a bad result for {what} "
-            f"(shape {out.shape}, finite={bool(np.all(np.isfinite(out)))})."
-        )
-    return out
 
 
 def crossfit_nuisances(
@@ -133,6 +215,7 @@ def crossfit_nuisances(
     scheme: Scheme = "nested",
     clip: float = 1e-4,
     anchor_features: np.ndarray | None = None,
+    backend: Backend | None = None,
 ) -> Nuisances:
     """Out-of-fold CCPs and continuation expectations for every row.
 
@@ -145,7 +228,7 @@ def crossfit_nuisances(
     folds : numpy.ndarray
         Fold per row (all rows of a unit in one fold).
     rng : numpy.random.Generator
-        Seeds every learner, in a fixed order.
+        Seeds every learner, in a fixed order, before any fit runs.
     scheme : {"plain", "nested"}, default="nested"
         How the ln P_R target of the continuation regressions is built (module docstring).
     clip : float, default=1e-4
@@ -153,9 +236,20 @@ def crossfit_nuisances(
     anchor_features : numpy.ndarray, optional
         Feature columns (the persistent states) for the anchor's continuation regression of a
         renewal model: after a renewal the next state depends on them only (METHOD §4b).
+    backend : Backend, optional
+        Where the fits run (:func:`orthoccp.backends.resolve_backend`); sequential by default.
+        The numbers do not depend on it.
+
+    Notes
+    -----
+    The fits run in two rounds of independent tasks: every classifier (the K fold fits and,
+    for ``scheme="nested"``, the K(K-1)/2 pair fits), then every continuation regression.
+    Tasks name their rows by index arrays into the one feature matrix
+    (``Panel.features``), which is never copied per fold.
     """
     if scheme not in ("plain", "nested"):
         raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
+    backend = backend if backend is not None else resolve_backend("sequential")
     panel = bound.panel
     X = panel.features
     codes = panel.choice_codes
@@ -163,86 +257,102 @@ def crossfit_nuisances(
     R = bound.anchor_index
     n = panel.n_rows
     K = int(folds.max()) + 1
-    canon = panel.canonical_order
+    index = np.int32 if n < 2**31 else np.int64
+    canon = panel.canonical_order.astype(index)
 
     def rows_where(mask: np.ndarray) -> np.ndarray:
         # Training rows in canonical order (label-free), so fits do not depend on unit labels.
         return canon[mask[canon]]
 
-    fold_rows = [np.flatnonzero(folds == k) for k in range(K)]
-    n_fits = 0
+    fold_rows = [np.flatnonzero(folds == k).astype(index) for k in range(K)]
+    counts = np.bincount(folds * J + codes, minlength=K * J).reshape(K, J)
+    nested = scheme == "nested" and bound.has_next_stage
+    pairs = [(k, l) for k in range(K) for l in range(k + 1, K)] if nested else []
+    dtype = learner_dtype(pair.classifier, pair.regressor)
 
-    t0 = time.perf_counter()
-    raw = np.empty((n, J))
+    # Every check and every seed before any fit, in the order of the sequential loops.
+    clf_jobs: list[tuple[tuple[int, ...], Any, str]] = []
     for k in range(K):
-        train = rows_where(folds != k)
-        est = _fit_classifier(pair, X, codes, train, J, rng, f"fold {k}", panel.choices)
-        raw[fold_rows[k]] = checked_proba(est, X[fold_rows[k]], J, k)
-        n_fits += 1
-    ccp, hit = clip_probabilities(raw, clip)
-    clipped = {panel.choices[j]: int(hit[:, j].sum()) for j in range(J)}
-    t_ccp = time.perf_counter() - t0
+        _check_choices(counts.sum(axis=0) - counts[k], f"fold {k}", panel.choices)
+        clf_jobs.append(((k,), pair.new_classifier(rng), f"fold {k}"))
+    for k, l in pairs:
+        label = f"folds outside {{{k}, {l}}}"
+        _check_choices(counts.sum(axis=0) - counts[k] - counts[l], label, panel.choices)
+        clf_jobs.append(((k, l), pair.new_classifier(rng), label))
 
-    d = bound.n_targets
-    mu = np.full((n, J, d), np.nan)
-    if not bound.has_next_stage:
-        return Nuisances(ccp=ccp, mu=mu, clipped=clipped, n_fits=n_fits,
-                         timings={"ccp_s": t_ccp, "continuation_s": 0.0}, folds=folds,
-                         clipped_rows=np.asarray(hit.any(axis=1)))
+    def classifier_tasks() -> Iterator[FoldFit]:
+        for held_out, est, label in clf_jobs:
+            outside = np.isin(folds, held_out, invert=True)
+            train = rows_where(outside)
+            rows = np.concatenate([fold_rows[f] for f in held_out])
+            yield FoldFit(est, train, rows, codes[train], None, dtype, label, held_out[0], J)
 
-    t1 = time.perf_counter()
-    nxt = panel.next_row
-    linked = nxt >= 0
-    zR_data = bound.next_targets_data()
-    # Realised data targets at the next row (the z_R columns do not depend on the CCP).
-    q_data = np.full((n, d - 1), np.nan)
-    q_data[linked] = zR_data[nxt[linked]]
-    ell_plain = np.full(n, np.nan)
-    ell_plain[linked] = np.log(ccp[nxt[linked], R])
-
-    nested_ell: dict[tuple[int, int], np.ndarray] = {}
-    if scheme == "nested":
+    with backend.session(X, dtype=dtype) as session:
+        t0 = time.perf_counter()
+        probas = session.map(fit_predict, classifier_tasks())
+        raw = np.empty((n, J))
         for k in range(K):
-            for l in range(k + 1, K):
-                train = rows_where((folds != k) & (folds != l))
-                est = _fit_classifier(
-                    pair, X, codes, train, J, rng, f"folds outside {{{k}, {l}}}", panel.choices
-                )
+            raw[fold_rows[k]] = next(probas)
+        ccp, hit = clip_probabilities(raw, clip)
+        del raw
+        clipped = {panel.choices[j]: int(hit[:, j].sum()) for j in range(J)}
+        n_fits = len(clf_jobs)
+
+        d = bound.n_targets
+        mu = np.full((n, J, d), np.nan)
+        nxt = panel.next_row
+        linked = nxt >= 0
+        if nested:
+            # targets[k]: the ln P_R target of the regressions that predict fold k, at the
+            # linked rows of every other fold l, from the CCP fitted outside {k, l}.
+            targets = np.full((K, n), np.nan)
+            scratch = np.empty(n)
+            for k, l in pairs:
+                P, _ = clip_probabilities(next(probas), clip)
                 rows = np.concatenate([fold_rows[k], fold_rows[l]])
-                P, _ = clip_probabilities(checked_proba(est, X[rows], J, k), clip)
-                full = np.full(n, np.nan)
-                full[rows] = np.log(P[:, R])
-                ell = np.full(n, np.nan)
-                ok = linked & ((folds == k) | (folds == l))
-                ell[ok] = full[nxt[ok]]
-                nested_ell[(k, l)] = ell
-                n_fits += 1
+                scratch[rows] = np.log(P[:, R])
+                for target_of, source in ((k, l), (l, k)):
+                    ok = fold_rows[source][linked[fold_rows[source]]]
+                    targets[target_of, ok] = scratch[nxt[ok]]
+        t_ccp = time.perf_counter() - t0
+        if not bound.has_next_stage:
+            return Nuisances(ccp=ccp, mu=mu, clipped=clipped, n_fits=n_fits,
+                             timings={"ccp_s": t_ccp, "continuation_s": 0.0}, folds=folds,
+                             clipped_rows=np.asarray(hit.any(axis=1)))
 
-    for j in bound.continuation_choices():
-        Xj = X[:, anchor_features] if (anchor_features is not None and j == R) else X
-        rows_j = linked & (codes == j)
-        for k in range(K):
-            train = rows_where(rows_j & (folds != k))
-            pred = fold_rows[k]
-            label = f"choice {panel.choices[j]!r}, fold {k}"
-            for c in range(d - 1):
-                mu[pred, j, c] = _fit_predict_regression(
-                    pair, Xj, q_data[:, c], train, pred, rng, label
-                )
-                n_fits += 1
-            if scheme == "plain":
-                target = ell_plain
-            else:
-                target = np.full(n, np.nan)
-                for l in range(K):
-                    if l == k:
-                        continue
-                    key = (min(k, l), max(k, l))
-                    in_l = folds == l
-                    target[in_l] = nested_ell[key][in_l]
-            mu[pred, j, d - 1] = _fit_predict_regression(pair, Xj, target, train, pred, rng, label)
-            n_fits += 1
-    t_cont = time.perf_counter() - t1
+        t1 = time.perf_counter()
+        zR_data = bound.next_targets_data()
+        # Realised data targets at the next row (the z_R columns do not depend on the CCP).
+        q_data = np.full((n, d - 1), np.nan)
+        q_data[linked] = zR_data[nxt[linked]]
+        if not nested:
+            targets = np.full((1, n), np.nan)
+            targets[0, linked] = np.log(ccp[nxt[linked], R])
+
+        reg_jobs: list[tuple[int, int, int, Any, str]] = []  # (choice, fold, target, est, label)
+        for j in bound.continuation_choices():
+            rows_j = linked & (codes == j)
+            per_fold = np.bincount(folds[rows_j], minlength=K)
+            for k in range(K):
+                label = f"choice {panel.choices[j]!r}, fold {k}"
+                _check_regression_rows(int(rows_j.sum() - per_fold[k]), label)
+                for c in range(d):
+                    reg_jobs.append((j, k, c, pair.new_regressor(rng), label))
+
+        def regression_tasks() -> Iterator[FoldFit]:
+            for j, k, c, est, label in reg_jobs:
+                cols = anchor_features if (anchor_features is not None and j == R) else None
+                train = rows_where(linked & (codes == j) & (folds != k))
+                if c < d - 1:
+                    y = q_data[train, c]
+                else:
+                    y = targets[k if nested else 0, train]
+                yield FoldFit(est, train, fold_rows[k], y, cols, dtype, label, k)
+
+        for (j, k, c, _, _), pred in zip(reg_jobs, session.map(fit_predict, regression_tasks())):
+            mu[fold_rows[k], j, c] = pred
+        n_fits += len(reg_jobs)
+        t_cont = time.perf_counter() - t1
     return Nuisances(
         ccp=ccp,
         mu=mu,

@@ -1,0 +1,391 @@
+"""The reference pages in ``docs/`` say what the code does, so they cannot drift.
+
+Each check reads a page and compares it with the code or the benchmark files it describes:
+
+* the spec-key tables of ``docs/cli.md`` against the key lists of :mod:`orthoccp.spec`, the
+  defaults of :func:`orthoccp.estimate` and :func:`orthoccp.estimate_discrete`, and the spec
+  reader (every example line must parse);
+* the command tables of ``docs/cli.md`` against :func:`orthoccp.cli.build_parser`;
+* the learner table of ``docs/learners.md`` against the learner registry;
+* the API page against ``orthoccp.__all__``, and the toctree against the pages on disk;
+* every ``orthoccp.<name>`` and ``--option`` mentioned on any page against the package;
+* the numbers of ``docs/validation.md`` against ``benchmarks/results/*.json``, rounded as
+  printed (the reference is the JSON each table names).
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import inspect
+import json
+import re
+import sys
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+import orthoccp
+from orthoccp import spec as spec_module
+from orthoccp.cli import build_parser
+from orthoccp.learners import _REGISTRY
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - Python 3.10 only
+    import tomli as tomllib
+
+ROOT = Path(__file__).resolve().parent.parent
+DOCS = ROOT / "docs"
+RESULTS = ROOT / "benchmarks" / "results"
+
+
+def _page(name: str) -> str:
+    return (DOCS / name).read_text(encoding="utf-8")
+
+
+def _section(text: str, heading: str) -> str:
+    """The text under a Markdown heading (exact heading line), up to the next heading of the
+    same or a higher level."""
+    lines = text.splitlines()
+    level = len(heading) - len(heading.lstrip("#"))
+    try:
+        start = next(i for i, line in enumerate(lines) if line.strip() == heading)
+    except StopIteration:
+        raise AssertionError(f"heading {heading!r} not found") from None
+    out = []
+    for line in lines[start + 1:]:
+        m = re.match(r"^(#+)\s", line)
+        if m and len(m.group(1)) <= level:
+            break
+        out.append(line)
+    return "\n".join(out)
+
+
+def _tables(text: str) -> list[list[dict[str, str]]]:
+    """The Markdown tables of ``text``: one list of {header: cell} per table."""
+    tables: list[list[dict[str, str]]] = []
+    block: list[str] = []
+    for line in [*text.splitlines(), ""]:
+        if line.startswith("|"):
+            block.append(line)
+            continue
+        if len(block) >= 2:
+            split = [[c.strip() for c in re.split(r"(?<!\\)\|", row.strip())[1:-1]] for row in block]
+            header: list[str] = []
+            rows = split[2:]
+            for h in split[0]:  # repeated headers ("SD" per parameter) made unique
+                n = len([x for x in header if x == h or x.startswith(f"{h} #")])
+                header.append(h if n == 0 else f"{h} #{n + 1}")
+            tables.append([dict(zip(header, row)) for row in rows])
+        block = []
+    return tables
+
+
+def _code(cell: str) -> list[str]:
+    return re.findall(r"`([^`]+)`", cell)
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return f'"{value}"'
+    if isinstance(value, (tuple, list)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    if isinstance(value, float):
+        return repr(value)
+    return str(value)
+
+
+# --------------------------------------------------------------------------- spec keys
+SPEC_TABLES = {
+    "data": spec_module._DATA_KEYS,
+    "model": spec_module._MODEL_KEYS,
+    "first_stage": spec_module._FIRST_STAGE_KEYS,
+    "inference": spec_module._INFERENCE_KEYS,
+    "estimator": spec_module._ESTIMATOR_KEYS,
+}
+BASE_SPEC: dict[str, dict[str, Any]] = {
+    "data": {"unit": "bike", "period": "week", "choice": "action", "states": ["wear", "x0"]},
+    "model": {"kind": "renewal", "anchor": "swap", "discount": 0.95},
+    "utility": {"keep": {"wear_cost": "wear_scaled"}, "swap": {"swap_cost": "1"}},
+}
+
+
+def _spec_rows(table: str) -> dict[str, dict[str, str]]:
+    heading = "### [utility.\\<choice\\>]" if table == "utility" else f"### [{table}]"
+    (rows,) = _tables(_section(_page("cli.md"), heading))
+    return {(_code(r["key"]) or [r["key"]])[0]: r for r in rows}
+
+
+def test_every_spec_table_and_key_is_documented() -> None:
+    assert set(spec_module._TOP_KEYS) == {*SPEC_TABLES, "utility"}
+    for table, keys in SPEC_TABLES.items():
+        assert list(_spec_rows(table)) == list(keys), f"[{table}] keys differ from spec.py"
+    assert list(_spec_rows("utility")) == ["*parameter name*"]
+
+
+def test_spec_defaults_are_the_estimators_defaults() -> None:
+    # A key left out of [first_stage] / [inference] is not passed on, so the documented
+    # default must be the keyword default of orthoccp.estimate (or of estimate_discrete for
+    # the [estimator] options).
+    est = inspect.signature(orthoccp.estimate).parameters
+    disc = inspect.signature(orthoccp.estimate_discrete).parameters
+    checked = 0
+    for table, source in (("first_stage", est), ("inference", est), ("estimator", disc)):
+        for key, row in _spec_rows(table).items():
+            if key not in source or source[key].default in (None, inspect.Parameter.empty):
+                continue
+            default = source[key].default
+            assert _toml_value(default) in _code(row["default"]) or (
+                isinstance(default, float) and f"{default:g}" in _code(row["default"])
+            ), f"[{table}] {key}: documented {row['default']!r}, code default {default!r}"
+            checked += 1
+    assert checked >= 14
+    rows = _spec_rows("data")
+    assert _code(rows["missing"]["default"]) == ['"error"']
+    assert _code(_spec_rows("estimator")["method"]["default"]) == ['"orthogonal"']
+    assert _spec_rows("model")["discount"]["default"] == "required"
+
+
+def test_every_spec_example_line_is_accepted_by_the_reader() -> None:
+    for table in (*SPEC_TABLES, "utility"):
+        for key, row in _spec_rows(table).items():
+            (line,) = _code(row["example"])
+            doc = {k: {kk: (dict(vv) if isinstance(vv, dict) else vv) for kk, vv in v.items()}
+                   for k, v in BASE_SPEC.items()}
+            parsed = tomllib.loads(line)
+            if table == "utility":  # a parameter line of [utility.keep]
+                doc["utility"]["keep"] = parsed
+                assert spec_module.parse_spec(doc).parameters == (*parsed, "swap_cost")
+                continue
+            assert list(parsed) == [key], (table, line)
+            doc.setdefault(table, {}).update(parsed)
+            if table == "estimator" and key != "method":
+                doc["estimator"]["method"] = "npl"
+            spec_module.parse_spec(doc)
+
+
+# --------------------------------------------------------------------------- command line
+def _subparsers() -> dict[str, argparse.ArgumentParser]:
+    parser = build_parser()
+    (sub,) = [a for a in parser._actions if isinstance(a, argparse._SubParsersAction)]
+    return dict(sub.choices)
+
+
+def test_every_command_and_option_is_documented_with_its_default() -> None:
+    text = _page("cli.md")
+    for name, sub in _subparsers().items():
+        (rows,) = _tables(_section(text, f"## orthoccp {name}"))
+        documented = {_code(r["option"])[0].split()[0] if _code(r["option"]) else r["option"]: r
+                      for r in rows}
+        for action in sub._actions:
+            if isinstance(action, argparse._HelpAction) or action.dest == "debug":
+                continue
+            label = action.option_strings[0] if action.option_strings else action.metavar
+            assert label in documented, f"orthoccp {name}: {label} is not on the page"
+            default = action.default
+            if action.option_strings and isinstance(default, (int, float, str, tuple)) and not (
+                isinstance(default, bool)
+            ):
+                shown = ",".join(default) if isinstance(default, tuple) else str(default)
+                assert shown in _code(documented[label]["default"]), (
+                    f"orthoccp {name} {label}: documented default "
+                    f"{documented[label]['default']!r}, parser default {default!r}"
+                )
+        assert len(documented) == len(
+            [a for a in sub._actions if not isinstance(a, argparse._HelpAction) and a.dest != "debug"]
+        ), f"orthoccp {name}: the page lists options the parser does not have"
+
+
+def test_options_mentioned_anywhere_exist() -> None:
+    known = {"--help", "--version", "--debug"}
+    for sub in _subparsers().values():
+        for action in sub._actions:
+            known.update(action.option_strings)
+    for path in DOCS.glob("*.md"):
+        for span in re.findall(r"`([^`\n]+)`", path.read_text(encoding="utf-8")):
+            if not (span.startswith("orthoccp ") or span.startswith("--")):
+                continue  # other programs' options (python benchmarks/..., pip, pytest)
+            for flag in re.findall(r"(?<![\w-])(--[a-z][a-z-]*)", span):
+                assert flag in known, f"docs/{path.name} mentions {flag}, which no command has"
+
+
+# --------------------------------------------------------------------------- learners
+def test_learner_table_matches_the_registry() -> None:
+    (rows,) = _tables(_section(_page("learners.md"), "## The built-in learners"))
+    names = [_code(r["name"])[0] for r in rows]
+    assert names == list(orthoccp.learner_names())
+    described = {_code(r["name"])[0]: r["classifier"] for r in rows}
+    lgbm, _ = _REGISTRY["lightgbm"]()
+    p = lgbm.get_params()
+    assert (p["n_estimators"], p["learning_rate"], p["num_leaves"], p["min_child_samples"],
+            p["subsample"], p["colsample_bytree"]) == (200, 0.05, 15, 40, 0.8, 0.8)
+    assert "200 trees" in described["lightgbm"] and "15 leaves" in described["lightgbm"]
+    forest, _ = _REGISTRY["random_forest"]()
+    assert (forest.n_estimators, forest.min_samples_leaf, forest.max_features) == (200, 20, "sqrt")
+    assert "200 trees" in described["random_forest"] and "20 rows" in described["random_forest"]
+    logit, _ = _REGISTRY["logit"]()
+    assert logit[-1].C == 1e6 and "10⁶" in described["logit"]
+    lasso, _ = _REGISTRY["lasso_logit"]()
+    assert lasso[-1].C == 0.5 and "C = 0.5" in described["lasso_logit"]
+
+
+# --------------------------------------------------------------------------- API and pages
+def test_api_page_documents_every_public_name() -> None:
+    api = _page("api.rst")
+    targets = set(re.findall(r"^\.\. auto\w+:: (\S+)", api, flags=re.M))
+    for name in orthoccp.__all__:
+        if name == "__version__":
+            continue
+        if name == "discrete":
+            assert "orthoccp.discrete" in targets
+            continue
+        assert f"orthoccp.{name}" in targets, f"orthoccp.{name} is not on the API page"
+
+
+def test_toctree_lists_every_page() -> None:
+    index = _page("index.md")
+    (tree,) = re.findall(r"```\{toctree\}\n(.*?)```", index, flags=re.S)
+    entries = [ln.strip() for ln in tree.splitlines() if ln.strip() and not ln.startswith(":")]
+    pages = sorted(p.stem for p in DOCS.glob("*") if p.suffix in (".md", ".rst"))
+    assert sorted([*entries, "index"]) == pages
+    for entry in entries:
+        assert (DOCS / f"{entry}.md").exists() or (DOCS / f"{entry}.rst").exists()
+
+
+def _resolve(dotted: str) -> bool:
+    parts = dotted.split(".")
+    for i in range(len(parts), 0, -1):
+        try:
+            obj: Any = importlib.import_module(".".join(parts[:i]))
+        except ImportError:
+            continue
+        try:
+            for attr in parts[i:]:
+                obj = getattr(obj, attr)
+        except AttributeError:
+            return False
+        return True
+    return False
+
+
+def test_every_orthoccp_name_on_the_pages_exists() -> None:
+    # "No page describes a feature that does not exist": every dotted orthoccp name resolves.
+    seen = 0
+    for path in DOCS.glob("*.md"):
+        text = path.read_text(encoding="utf-8")
+        for dotted in set(re.findall(r"\borthoccp(?:\.[A-Za-z_]\w*)+", text)):
+            dotted = dotted.rstrip(".")
+            if dotted.endswith((".py", ".md", ".json", ".toml", ".csv", ".html")):
+                continue
+            assert _resolve(dotted), f"docs/{path.name} names {dotted}, which does not exist"
+            seen += 1
+    assert seen >= 20
+
+
+# --------------------------------------------------------------------------- validation numbers
+def _number(cell: str) -> float:
+    return float(cell.replace("−", "-").replace("+", "").replace("**", ""))
+
+
+def _decimals(cell: str) -> int:
+    return len(cell.split(".")[1]) if "." in cell else 0
+
+
+def _assert_printed(cell: str, value: float, where: str) -> None:
+    """The cell is ``value`` rounded to the decimals it shows."""
+    d = _decimals(cell)
+    assert _number(cell) == pytest.approx(round(value, d), abs=0.51 * 10**-d), (
+        f"{where}: page {cell!r}, JSON {value!r}"
+    )
+
+
+def _validation_table(heading: str, index: int = 0) -> list[dict[str, str]]:
+    return _tables(_section(_page("validation.md"), heading))[index]
+
+
+def _json(name: str) -> Any:
+    return json.loads((RESULTS / name).read_text(encoding="utf-8"))
+
+
+def test_headline_table_matches_its_json() -> None:
+    doc = _json("headline.json")
+    blocks = ("plug_in", "debiased", "debiased_renewal_robust")
+    for row in _validation_table("## The headline run"):
+        name = row["parameter"]
+        _assert_printed(row["truth"], doc["truth"][name], name)
+        cells = [v for k, v in row.items() if k not in ("parameter", "truth")]
+        for i, block in enumerate(blocks):
+            p = doc[block]["params"][name]
+            _assert_printed(cells[2 * i], p["estimate"], f"{name} {block}")
+            _assert_printed(cells[2 * i + 1], p["std_error"], f"{name} {block} s.e.")
+
+
+def _check_mc_rows(rows: list[dict[str, str]], summary: dict[str, Any], keys: dict[str, str],
+                   columns: list[tuple[str, str]]) -> None:
+    for row in rows:
+        label = next(iter(row.values()))
+        stats = summary[keys[label]]
+        cells = list(row.values())[1:]
+        assert len(cells) == len(columns), label
+        for cell, (param, stat) in zip(cells, columns):
+            _assert_printed(cell, stats[param][stat], f"{label} {param} {stat}")
+
+
+def test_monte_carlo_tables_match_their_json() -> None:
+    w, s = "wear_cost", "swap_cost"
+    _check_mc_rows(
+        _validation_table("### Plug-in against debiased, and the two cross-fitting schemes"),
+        _json("crossfit_schemes_ebike.json")["summary"],
+        {"oracle (exact nuisances)": "oracle", "plug-in, plain": "plug_in_plain",
+         "plug-in, nested": "plug_in_nested", "debiased, plain": "debiased_plain",
+         "debiased, nested": "debiased_nested"},
+        [(p, k) for p in (w, s) for k in ("bias", "sd", "mean_se", "coverage")],
+    )
+    _check_mc_rows(
+        _validation_table("### Standard against renewal-robust moments"),
+        _json("renewal_robust_ebike.json")["summary"],
+        {"standard": "standard", "renewal-robust": "renewal_robust"},
+        [(w, "bias"), (w, "sd"), (w, "mean_se"), (w, "rmse"), (w, "coverage"),
+         (s, "bias"), (s, "sd"), (s, "mean_se"), (s, "coverage")],
+    )
+    _check_mc_rows(
+        _validation_table("### Which Jacobian in the sandwich"),
+        _json("sandwich_jacobian.json")["summary"],
+        {"G = ∂Σm/∂θ (the default)": "G", "J = ∂Σψ/∂θ (finite differences)": "psi_jacobian",
+         "G, CCP correction left out": "no_phi_P"},
+        [(p, k) for p in (w, s) for k in ("sd", "mean_se", "coverage")],
+    )
+
+
+def test_discrete_tables_match_their_json() -> None:
+    summary = _json("discrete_reference.json")["summary"]
+    learners = {"cell frequencies": "cell", "logit on a cubic in mileage": "cubic_logit",
+                "LightGBM": "lightgbm"}
+    for row in _validation_table("### Discrete states, against the full-solution MLE"):
+        key = f"{learners[row['orthoccp first stage']]}_{row['estimator'].replace('-', '')}"
+        stats = summary[key]
+        assert int(row["failed solves"]) == stats["failures"], key
+        _assert_printed(row["RMSE / MLE's, RC"], stats["RC"]["rmse_ratio_to_nfxp"], key)
+        _assert_printed(row["RMSE / MLE's, θ11"], stats["theta11"]["rmse_ratio_to_nfxp"], key)
+
+    npl = _json("npl_reference.json")
+    names = {"full-solution MLE": "nfxp", "NPL (Aguirregabiria & Mira 2002)": "npl",
+             "one pseudo-likelihood step": "pml", "forward simulation, 200 paths": "forward"}
+    for row in _validation_table("### NPL and forward simulation", 0):
+        stats = npl["bus"]["summary"][names[row["estimator"]]]
+        _assert_printed(row["RMSE RC"], stats["RC"]["rmse"], row["estimator"])
+        _assert_printed(row["RMSE θ11"], stats["theta11"]["rmse"], row["estimator"])
+        _assert_printed(row["RMSE / MLE's, RC"], stats["RC"]["rmse_ratio_to_nfxp"], "ratio")
+        _assert_printed(row["RMSE / MLE's, θ11"], stats["theta11"]["rmse_ratio_to_nfxp"], "ratio")
+        _assert_printed(row["CPU s"], stats["median_cpu_seconds"], "cpu")
+        _assert_printed(row["speed-up against the MLE"], stats["speedup_vs_nfxp"], "speed-up")
+    inventory = {"NPL": "npl", "forward simulation, 1,000 paths": "forward"}
+    for row in _validation_table("### NPL and forward simulation", 1):
+        stats = npl["inventory"]["summary"][inventory[row["estimator"]]]
+        cells = list(row.values())[1:]
+        for cell, param in zip(cells, ("holding", "stockout", "cost_small", "cost_large")):
+            _assert_printed(cell, stats[param]["coverage_95"], f"{row['estimator']} {param}")
