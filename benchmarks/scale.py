@@ -5,8 +5,9 @@ see 50 states (``wear`` and ``x0..x48``); 20 weeks per bike, so the rows are 20 
 LightGBM (the registry defaults), 5 folds, the default nested scheme and renewal-robust
 moments, sequential backend. Each size runs in two fresh processes: one simulates the panel
 and writes it to Parquet; the other reads the columns it needs through pyarrow
-(:func:`orthoccp.loading.read_panel`), wraps the panel and estimates, so its peak memory holds
-nothing but the estimation.
+(:func:`orthoccp.loading.read_columns`, then :class:`~orthoccp.Panel`, as
+:func:`orthoccp.loading.read_panel` does), wraps the panel and estimates, so its peak memory
+holds nothing but the estimation.
 
 Measured per size:
 
@@ -102,7 +103,7 @@ def fit(rows: int, path: Path) -> dict[str, Any]:
     import importlib
 
     import orthoccp as oc
-    from orthoccp.loading import read_columns
+    from orthoccp.loading import read_columns, release_arrow_memory
 
     est_module = importlib.import_module("orthoccp.estimate")  # the module, not the function
 
@@ -133,6 +134,7 @@ def fit(rows: int, path: Path) -> dict[str, Any]:
                      states=data["states"])
     t_panel = time.perf_counter() - t1
     del frame  # the panel holds the (already sorted, so not copied) frame
+    release_arrow_memory()  # as read_panel does: the state columns now live in the panel
     rss_panel = _status("VmRSS")
     peak_panel = _status("VmHWM")
     model = oc.Model(anchor=spec["model"]["anchor"], kind=spec["model"]["kind"],

@@ -244,3 +244,22 @@ def test_read_panel_reads_only_the_columns_it_needs(small_ebike, tmp_path, suffi
     assert "unused" not in panel.frame.columns
     with pytest.raises(oc.InputError, match=r"column\(s\) 'nope' are not in .*the file has: bike"):
         read_columns(path, ["bike", "nope"])
+
+
+def test_panel_holds_float_states_once(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    sim = small_ebike
+    panel = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice,
+                     states=list(sim.states))
+    # The float64 states of the frame are views of the feature matrix, not a second copy ...
+    assert np.shares_memory(panel.frame["x0"].to_numpy(), panel.features)
+    assert not np.shares_memory(panel.frame["wear"].to_numpy(), panel.features)  # int64: kept
+    pd.testing.assert_frame_equal(panel.frame, sim.data.reset_index(drop=True))
+    # ... so the matrix is read-only: an in-place edit of the frame copies the column or
+    # fails (depending on the pandas path), and never changes the features behind its back.
+    assert not panel.features.flags.writeable
+    before = panel.features[0, 1]
+    try:
+        panel.frame.loc[0, "x0"] = before + 1.0
+    except ValueError as exc:
+        assert "read-only" in str(exc)
+    assert panel.features[0, 1] == before

@@ -337,6 +337,17 @@ def _check_mc_rows(rows: list[dict[str, str]], summary: dict[str, Any], keys: di
 
 def test_monte_carlo_tables_match_their_json() -> None:
     w, s = "wear_cost", "swap_cost"
+    cell = _json("coverage.json")["cells"]["ebike|N=2000|lightgbm"]
+    assert cell["status"] == "finished" and cell["mc"]["reps"] == 200
+    by_estimator: dict[str, dict[str, Any]] = {}
+    for r in cell["mc"]["summary"]:
+        by_estimator.setdefault(r["estimator"], {})[r["parameter"]] = r
+    _check_mc_rows(
+        _validation_table("### The headline cell: 2,000 bikes, default options"), by_estimator,
+        {"plug-in (cross-fitted, uncorrected)": "naive",
+         "debiased (renewal-robust, the default)": "debiased", "oracle (exact nuisances)": "oracle"},
+        [(p, k) for p in (w, s) for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
+    )
     _check_mc_rows(
         _validation_table("### Plug-in against debiased, and the two cross-fitting schemes"),
         _json("crossfit_schemes_ebike.json")["summary"],

@@ -771,13 +771,16 @@ spec file (TOML):
   kind = "renewal"                 # or "terminal"
   anchor = "swap"
   discount = 0.95
+  persistent = ["x0", "x1"]        # optional: states a renewal does not reset
   [utility.keep]                   # one table per choice: parameter = column
   wear_cost = "wear_scaled"
   [utility.swap]
   swap_cost = "1"                  # "1" is a constant
   [first_stage]                    # optional: learner, regressor, folds, seed, splits,
   learner = "lightgbm"             #   scheme ("plain"/"nested"), clip
-  [inference]                      # optional: cov, small_sample, debias
+  [inference]                      # optional: cov, small_sample, debias,
+  moments = "renewal_robust"       #   moments ("renewal_robust"/"standard")
+  [estimator]                      # optional: method = "npl"/"pml" for discrete states
 """
 
 

@@ -159,8 +159,9 @@ def _share_state_columns(
 ) -> pd.DataFrame:
     """The frame with its float64 state columns replaced by views of the feature matrix.
 
-    The values are the same, so the states are held once instead of twice. Copy-on-write keeps
-    a later change to the frame from reaching the features.
+    The values are the same, so the states are held once instead of twice. The matrix is made
+    read-only, so an in-place edit of such a column raises instead of changing the features
+    behind the panel's back.
     """
     if len(set(names)) < len(names):  # a column named like an indicator ("c=1"): keep copies
         return frame
@@ -168,6 +169,7 @@ def _share_state_columns(
     shared = [c for c in frame.columns if c in position and frame[c].dtype == np.float64]
     if not shared:
         return frame
+    features.flags.writeable = False  # before the views are taken: they inherit it
     columns = {c: features[:, position[c]] if c in shared else frame[c] for c in frame.columns}
     return pd.DataFrame(columns, index=frame.index, copy=False)
 
@@ -249,6 +251,10 @@ class Panel:
         Reason -> number of rows dropped by ``missing="drop"``. Each dropped row is counted
         once, under the first column (unit, period, choice, states, extra columns, in that
         order) where it has a missing value, so the counts add up to :attr:`n_dropped`.
+    features : numpy.ndarray
+        (n_rows, n_features) float64 learner features, read-only. The frame's float64 state
+        columns are views of it (the states are held once), so edit ``frame.copy()``, not
+        ``frame`` in place.
 
     Examples
     --------
@@ -392,6 +398,7 @@ class Panel:
         unit_keys = _unit_keys(sorted_frame[[period, choice, *states]], unit_codes, periods)
         if sorted_frame.columns.is_unique:
             sorted_frame = _share_state_columns(sorted_frame, features, feature_names)
+        features.flags.writeable = False
 
         object.__setattr__(self, "frame", sorted_frame)
         object.__setattr__(self, "unit", unit)
