@@ -260,6 +260,8 @@ BAD_CALLS = [
     (dict(riesz="magic"), "riesz must be 'lasso' or 'learner'"),
     (dict(penalty=-1.0), "penalty must be a non-negative number"),
     (dict(next_weights="later"), "next_weights must be 'projected' or 'observed'"),
+    (dict(riesz_tol=0.0), "riesz_tol must be a positive number"),
+    (dict(riesz_updates=0), "riesz_updates must be a positive integer"),
     (dict(folds=1), "folds must be an integer >= 2"),
     (dict(seed=-2), "seed must be a non-negative integer"),
     (dict(start=[0.0, 1.0]), "start must hold 1 finite numbers"),
@@ -299,21 +301,37 @@ def test_bad_inputs_outside_the_nuisances() -> None:
 # --------------------------------------------------------------------------- (b) CCP model
 
 
-def _renewal_spec(sim, learner: str, dictionary):  # type: ignore[no-untyped-def]
-    """The binary renewal model of METHOD §3 written as a user moment (see docs/own_moments.md)."""
+def _renewal_spec(sim, learner: str, dictionary, *, model_probability: bool = False):  # type: ignore[no-untyped-def]
+    """The binary renewal model of METHOD §3 written as a user moment (see docs/own_moments.md).
+
+    With ``model_probability`` the continuation regressions' counterfactual actions are
+    weighted by the model's own choice probabilities Lambda(theta) (``by_probability``),
+    as the analytic correction of METHOD §4 does; without it the weights come from the
+    penalised Riesz regression on ``dictionary``.
+    """
     beta, states = sim.discount, list(sim.states)
+
+    def regressors(r):  # type: ignore[no-untyped-def]
+        return np.column_stack([r["wear_scaled"], -np.ones(r.n_rows)])  # z_keep - z_swap
+
+    def lam(theta, r, nu):  # type: ignore[no-untyped-def]
+        w = regressors(r) @ theta - beta * (nu["mu_keep"] - nu["mu_swap"])
+        return 1 / (1 + np.exp(-w))
+
     ccp = Nuisance(name="p_swap", target=lambda r, nu: (r["action"] == "swap").astype(float),
                    features=states, learner=learner, binary=True, at={"p_next": "next"},
                    dictionary=dictionary)
     mu = Nuisance(name="mu", target=lambda r, nu: np.log(nu["p_next"]), features=states,
                   by="action", learner=learner, dictionary=dictionary,
-                  at={"mu_keep": {"action": "keep"}, "mu_swap": {"action": "swap"}})
+                  at={"mu_keep": {"action": "keep"}, "mu_swap": {"action": "swap"}},
+                  by_probability=(
+                      (lambda th, r, nu: {"keep": lam(th, r, nu), "swap": 1 - lam(th, r, nu)})
+                      if model_probability else None
+                  ))
 
     def score(theta, r, nu):  # type: ignore[no-untyped-def]
-        X = np.column_stack([r["wear_scaled"], -np.ones(r.n_rows)])  # z_keep - z_swap
-        w = X @ theta - beta * (nu["mu_keep"] - nu["mu_swap"])
         d = (r["action"] == "keep").astype(float)
-        m = X * (d - 1 / (1 + np.exp(-w)))[:, None]
+        m = regressors(r) * (d - lam(theta, r, nu))[:, None]
         m[~r.has_next] = np.nan  # moment rows: the next period is observed
         return m
 
@@ -324,13 +342,13 @@ def _wear_levels(F: pd.DataFrame) -> np.ndarray:
     return (F["wear"].to_numpy()[:, None] == np.arange(25)[None, :]).astype(float)
 
 
-def _both(sim, learner: str):  # type: ignore[no-untyped-def]
+def _both(sim, learner: str, *, model_probability: bool = False):  # type: ignore[no-untyped-def]
     from _support import panel_and_model
 
     panel, model, _ = panel_and_model(sim)
     ref = oc.estimate(panel, model, learner=learner, scheme="plain", folds=5, seed=0,
                       moments="standard")
-    score, spec = _renewal_spec(sim, learner, _wear_levels)
+    score, spec = _renewal_spec(sim, learner, _wear_levels, model_probability=model_probability)
     res = estimate_moments(panel, score, spec, parameters=list(ref.params.index), seed=0,
                            next_weights="observed")
     return ref, res
@@ -352,14 +370,136 @@ def test_renewal_model_through_the_api_uses_the_same_nuisance_fits(small_ebike) 
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(strict=True, reason=(
-    "measured at 2,000 units (LightGBM first stages): estimates 0.09 and 0.19 SE from the "
-    "analytic correction, SEs 23-24 % smaller; the projected Riesz weight of the "
-    "continuation regressions differs from the analytic one (which uses the model's "
-    "Lambda(theta) for the CCP) by about 20 % in L2"))
+def test_tree_learners_get_the_built_in_first_stage_fits() -> None:
+    """LightGBM sees float32 features in both pipelines (``orthoccp.nuisance.learner_dtype``).
+
+    LightGBM's bin boundaries move with the feature dtype, and the same seed then gives
+    different trees: with float64 features here the CCPs differ by up to 0.099 (7 % in
+    relative RMS), and the two estimators would differ through their first stages. (About
+    9 s; the fast acceptance test checks the same through the plug-in estimates.)
+    """
+    from _support import panel_and_model
+    from orthoccp.learners import resolve_learners
+    from orthoccp.nuisance import crossfit_nuisances
+    from orthoccp.simulate import simulate
+
+    sim = simulate("ebike", units=2000, periods=12, seed=5)
+    panel, model, _ = panel_and_model(sim)
+    small = dict(n_estimators=200)
+    pair = resolve_learners("lightgbm")
+    pair.classifier.set_params(**small)
+    pair.regressor.set_params(**small)
+    rng = np.random.default_rng(0)
+    folds = unit_folds(panel.unit_codes, 5, rng, unit_keys=panel.unit_keys)
+    ref = crossfit_nuisances(model.bind(panel), pair, folds, rng, scheme="plain")
+    R = panel.choices.index("swap")
+    ccp = Nuisance(name="p_swap", target=lambda r, nu: (r["action"] == "swap").astype(float),
+                   features=list(sim.states), learner=pair.classifier, binary=True)
+    res = estimate_moments(panel, lambda th, r, nu: nu["p_swap"] - th[0], [ccp],
+                           parameters=["mean"], folds=5, seed=0, debias=False)
+    assert res.fit is not None
+    np.testing.assert_allclose(res.fit.values()["p_swap"], ref.ccp[:, R], rtol=1e-12)
+
+
+@pytest.mark.filterwarnings("ignore::orthoccp.OrthoCCPWarning")
+def test_model_probabilities_reproduce_the_analytic_correction(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    """``by_probability`` = Lambda(theta): the weights are METHOD §4's, at the final estimate.
+
+    alpha(x, keep) = D_keep / Lambda = beta X (1 - Lambda), alpha(x, swap) = -beta X Lambda,
+    and the CCP's next-row weight alpha / P_swap(x'): the analytic phi_mu and phi_P. The
+    analytic estimator evaluates them at its own solution; the fixed-point updates do the
+    same. Agreement is limited by the finite-difference derivatives and riesz_tol (measured:
+    below 1e-5 standard errors and 1e-6 relative in the standard errors).
+    """
+    ref, res = _both(small_ebike, "logit", model_probability=True)
+    assert np.all(np.abs(res.params - ref.params) < 1e-4 * ref.std_errors)
+    np.testing.assert_allclose(res.std_errors, ref.std_errors, rtol=1e-4)
+    assert "mu 0 + model probabilities" in res.summary()
+    assert "weights at the estimate after" in res.summary()
+
+
+def test_model_probability_of_a_treatment_gives_the_aipw_estimate() -> None:
+    """With the true propensity as ``by_probability`` the correction is AIPW's (RRZ 1994).
+
+    theta = mean[g1 - g0 + d (y - g1)/pi - (1 - d)(y - g0)/(1 - pi)] with the cross-fitted
+    cell means g and the known propensity pi(x) (here CELL_PROPENSITY), whatever dictionary
+    is declared; one update suffices and a second confirms the fixed point.
+    """
+    panel = _panel(_discrete_data(2000, seed=4), ["x"])
+    pi_of = lambda th, r, nu: {1: CELL_PROPENSITY[r["x"].astype(int)], 0: 1 - CELL_PROPENSITY[r["x"].astype(int)]}  # noqa: E731
+    res = estimate_moments(
+        panel, ate_moment, [_outcome(learner=CellFrequencyRegressor(), dictionary="linear",
+                                     by_probability=pi_of)],
+        parameters=["ate"], seed=3,
+    )
+    assert res.fit is not None
+    nu, fr = res.fit.values(), panel.frame
+    d, y = fr["d"].to_numpy(float), fr["y"].to_numpy()
+    pi = CELL_PROPENSITY[fr["x"].to_numpy().astype(int)]
+    aipw = nu["g1"] - nu["g0"] + d * (y - nu["g1"]) / pi - (1 - d) * (y - nu["g0"]) / (1 - pi)
+    assert res.params["ate"] == pytest.approx(aipw.mean(), rel=1e-6)
+    assert "after 2 update(s)" in res.summary()
+
+
+def test_riesz_updates_warn_when_the_weights_have_not_settled(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    score, spec = _renewal_spec(small_ebike, "logit", _wear_levels)
+    panel = oc.Panel(small_ebike.data, unit="bike", period="week", choice="action",
+                     states=list(small_ebike.states))
+    with pytest.warns(oc.OrthoCCPWarning, match="did not reach a fixed point in riesz_updates=1"):
+        estimate_moments(panel, score, spec, parameters=["wear_cost", "swap_cost"],
+                         next_weights="observed", riesz_updates=1)
+
+
+BAD_PROBABILITIES = [
+    (lambda th, r, nu: np.ones(r.n_rows), "must return a mapping"),
+    (lambda th, r, nu: {1: np.full(r.n_rows, 0.5)}, r"no probability for d=0"),
+    (lambda th, r, nu: {1: np.full(r.n_rows, 0.5), 0: np.zeros(r.n_rows)}, r"probability in \(0, 1\]"),
+    (lambda th, r, nu: {1: np.full(3, 0.5), 0: np.full(3, 0.5)}, "expected one per row"),
+    (lambda th, r, nu: {1: nu["pi"], 0: 1 - nu["pi"]}, "by_probability asked for 'pi'"),
+]
+
+
+@pytest.mark.parametrize("fn, message", BAD_PROBABILITIES)
+def test_bad_by_probability(fn, message: str) -> None:  # type: ignore[no-untyped-def]
+    _raises(message, nuisances=[_outcome(learner=CellFrequencyRegressor(), by_probability=fn)])
+
+
+def test_by_probability_needs_by() -> None:
+    with pytest.raises(oc.InputError, match="by_probability must be a function"):
+        _outcome(by=None, at={}, by_probability=lambda th, r, nu: {})
+    with pytest.raises(oc.InputError, match="by_probability must be a function"):
+        _outcome(by_probability=0.5)
+
+
 @pytest.mark.filterwarnings("ignore::orthoccp.OrthoCCPWarning")
 def test_renewal_model_matches_the_analytic_correction() -> None:
-    """Acceptance (issue 6): within 0.1 SE of the analytic correction, SEs within 10 %."""
+    """Acceptance (issue 6): within 0.1 SE of the analytic correction, SEs within 10 %.
+
+    The renewal model through the API with the model's choice probabilities for the
+    counterfactual actions (measured at 2,000 units, LightGBM: both differences 1e-7 SE,
+    standard-error ratios 1.000000; about 14 s, so not slow-marked).
+    """
+    from orthoccp.simulate import simulate
+
+    ref, res = _both(simulate("ebike", units=2000, periods=12, seed=5), "lightgbm",
+                     model_probability=True)
+    assert np.all(np.abs(res.params - ref.params) < 0.1 * ref.std_errors)
+    assert np.all(np.abs(res.std_errors / ref.std_errors - 1) < 0.10)
+    assert ref.plugin_params is not None and res.plugin_params is not None
+    assert np.all(np.abs(res.plugin_params - ref.plugin_params) < 1e-4 * ref.std_errors)
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(strict=True, reason=(
+    "data-driven weights target D/P(a|x) with the data's choice frequencies, the analytic "
+    "ones D/Lambda(theta). Measured at 2,000 units (LightGBM, wear-level dictionary, weights "
+    "at the final estimate): 0.15 and 0.21 SE apart, SEs 21-22 % smaller. Even with the "
+    "analytic weight in the dictionary the projection stays 0.13-0.14 SE away, and the true "
+    "propensity gives 0.42-0.52 SE and SEs 11-13 % larger: the three are equally valid "
+    "asymptotically and differ here by first-stage noise"))
+@pytest.mark.filterwarnings("ignore::orthoccp.OrthoCCPWarning")
+def test_data_driven_weights_match_the_analytic_correction() -> None:
+    """The same criterion for the Riesz-regression weights (no model probabilities)."""
     from orthoccp.simulate import simulate
 
     ref, res = _both(simulate("ebike", units=2000, periods=12, seed=5), "lightgbm")

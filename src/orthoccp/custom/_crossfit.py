@@ -16,6 +16,7 @@ import numpy as np
 
 from .._errors import InputError
 from ..learners import LearnerPair, _check_methods, _describe, checked_proba, resolve_learners
+from ..nuisance import learner_dtype
 from ._spec import NuisanceDesign, Rows
 
 __all__ = ["FittedNuisance", "crossfit", "evaluate_target", "learner_template"]
@@ -125,6 +126,9 @@ def _fit_predict(
             f"Nuisance {spec.name!r}: only {train.size} training row(s) in {where}; use fewer "
             f"folds or more units."
         )
+    # The feature dtype rule of the built-in first stage (float32 for tree ensembles), so the
+    # same learner, seed and folds give the same fits as orthoccp.estimate.
+    dtype = learner_dtype(pair.classifier, pair.regressor)
     X = design.X
     if spec.binary:
         codes = y[train].astype(np.int64)
@@ -134,19 +138,20 @@ def _fit_predict(
                 f"of {where}; a probability needs both 0 and 1 outside each fold."
             )
         est = pair.new_classifier(rng)
-        est.fit(X[train], codes)
+        est.fit(X[train].astype(dtype, copy=False), codes)
     else:
         est = pair.new_regressor(rng)
-        est.fit(X[train], y[train])
+        est.fit(X[train].astype(dtype, copy=False), y[train])
     out = []
     for label, Xp, idx in targets:
         if idx.size == 0:
             out.append(np.empty(0))
             continue
+        Xq = Xp[idx].astype(dtype, copy=False)
         if spec.binary:
-            pred = checked_proba(est, Xp[idx], 2, 0)[:, 1]
+            pred = checked_proba(est, Xq, 2, 0)[:, 1]
         else:
-            pred = np.asarray(est.predict(Xp[idx]), dtype=np.float64).reshape(-1)
+            pred = np.asarray(est.predict(Xq), dtype=np.float64).reshape(-1)
         if pred.shape[0] != idx.size or not np.all(np.isfinite(pred)):
             raise InputError(
                 f"Nuisance {spec.name!r}: {type(est).__name__}.predict returned a bad result at "

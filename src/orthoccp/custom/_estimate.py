@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import time
+import warnings
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -10,7 +11,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .._errors import InputError
+from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._version import __version__
 from ..covariance import check_cov_name, estimate_covariance
 from ..data import Panel
@@ -19,7 +20,7 @@ from ..learners import LearnerPair, resolve_learners
 from ..results import NotApplicable, Results, RowAccounting
 from ._crossfit import FittedNuisance, crossfit
 from ._functions import MomentFunction
-from ._gmm import GMMFit, HansenJ, cluster_sums, numerical_jacobian, two_step_gmm
+from ._gmm import GMMFit, HansenJ, anderson_step, cluster_sums, numerical_jacobian, two_step_gmm
 from ._riesz import RieszFit, check_method, correction_terms, fit_corrections
 from ._spec import Nuisance, Rows, bind_nuisance
 
@@ -193,7 +194,8 @@ def estimate_moments(
     penalty: float = 1.0,
     next_weights: str = "projected",
     riesz_learner: Any = "lightgbm",
-    riesz_updates: int = 2,
+    riesz_updates: int = 25,
+    riesz_tol: float = 1e-6,
     clip: float = 1e-4,
     cov: str = "clustered",
     small_sample: bool = True,
@@ -232,8 +234,18 @@ def estimate_moments(
     riesz_learner : str or (classifier, regressor), default="lightgbm"
         Learners for ``riesz="learner"``: the regressor fits the derivatives, the classifier
         the density ratio between evaluation points and training rows.
-    riesz_updates : int, default=2
-        Times the weights are recomputed at the latest estimate (the first at the plug-in).
+    riesz_updates : int, default=25
+        Most times the weights are recomputed at the latest estimate (the first at the
+        plug-in). The updates stop at the fixed point
+        :math:`\\sum_t \\psi_t(\\hat\\theta; \\hat\\alpha(\\hat\\theta)) = 0`,
+        where the weights belong to the final estimate, as in the analytic correction of
+        METHOD §4 (whose :math:`\\alpha` is a function of :math:`\\theta`); the iteration is
+        Anderson-accelerated (:func:`orthoccp.custom._gmm.anderson_step`). If the estimate
+        still moves after ``riesz_updates`` updates, an :class:`~orthoccp.OrthoCCPWarning`
+        says by how much.
+    riesz_tol : float, default=1e-6
+        The fixed point is reached when no parameter moves by more than
+        ``riesz_tol * (1 + |theta|)`` between updates.
     clip : float, default=1e-4
         Probabilities of binary nuisances are clipped to [clip, 1 - clip].
     cov : {"clustered", "heteroskedastic"}, default="clustered"
@@ -275,6 +287,10 @@ def estimate_moments(
             raise InputError(f"{name} must be True or False, got {flag!r}.")
     if isinstance(riesz_updates, bool) or not isinstance(riesz_updates, (int, np.integer)) or riesz_updates < 1:
         raise InputError(f"riesz_updates must be a positive integer, got {riesz_updates!r}.")
+    if isinstance(riesz_tol, bool) or not isinstance(riesz_tol, (int, float)) or not (
+        np.isfinite(riesz_tol) and riesz_tol > 0
+    ):
+        raise InputError(f"riesz_tol must be a positive number, got {riesz_tol!r}.")
     rows = Rows(panel)
     mfun = MomentFunction(moment, rows)
     designs = [bind_nuisance(s, panel, rows) for s in specs]
@@ -321,19 +337,56 @@ def estimate_moments(
     phis: dict[str, np.ndarray] = {}
     pair = _riesz_pair(riesz_learner) if (debias and riesz == "learner") else None
     iterations = plug.iterations
+    riesz_rounds = 0
     if debias:
-        theta_cur = plug.theta
-        for _ in range(int(riesz_updates)):
-            riesz_fits, extra_fits = fit_corrections(
-                mfun, theta_cur, fitted, rows, fold_of_row, method=riesz,  # type: ignore[arg-type]
-                penalty=float(penalty), next_weights=next_weights,  # type: ignore[arg-type]
-                riesz_pair=pair, rng=rng, clip=float(clip),
-            )
-            n_fits += extra_fits
-            phis = correction_terms(fitted, riesz_fits, rows, nu)
-            result = two_step_gmm(*system(sum(phis.values(), zero)), theta_cur, what="debiased GMM")
+        # Fixed point theta = T(theta), T(x) = the debiased solve with the weights fitted at
+        # x, by Anderson-accelerated iteration; the weights of the last solve then belong to
+        # the reported estimate (|T(x) - x| <= riesz_tol).
+        x = plug.theta
+        moved = np.inf
+        history: list[tuple[np.ndarray, np.ndarray]] = []
+        # One seed for the learner-based Riesz fits, reused at every update: the weights are
+        # then a function of theta alone and the iteration can settle.
+        riesz_seed = int(rng.integers(0, 2**31 - 1))
+        plain_next = x  # the last plain image T(x): where a rejected accelerated step goes
+        accelerated = False
+        for update in range(int(riesz_updates)):
+            try:
+                riesz_fits, extra_fits = fit_corrections(
+                    mfun, x, fitted, rows, fold_of_row, method=riesz,  # type: ignore[arg-type]
+                    penalty=float(penalty), next_weights=next_weights,  # type: ignore[arg-type]
+                    riesz_pair=pair, rng=np.random.default_rng(riesz_seed), clip=float(clip),
+                )
+                n_fits += extra_fits
+                phis = correction_terms(fitted, riesz_fits, rows, nu)
+                result = two_step_gmm(*system(sum(phis.values(), zero)), x, what="debiased GMM")
+            except EstimationError:
+                if not accelerated:
+                    raise
+                x, history, accelerated = plain_next, [], False
+                continue
             iterations += result.iterations
-            theta_cur = result.theta
+            step = float(np.max(np.abs(result.theta - x) / (1.0 + np.abs(x))))
+            if accelerated and step > moved:
+                # The accelerated point did worse than the plain iteration: take the plain
+                # image instead and start the history afresh (a safeguarded Anderson scheme).
+                x, history, accelerated = plain_next, [], False
+                continue
+            moved = step
+            if moved <= riesz_tol:
+                break
+            history.append((x, result.theta))
+            plain_next = result.theta
+            x = anderson_step(history, memory=p + 1)
+            accelerated = not np.array_equal(x, plain_next)
+        riesz_rounds = update + 1
+        if moved > riesz_tol:
+            warnings.warn(
+                f"the Riesz weights did not reach a fixed point in riesz_updates="
+                f"{riesz_updates} updates: the last update moved the estimate by "
+                f"{moved:.3g} (relative; riesz_tol={riesz_tol:g}). Raise riesz_updates.",
+                OrthoCCPWarning, stacklevel=2,
+            )
     theta = result.theta
     timings["second_stage_s"] = time.perf_counter() - t1
 
@@ -365,10 +418,11 @@ def estimate_moments(
     describe = "; ".join(f"{f.name}: {f.learner_name}" for f in fitted)
     riesz_text = (
         f"{riesz} Riesz regression (penalty {penalty:g}; dictionary sizes "
-        + ", ".join(f"{r.name} {r.n_terms}" for r in riesz_fits)
+        + ", ".join(f"{r.name} {r.n_terms}" + (" + model probabilities" if r.model_probability else "")
+                    for r in riesz_fits)
         + f"), next-row values {next_weights}"
         if riesz == "lasso" else f"learner-based Riesz fit ({riesz_learner}), next-row values {next_weights}"
-    )
+    ) + (f"; weights at the estimate after {riesz_rounds} update(s)" if debias else "")
     return MomentResults(
         params=pd.Series(theta, index=index, name="estimate"),
         std_errors=pd.Series(se, index=index, name="std_error"),

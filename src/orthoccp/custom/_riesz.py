@@ -22,6 +22,20 @@ nuisance inside a later one's target picks up that target's correction (the path
 
 Both are cross-fitted: rows of fold k get :math:`\\alpha` fitted on the other folds.
 
+Values read at a counterfactual stratum of a nuisance fitted ``by`` a discrete column, when
+the user gives the model's stratum probabilities (``Nuisance(by_probability=...)``)
+    :math:`\\alpha_t = D^{L}_t / \\pi_s(\\theta; x_t)` on the training rows of stratum s (the
+    value of ``by`` that label L sets): the Riesz representer of
+    :math:`\\delta \\mapsto E[D^L \\delta(x, s)]` in :math:`L_2` of the stratum-s rows is
+    :math:`E[D^L \\mid x] / P(s \\mid x)`, and the model's :math:`\\pi_s(\\theta)` equals
+    :math:`P(s \\mid x)` at the truth. This is step 2 of METHOD §4 ("evaluate :math:`P_a` with
+    the model-implied :math:`\\Lambda_a(\\theta)`"): in a choice model the inverse probability then
+    cancels against :math:`\\Lambda'` inside D and the weight stays bounded, where a data-driven
+    representer (either method above) divides by an estimate of the choice frequencies.
+    It needs :math:`E[D^L \\mid x, s] = E[D^L \\mid x]` (the derivative does not depend on the
+    row's own stratum), which holds when the moment reads the stratum only through the
+    nuisance.
+
 Values at the unit's next row can instead be corrected on the moment row itself
 (``next_weights="observed"``): :math:`\\phi_t = D_t (Y_{t+1} - \\gamma(Z_{t+1}))` with the
 observed derivative as weight. That needs :math:`E[Y_{t+1} - \\gamma(Z_{t+1}) \\mid
@@ -63,12 +77,15 @@ class RieszFit:
         (n_rows, k) weight on row t of the residual at its next row (``"observed"`` mode).
     n_terms : int
         Dictionary size (0 for the learner method).
+    model_probability : bool
+        Counterfactual strata weighted by the user's ``by_probability``.
     """
 
     name: str
     alpha: np.ndarray
     next_weights: np.ndarray | None
     n_terms: int
+    model_probability: bool = False
 
 
 def correction_terms(
@@ -256,6 +273,72 @@ def _learner_alpha(
     return alpha, n_fits
 
 
+def _model_weights(
+    fit: FittedNuisance,
+    D: dict[str, np.ndarray],
+    theta: np.ndarray,
+    rows: Rows,
+    nu: Mapping[str, np.ndarray],
+) -> np.ndarray | None:
+    """Inverse-probability weights :math:`D_t/\\pi_s(\\theta; x_t)` of the labels that read a
+    counterfactual stratum, from the user's ``by_probability``; those labels are removed from
+    ``D`` (set to zero in place). None when the nuisance has no ``by_probability``."""
+    design = fit.design
+    spec = design.spec
+    if spec.by_probability is None:
+        return None
+    points = spec.points()
+    handled = [
+        lab for lab, pt in design.points.items()
+        if pt.kind == "counterfactual" and set(points[lab]) == {spec.by} and np.any(D[lab] != 0)
+    ]
+    if not handled:
+        return None
+    try:
+        probs = spec.by_probability(np.array(theta, dtype=np.float64), rows, nu)
+    except KeyError as exc:
+        raise InputError(
+            f"Nuisance {spec.name!r}: by_probability asked for {exc.args[0]!r}, which is not a "
+            f"nuisance value or column (nuisance values: {', '.join(nu)})."
+        ) from exc
+    if not isinstance(probs, Mapping):
+        raise InputError(
+            f"Nuisance {spec.name!r}: by_probability must return a mapping {{value of "
+            f"{spec.by!r}: probability per row}}, got {type(probs).__name__}."
+        )
+    alpha = np.zeros_like(D[handled[0]])
+    by = spec.by
+    assert by is not None, "by_probability is only accepted with by"
+    for lab in handled:
+        point = points[lab]
+        assert isinstance(point, Mapping)
+        value = point[by]
+        s = design.strata.index(value)
+        if value not in probs:
+            raise InputError(
+                f"Nuisance {spec.name!r}: by_probability returned no probability for "
+                f"{spec.by}={value!r} (read at {lab!r}); it returned keys "
+                f"{', '.join(map(repr, probs))}."
+            )
+        pi = np.asarray(probs[value], dtype=np.float64).reshape(-1)
+        if pi.shape[0] != rows.n_rows:
+            raise InputError(
+                f"Nuisance {spec.name!r}: by_probability[{value!r}] has {pi.shape[0]} values; "
+                f"expected one per row ({rows.n_rows})."
+            )
+        on = fit.train & (design.stratum == s)
+        bad = on & ~(np.isfinite(pi) & (pi > 0) & (pi <= 1))
+        if bad.any():
+            raise InputError(
+                f"Nuisance {spec.name!r}: by_probability[{value!r}] must be a probability in "
+                f"(0, 1] on the rows with {spec.by}={value!r}; it is not on {int(bad.sum())} "
+                f"of them (e.g. {pi[bad][:3].tolist()}) at theta={np.round(theta, 6).tolist()}."
+            )
+        alpha[on] += D[lab][on] / pi[on][:, None]
+        D[lab] = np.zeros_like(D[lab])
+    return alpha
+
+
 def fit_corrections(
     moment: MomentFunction,
     theta: np.ndarray,
@@ -326,6 +409,7 @@ def fit_corrections(
                     W = np.zeros_like(D[lab]) if W is None else W
                     W[ok] += D[lab][ok]
                     D[lab][ok] = 0.0
+        model_alpha = _model_weights(fj, D, theta, rows, nu)
         if not any(np.any(d != 0) for d in D.values()):
             alpha, n_terms = np.zeros((rows.n_rows, next(iter(D.values())).shape[1])), 0
         elif method == "lasso":
@@ -335,8 +419,10 @@ def fit_corrections(
             alpha, fits = _learner_alpha(fj, D, folds, riesz_pair, rng, clip)
             n_fits += fits
             n_terms = 0
+        if model_alpha is not None:
+            alpha = alpha + model_alpha
         alpha[~fj.train] = 0.0
-        out[j] = RieszFit(fj.name, alpha, W, n_terms)
+        out[j] = RieszFit(fj.name, alpha, W, n_terms, model_alpha is not None)
     return [r for r in out if r is not None], n_fits
 
 

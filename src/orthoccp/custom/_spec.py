@@ -125,6 +125,14 @@ class Nuisance:
         interactions), ``"saturated"`` (an indicator per distinct feature row), or
         ``dictionary(features: DataFrame) -> array`` (n, p). With ``by`` the dictionary is
         interacted with the stratum indicators.
+    by_probability : callable, optional
+        ``by_probability(theta, rows, nu) -> {value: array}``: the probability, implied by
+        the user's model at ``theta``, that a moment row falls in each stratum of ``by``
+        given the features (in a choice model, the model's choice probabilities
+        :math:`\\Lambda_j(\\theta)`). Only with ``by``. Values read at a counterfactual
+        stratum s (``at={...: {by: s}}``) are then corrected with the inverse-probability
+        weight :math:`\\alpha_t = D_t / \\pi_s(\\theta; x_t)` on the rows of stratum s,
+        instead of a Riesz regression; see :mod:`orthoccp.custom._riesz`.
 
     Examples
     --------
@@ -142,6 +150,7 @@ class Nuisance:
     by: str | None = None
     at: Mapping[str, Point] = field(default_factory=dict)
     dictionary: str | Callable[[pd.DataFrame], Any] = "quadratic"
+    by_probability: Callable[[np.ndarray, "Rows", Mapping[str, np.ndarray]], Any] | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.name, str) or not self.name:
@@ -166,6 +175,12 @@ class Nuisance:
             raise InputError(
                 f"Nuisance {self.name!r}: by={self.by!r} must be a column name that is not "
                 f"also a feature (its values define separate fits)."
+            )
+        if self.by_probability is not None and (self.by is None or not callable(self.by_probability)):
+            raise InputError(
+                f"Nuisance {self.name!r}: by_probability must be a function "
+                f"by_probability(theta, rows, nu) -> {{value: probability}} and needs by=..., "
+                f"got by={self.by!r}, by_probability={type(self.by_probability).__name__}."
             )
         if not isinstance(self.at, Mapping):
             raise InputError(
