@@ -400,3 +400,22 @@ def test_discrete_tables_match_their_json() -> None:
         cells = list(row.values())[1:]
         for cell, param in zip(cells, ("holding", "stockout", "cost_small", "cost_large")):
             _assert_printed(cell, stats[param]["coverage_95"], f"{row['estimator']} {param}")
+
+
+def test_scaling_table_matches_its_json() -> None:
+    """docs/scaling.md quotes benchmarks/results/scale.json, row by row."""
+    doc = _json("scale.json")
+    points = {p["rows"]: p for p in doc["points"]}
+    rows = _tables(_section(_page("scaling.md"), "## Measured: 10⁴ to 10⁶ rows"))[0]
+    assert len(rows) == len(points)
+    for row in rows:
+        p = points[int(row["rows"].replace(",", ""))]
+        assert int(row["bikes"].replace(",", "")) == p["units"]
+        _assert_printed(row["total s"], p["wall_s"]["total"], f"{p['rows']} total")
+        _assert_printed(row["learner fit s"], p["learner_fit_s"], f"{p['rows']} fit")
+        _assert_printed(row["overhead ratio"], p["overhead_ratio"], f"{p['rows']} overhead")
+        ratios = p["memory_ratio"]
+        _assert_printed(row["peak above imports / state matrix"],
+                        ratios["peak_above_imports_over_state_matrix"], f"{p['rows']} memory")
+        _assert_printed(row["whole process / state matrix"],
+                        ratios["peak_process_over_state_matrix"], f"{p['rows']} process")
