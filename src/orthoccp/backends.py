@@ -31,16 +31,13 @@ own settings alone.
 
 from __future__ import annotations
 
-import ctypes
-import ctypes.util
-import functools
 import os
 import shutil
 import tempfile
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from typing import Any, cast
+from typing import Any
 
 import numpy as np
 
@@ -113,30 +110,6 @@ def take_rows(
         block = rows[start : start + step]
         out[start : start + step] = base[block] if cols is None else base[np.ix_(block, cols)]
     return out
-
-
-@functools.lru_cache(maxsize=1)
-def _malloc_trim() -> Callable[[int], int] | None:
-    """glibc's ``malloc_trim``, or None on other C libraries and systems."""
-    try:
-        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
-        return cast("Callable[[int], int]", libc.malloc_trim)
-    except (OSError, AttributeError):
-        return None
-
-
-def release_freed_heap() -> None:
-    """Hand heap pages freed by the last learner fit back to the operating system.
-
-    glibc keeps freed blocks of the C heap (LightGBM's binned training set, scikit-learn's
-    buffers) for reuse, so the resident size of a long cross-fit ratchets up to the largest
-    fragmentation seen. ``malloc_trim(0)`` returns them; it costs well under a millisecond
-    per call. A no-op where glibc is not the C library. Measured on the scale benchmark
-    (2 x 10^5 rows x 50 states): peak resident memory of the estimation 11 % lower.
-    """
-    trim = _malloc_trim()
-    if trim is not None:
-        trim(0)
 
 
 # --------------------------------------------------------------------------- threads

@@ -28,7 +28,7 @@ from typing import Any, Literal
 import numpy as np
 
 from ._errors import InputError
-from .backends import Backend, limit_threads, release_freed_heap, resolve_backend, take_rows
+from .backends import Backend, limit_threads, resolve_backend, take_rows
 from .learners import LearnerPair, checked_proba
 from .model import BoundModel
 
@@ -153,7 +153,6 @@ def fit_predict(shared: np.ndarray, task: FoldFit, threads: int | None) -> tuple
     This is the unit of work every backend runs (:mod:`orthoccp.backends`).
     """
     est = limit_threads(task.est, threads)
-    release_freed_heap()  # what the previous task left: its training set is no longer needed
     X_train = take_rows(shared, task.train, task.cols, task.dtype)
     t0 = time.perf_counter()
     if task.weight is None:
@@ -162,7 +161,6 @@ def fit_predict(shared: np.ndarray, task: FoldFit, threads: int | None) -> tuple
         _fit_weighted(est, X_train, task.y, task.weight)
     fit_s = time.perf_counter() - t0
     del X_train
-    release_freed_heap()
     X_pred = take_rows(shared, task.predict, task.cols, task.dtype)
     t1 = time.perf_counter()
     if task.n_classes:
