@@ -260,9 +260,14 @@ def main() -> None:
     from orthoccp.learners import _lgbm_common
 
     started = time.time()
+    malloc_env = {k: v for k, v in sorted(os.environ.items()) if k.startswith("MALLOC_")}
     meta: dict[str, Any] = {
-        "command": "OMP_WAIT_POLICY=PASSIVE python benchmarks/scale.py --rows "
-        + " ".join(map(str, args.rows)),
+        "command": " ".join(f"{k}={v}" for k, v in malloc_env.items())
+        + (" " if malloc_env else "")
+        + "OMP_WAIT_POLICY=PASSIVE python benchmarks/scale.py --rows "
+        + " ".join(map(str, args.rows))
+        + ("" if args.out == RESULTS / "scale.json" else f" --out {args.out}"),
+        "malloc_env": malloc_env,
         "scenario": f"ebike, {PERIODS} weeks per bike, {COVARIATES} covariates + wear = 50 states",
         "estimator": "estimate(learner='lightgbm', folds=5, seed=0): nested scheme, "
         "renewal-robust moments, backend='sequential'",

@@ -419,3 +419,34 @@ def test_scaling_table_matches_its_json() -> None:
                         ratios["peak_above_imports_over_state_matrix"], f"{p['rows']} memory")
         _assert_printed(row["whole process / state matrix"],
                         ratios["peak_process_over_state_matrix"], f"{p['rows']} process")
+
+
+def test_scaling_page_quotes_the_allocator_run() -> None:
+    """The glibc-setting paragraph of docs/scaling.md matches its own JSON."""
+    point = _json("scale_mmap_threshold.json")["points"][0]
+    text = _section(_page("scaling.md"), "## Measured: 10⁴ to 10⁶ rows")
+    para = text[text.index("**A glibc setting that helps.**"):]
+    ratios = point["memory_ratio"]
+    for value in (ratios["estimate_peak_above_panel_over_state_matrix"],
+                  ratios["peak_above_imports_over_state_matrix"],
+                  ratios["peak_process_over_state_matrix"]):
+        assert f"{value:.2f}×" in para, value
+    assert f"{point['wall_s']['total']:.0f} s" in para
+
+
+def test_grid_table_matches_coverage_json() -> None:
+    """The 500-unit cells quoted in docs/validation.md are those of coverage.json."""
+    cells = _json("coverage.json")["cells"]
+    rows = _validation_table("### The rest of the grid: 500 units, 50 replications each")
+    assert len(rows) >= 10
+    for row in rows:
+        cell = cells[f"{row['scenario']}|N=500|{row['first stage']}"]
+        assert cell["status"] == "finished" and cell["mc"]["reps"] == 50
+        stats = {r["estimator"]: r for r in cell["mc"]["summary"] if r["parameter"] == row["parameter"]}
+        where = f"{row['scenario']} {row['first stage']} {row['parameter']}"
+        _assert_printed(row["plug-in coverage"], stats["naive"]["coverage"], where)
+        _assert_printed(row["debiased coverage"], stats["debiased"]["coverage"], where)
+        _assert_printed(row["oracle coverage"], stats["oracle"]["coverage"], where)
+        deb = stats["debiased"]
+        _assert_printed(row["debiased bias / SD"], deb["bias"] / deb["sd"], where)
+        _assert_printed(row["debiased SD / mean s.e."], deb["sd_over_se"], where)
