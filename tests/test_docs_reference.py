@@ -348,6 +348,18 @@ def test_monte_carlo_tables_match_their_json() -> None:
          "debiased (renewal-robust, the default)": "debiased", "oracle (exact nuisances)": "oracle"},
         [(p, k) for p in (w, s) for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
     )
+    cell = _json("coverage.json")["cells"]["producers|N=2000|lightgbm"]
+    assert cell["status"] == "finished" and cell["mc"]["reps"] == 200
+    by_estimator = {}
+    for r in cell["mc"]["summary"]:
+        by_estimator.setdefault(r["estimator"], {})[r["parameter"]] = r
+    _check_mc_rows(
+        _validation_table("### The terminal headline cell: 2,000 producers, default options"),
+        by_estimator,
+        {"plug-in (cross-fitted, uncorrected)": "naive", "debiased (the default)": "debiased",
+         "oracle (exact nuisances)": "oracle"},
+        [(p, k) for p in ("fixed_cost", "profit") for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
+    )
     _check_mc_rows(
         _validation_table("### Plug-in against debiased, and the two cross-fitting schemes"),
         _json("crossfit_schemes_ebike.json")["summary"],
