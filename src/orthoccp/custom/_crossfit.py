@@ -16,6 +16,7 @@ import numpy as np
 
 from .._errors import InputError
 from ..learners import LearnerPair, _check_methods, _describe, checked_proba, resolve_learners
+from ..backends import take_rows
 from ..nuisance import learner_dtype
 from ._spec import NuisanceDesign, Rows
 
@@ -129,7 +130,7 @@ def _fit_predict(
     # The feature dtype rule of the built-in first stage (float32 for tree ensembles), so the
     # same learner, seed and folds give the same fits as orthoccp.estimate.
     dtype = learner_dtype(pair.classifier, pair.regressor)
-    X = design.X
+    X_train = take_rows(design.X, train, None, dtype)
     if spec.binary:
         codes = y[train].astype(np.int64)
         if np.unique(codes).size < 2:
@@ -138,16 +139,16 @@ def _fit_predict(
                 f"of {where}; a probability needs both 0 and 1 outside each fold."
             )
         est = pair.new_classifier(rng)
-        est.fit(X[train].astype(dtype, copy=False), codes)
+        est.fit(X_train, codes)
     else:
         est = pair.new_regressor(rng)
-        est.fit(X[train].astype(dtype, copy=False), y[train])
+        est.fit(X_train, y[train])
     out = []
     for label, Xp, idx in targets:
         if idx.size == 0:
             out.append(np.empty(0))
             continue
-        Xq = Xp[idx].astype(dtype, copy=False)
+        Xq = take_rows(Xp, idx, None, dtype)
         if spec.binary:
             pred = checked_proba(est, Xq, 2, 0)[:, 1]
         else:
