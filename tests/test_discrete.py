@@ -37,16 +37,6 @@ BUS = SU_JUDD_BUS
 
 
 @pytest.fixture(scope="module")
-def bus_frame() -> pd.DataFrame:
-    return simulate_bus(buses=50, periods=120, seed=1000)
-
-
-@pytest.fixture(scope="module")
-def bus_panel(bus_frame: pd.DataFrame) -> oc.Panel:
-    return oc.Panel(bus_frame, unit="bus", period="month", choice="action", states=["mileage"])
-
-
-@pytest.fixture(scope="module")
 def inventory_panel() -> oc.Panel:
     df = simulate_inventory(units=300, periods=20, seed=7)
     return oc.Panel(df, unit="shop", period="period", choice="order", states=["stock"])

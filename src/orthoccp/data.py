@@ -361,7 +361,7 @@ class Panel:
 
         try:
             sorted_frame = frame.sort_values([unit, period], kind="mergesort").reset_index(drop=True)
-            unit_labels, unit_codes = np.unique(sorted_frame[unit].to_numpy(), return_inverse=True)
+            unit_labels, unit_codes = _sorted_runs(sorted_frame[unit].to_numpy())
         except TypeError as exc:
             raise InputError(
                 f"unit column {unit!r} mixes label types that cannot be ordered (e.g. strings "
@@ -378,7 +378,7 @@ class Panel:
 
         choice_values = sorted_frame[choice].to_numpy()
         try:
-            choices, codes = np.unique(choice_values, return_inverse=True)
+            choices, codes = _sorted_codes(choice_values)
         except TypeError as exc:
             raise InputError(
                 f"choice column {choice!r} mixes label types (e.g. strings and numbers); "
@@ -485,6 +485,31 @@ class Panel:
                 f"impute those rows, or pass missing='drop' with the column in extra_columns."
             )
         return values
+
+
+def _sorted_runs(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Labels and codes of an already sorted column (``np.unique`` without its sort)."""
+    if values.dtype.kind == "O":  # a sort that mixed label types would have raised already
+        _sorted_codes(values[np.r_[True, values[1:] != values[:-1]]])
+    start = np.empty(values.size, dtype=bool)
+    start[:1] = True
+    start[1:] = values[1:] != values[:-1]
+    return values[start], np.cumsum(start) - 1
+
+
+def _sorted_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sorted distinct labels and each value's position among them, like ``np.unique(...,
+    return_inverse=True)`` but by hashing: only the distinct labels are sorted. Raises
+    TypeError for labels that cannot be ordered (e.g. strings mixed with numbers)."""
+    codes, uniques = pd.factorize(values, sort=False)
+    uniques = np.asarray(uniques, dtype=values.dtype)
+    kinds = {type(u) for u in uniques} if uniques.dtype.kind == "O" else set()
+    if len(kinds) > 1 and not all(issubclass(k, (int, float, np.number)) for k in kinds):
+        raise TypeError(f"labels of mixed types {sorted(k.__name__ for k in kinds)}")
+    order = np.argsort(uniques, kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    return uniques[order], rank[codes]
 
 
 def _unit_keys(rest: pd.DataFrame, unit_codes: np.ndarray, periods: np.ndarray) -> np.ndarray:

@@ -92,6 +92,7 @@ MISSING = ("error", "drop")
 METHODS = ("orthogonal", "npl", "pml")
 VALUES = ("inversion", "simulation")
 TRANSITIONS = ("frequency", "increments")
+INITIAL_CCPS = ("frequency", "sieve")
 CSV_SUFFIXES = (".csv", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip")
 PARQUET_SUFFIXES = (".parquet", ".pq")
 
@@ -230,7 +231,7 @@ class EstimatorSpec:
         the orthogonal finite-dependence moments. ``"npl"`` and ``"pml"``:
         :func:`orthoccp.estimate_discrete` for discrete states (NPL iterations, or
         pseudo-likelihood steps); they need no anchor and fit no learner.
-    values, transitions, smoothing, reset_choices, n_states, steps, max_iterations, tol, n_paths, horizon
+    values, transitions, smoothing, reset_choices, n_states, steps, max_iterations, tol, n_paths, horizon, initial_ccp, sieve_degree
         Options of :func:`orthoccp.estimate_discrete` (``None``: its default); only with
         ``method = "npl"`` or ``"pml"``.
     """
@@ -246,6 +247,8 @@ class EstimatorSpec:
     tol: float | None = None
     n_paths: int | None = None
     horizon: int | None = None
+    initial_ccp: str | None = None
+    sieve_degree: int | None = None
 
     @property
     def discrete(self) -> bool:
@@ -508,7 +511,7 @@ class Spec:
             )
         out: dict[str, Any] = {"estimator": est.method, "discount": self.model.discount}
         for key in ("values", "transitions", "smoothing", "n_states", "steps", "max_iterations",
-                    "tol", "n_paths", "horizon"):
+                    "tol", "n_paths", "horizon", "initial_ccp", "sieve_degree"):
             value = getattr(est, key)
             if value is not None:
                 out[key] = value
@@ -641,7 +644,7 @@ _FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme"
 _INFERENCE_KEYS = ("cov", "small_sample", "debias", "moments")
 _ESTIMATOR_KEYS = (
     "method", "values", "transitions", "smoothing", "reset_choices", "n_states", "steps",
-    "max_iterations", "tol", "n_paths", "horizon",
+    "max_iterations", "tol", "n_paths", "horizon", "initial_ccp", "sieve_degree",
 )
 # Options of the orthogonal estimator that the discrete-state estimators do not use.
 _ORTHOGONAL_ONLY = (
@@ -1005,6 +1008,8 @@ def _parse_estimator(chk: _Checker, value: Any) -> EstimatorSpec:
         tol=opt("tol", positive),
         n_paths=opt("n_paths", lambda k, v: chk.integer(k, v, minimum=1)),
         horizon=opt("horizon", lambda k, v: chk.integer(k, v, minimum=1)),
+        initial_ccp=opt("initial_ccp", lambda k, v: chk.choice(k, v, INITIAL_CCPS)),
+        sieve_degree=opt("sieve_degree", lambda k, v: chk.integer(k, v, minimum=1)),
     )
 
 

@@ -102,14 +102,20 @@ def maximise_pseudo(
     """
     seen = counts.sum(axis=1) > 0
     Zs, es, n = Zt[seen], et[seen], counts[seen]
+    S_seen, J, p = Zs.shape
     ns, nflat = n.sum(axis=1), n.ravel()
+    Zf = Zs.reshape(-1, p)
     theta = np.asarray(theta0, dtype=np.float64).copy()
     P, logp = cell_logit(Zs, es, theta)
     ll = float(nflat @ logp.ravel())
     it, step = 0, np.zeros_like(theta)
     for it in range(1, maxiter + 1):
-        g, info = _scores(Zs, P, ns)
-        grad = nflat @ g.reshape(-1, g.shape[2])
+        # Gradient and information from the flattened design (fewer array passes than
+        # _scores): grad = Z'(n - n_s P), I = Z' diag(n_s P) Z - Zbar' diag(n_s) Zbar.
+        w = ns[:, None] * P
+        grad = Zf.T @ (nflat - w.ravel())
+        Zbar = np.einsum("sj,sjp->sp", P, Zs)
+        info = (Zf * w.reshape(-1, 1)).T @ Zf - (Zbar * ns[:, None]).T @ Zbar
         try:
             step = np.linalg.solve(info, grad)
         except np.linalg.LinAlgError as exc:
