@@ -360,6 +360,19 @@ def test_monte_carlo_tables_match_their_json() -> None:
          "oracle (exact nuisances)": "oracle"},
         [(p, k) for p in ("fixed_cost", "profit") for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
     )
+    cell = _json("coverage.json")["cells"]["ebike3|N=2000|lightgbm"]
+    assert cell["status"] == "finished" and cell["mc"]["reps"] == 200
+    by_estimator = {}
+    for r in cell["mc"]["summary"]:
+        by_estimator.setdefault(r["estimator"], {})[r["parameter"]] = r
+    _check_mc_rows(
+        _validation_table("### The three-choice headline cell: 2,000 bikes, default options"),
+        by_estimator,
+        {"plug-in (cross-fitted, uncorrected)": "naive",
+         "debiased (renewal-robust, the default)": "debiased", "oracle (exact nuisances)": "oracle"},
+        [(p, k) for p in ("wear_cost", "recondition_cost", "swap_cost")
+         for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
+    )
     _check_mc_rows(
         _validation_table("### Plug-in against debiased, and the two cross-fitting schemes"),
         _json("crossfit_schemes_ebike.json")["summary"],
