@@ -427,6 +427,36 @@ def test_discrete_tables_match_their_json() -> None:
             _assert_printed(cell, stats[param]["coverage_95"], f"{row['estimator']} {param}")
 
 
+def test_sieve_table_matches_its_json() -> None:
+    """docs/validation.md and the README quote benchmarks/results/sieve_reference.json."""
+    grids = {g["config"]["n_states"]: g["summary"] for g in _json("sieve_reference.json")["grids"].values()}
+    names = {"full-solution MLE": "nfxp", "one step from cell frequencies": "pml_frequency",
+             "one step from the logit sieve": "pml_sieve", "one step from LightGBM": "pml_lightgbm"}
+    rows = _validation_table("### Smooth starting CCPs, and larger state spaces")
+    assert len(rows) == 4 * len(grids) == 16
+    for row in rows:
+        stats = grids[int(row["states"])][names[row["estimator"]]]
+        where = f"{row['states']} {row['estimator']}"
+        _assert_printed(row["RMSE / MLE's, RC"], stats["RC"]["rmse_ratio_to_nfxp"], where)
+        _assert_printed(row["RMSE / MLE's, θ11"], stats["theta11"]["rmse_ratio_to_nfxp"], where)
+        _assert_printed(row["coverage RC"], stats["RC"]["coverage_95"], where)
+        _assert_printed(row["coverage θ11"], stats["theta11"]["coverage_95"], where)
+        _assert_printed(row["CPU s"], stats["median_cpu_seconds"], where)
+        _assert_printed(row["speed-up, from the DataFrame"], stats["speedup_vs_nfxp"], where)
+        if row["estimator"] != "full-solution MLE":
+            _assert_printed(row["speed-up, from a built Panel"],
+                            stats["from_panel_speedup_vs_nfxp"], where)
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    text = readme[readme.index("**Smooth starting CCPs against the MLE.**"):]
+    for row in _tables(text)[0]:
+        stats = grids[int(row["states"])]["pml_sieve"]
+        _assert_printed(row["RMSE / MLE's, RC"], stats["RC"]["rmse_ratio_to_nfxp"], "README")
+        _assert_printed(row["θ11"], stats["theta11"]["rmse_ratio_to_nfxp"], "README")
+        _assert_printed(row["speed-up vs MLE (from the DataFrame)"], stats["speedup_vs_nfxp"],
+                        "README")
+        _assert_printed(row["on a built Panel"], stats["from_panel_speedup_vs_nfxp"], "README")
+
+
 def test_scaling_table_matches_its_json() -> None:
     """docs/scaling.md quotes benchmarks/results/scale.json, row by row."""
     doc = _json("scale.json")
