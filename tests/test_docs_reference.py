@@ -335,24 +335,26 @@ def _check_mc_rows(rows: list[dict[str, str]], summary: dict[str, Any], keys: di
             _assert_printed(cell, stats[param][stat], f"{label} {param} {stat}")
 
 
-def test_monte_carlo_tables_match_their_json() -> None:
-    w, s = "wear_cost", "swap_cost"
-    cell = _json("coverage.json")["cells"]["ebike|N=2000|lightgbm"]
+def _headline_cell(key: str) -> dict[str, dict[str, Any]]:
+    """A finished 200-replication cell of coverage.json: estimator -> parameter -> summary."""
+    cell = _json("coverage.json")["cells"][key]
     assert cell["status"] == "finished" and cell["mc"]["reps"] == 200
     by_estimator: dict[str, dict[str, Any]] = {}
     for r in cell["mc"]["summary"]:
         by_estimator.setdefault(r["estimator"], {})[r["parameter"]] = r
+    return by_estimator
+
+
+def test_monte_carlo_tables_match_their_json() -> None:
+    w, s = "wear_cost", "swap_cost"
+    by_estimator = _headline_cell("ebike|N=2000|lightgbm")
     _check_mc_rows(
         _validation_table("### The headline cell: 2,000 bikes, default options"), by_estimator,
         {"plug-in (cross-fitted, uncorrected)": "naive",
          "debiased (renewal-robust, the default)": "debiased", "oracle (exact nuisances)": "oracle"},
         [(p, k) for p in (w, s) for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
     )
-    cell = _json("coverage.json")["cells"]["producers|N=2000|lightgbm"]
-    assert cell["status"] == "finished" and cell["mc"]["reps"] == 200
-    by_estimator = {}
-    for r in cell["mc"]["summary"]:
-        by_estimator.setdefault(r["estimator"], {})[r["parameter"]] = r
+    by_estimator = _headline_cell("producers|N=2000|lightgbm")
     _check_mc_rows(
         _validation_table("### The terminal headline cell: 2,000 producers, default options"),
         by_estimator,
@@ -360,11 +362,7 @@ def test_monte_carlo_tables_match_their_json() -> None:
          "oracle (exact nuisances)": "oracle"},
         [(p, k) for p in ("fixed_cost", "profit") for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
     )
-    cell = _json("coverage.json")["cells"]["ebike3|N=2000|lightgbm"]
-    assert cell["status"] == "finished" and cell["mc"]["reps"] == 200
-    by_estimator = {}
-    for r in cell["mc"]["summary"]:
-        by_estimator.setdefault(r["estimator"], {})[r["parameter"]] = r
+    by_estimator = _headline_cell("ebike3|N=2000|lightgbm")
     _check_mc_rows(
         _validation_table("### The three-choice headline cell: 2,000 bikes, default options"),
         by_estimator,

@@ -16,8 +16,8 @@ import numpy as np
 import pandas as pd
 from numpy.polynomial import legendre
 
-from .._errors import EstimationError, InputError
-from ..learners import _seeded, checked_proba
+from .._errors import EstimationError
+from ..learners import _check_methods, _seeded, checked_proba
 from ._pseudo import maximise_pseudo
 from ._states import StateSpace
 
@@ -178,12 +178,9 @@ def classifier_ccp(space: StateSpace, choice_codes: np.ndarray, n_choices: int, 
     """
     from sklearn.base import clone
 
-    for attr in ("fit", "predict_proba", "get_params"):
-        if not callable(getattr(learner, attr, None)):
-            raise InputError(
-                f"initial_ccp {type(learner).__name__} has no {attr}() method; pass 'frequency', "
-                f"'sieve', an (S, J) array, or a scikit-learn-style classifier."
-            )
+    _check_methods(learner, "initial_ccp", ("fit", "predict_proba", "get_params"),
+                   "pass 'frequency', 'sieve', an (S, J) array, or a scikit-learn-style "
+                   "classifier")
     est = _seeded(clone(learner), np.random.default_rng(seed))
     X = _features(space.values)
     est.fit(X[space.codes], np.asarray(choice_codes))
