@@ -18,6 +18,7 @@ import pytest
 import orthoccp as oc
 from orthoccp.cli import main
 from orthoccp.montecarlo import (
+    DEFAULT_ESTIMATORS,
     ESTIMATORS,
     REPLICATION_COLUMNS,
     SUMMARY_COLUMNS,
@@ -46,13 +47,13 @@ def test_summary_has_every_column_and_row(mc: MonteCarloResults) -> None:
     s = mc.summary
     assert list(s.columns) == list(SUMMARY_COLUMNS)
     truth = simulate("ebike", units=1, periods=1, seed=0).truth
-    assert len(s) == len(ESTIMATORS) * len(truth)
-    assert list(s["estimator"].unique()) == list(ESTIMATORS)
+    assert len(s) == len(DEFAULT_ESTIMATORS) * len(truth)
+    assert list(s["estimator"].unique()) == list(DEFAULT_ESTIMATORS)
     assert set(s["parameter"]) == set(truth)
     assert (s["reps"] == REPS).all()
     assert (s["n_ok"] + s["failures"] == s["reps"]).all()
     assert list(mc.replications.columns) == list(REPLICATION_COLUMNS)
-    assert len(mc.replications) == REPS * len(ESTIMATORS) * len(truth)
+    assert len(mc.replications) == REPS * len(DEFAULT_ESTIMATORS) * len(truth)
 
 
 def test_coverage_is_a_share_with_its_mc_error(mc: MonteCarloResults) -> None:
@@ -86,22 +87,48 @@ def test_oracle_statistics_match_a_hand_computation(mc: MonteCarloResults) -> No
         assert row["mean_ci_length"] == pytest.approx(np.mean(hi - lo), rel=1e-12)
 
 
-def test_oracle_uses_the_exact_nuisances(mc: MonteCarloResults) -> None:
-    # Replication 0 redone by hand: the simulator's exact nuisances, plug-in solve.
+def _exact_replication_zero(units: int = 150) -> tuple[oc.Panel, oc.Model, oc.Nuisances, int]:
+    """Replication 0 of a TINY-like run, rebuilt by hand with the simulator's exact nuisances."""
     sim_seed, est_seed = replication_seeds(TINY["seed"], 0)  # type: ignore[arg-type]
-    sim = simulate("ebike", units=150, periods=6, seed=sim_seed, n_covariates=5)
+    sim = simulate("ebike", units=units, periods=6, seed=sim_seed, n_covariates=5)
     panel = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice,
                      states=list(sim.states))
     model = oc.Model(anchor=sim.anchor, kind=sim.kind, discount=sim.discount,
                      utility=sim.utility, persistent=sim.persistent)
     order = [list(sim.choices).index(c) for c in panel.choices]
     nuis = oc.nuisances_from_truth(model.bind(panel), sim.ccp[:, order], sim.continuation[:, order])
+    return panel, model, nuis, est_seed
+
+
+def test_oracle_uses_the_exact_nuisances(mc: MonteCarloResults) -> None:
+    panel, model, nuis, est_seed = _exact_replication_zero()
     res = oc.estimate(panel, model, nuisances=nuis, debias=False, folds=3, seed=est_seed)
     rep = mc.replications
     got = rep[(rep["rep"] == 0) & (rep["estimator"] == "oracle")].set_index("parameter")
     for param in res.params.index:
         assert got.loc[param, "estimate"] == res.params[param]
         assert got.loc[param, "std_error"] == res.std_errors[param]
+
+
+def test_oracle_debiased_is_the_corrected_moment_at_the_exact_nuisances() -> None:
+    # 300 units: at 150 the corrected solve of replication 0 does not converge.
+    options = {**TINY, "units": 300}
+    run = run_montecarlo("ebike", reps=1, estimators=("oracle", "oracle_debiased"),
+                         **options)  # type: ignore[arg-type]
+    panel, model, nuis, est_seed = _exact_replication_zero(units=300)
+    res = oc.estimate(panel, model, nuisances=nuis, debias=True, folds=3, seed=est_seed,
+                      learner="logit")
+    rep = run.replications.set_index(["estimator", "parameter"])
+    assert ESTIMATORS[-1] == "oracle_debiased" and "oracle_debiased" not in DEFAULT_ESTIMATORS
+    for param in res.params.index:
+        row = rep.loc[("oracle_debiased", param)]
+        assert row["estimate"] == pytest.approx(res.params[param], rel=1e-12)
+        assert row["std_error"] == pytest.approx(res.std_errors[param], rel=1e-12)
+        assert row["moments"] == "renewal_robust"
+        # The correction terms are not zero at the exact nuisances, only mean zero: the
+        # corrected moment moves the estimate and widens the interval relative to the oracle.
+        assert row["estimate"] != rep.loc[("oracle", param), "estimate"]
+        assert row["std_error"] > 0
 
 
 def test_failures_are_counted_not_dropped(mc: MonteCarloResults) -> None:

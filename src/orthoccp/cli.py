@@ -1086,7 +1086,8 @@ def build_parser() -> argparse.ArgumentParser:
         type=_estimator_list,
         default=("naive", "debiased", "oracle"),
         metavar="LIST",
-        help="comma-separated subset of naive,debiased,oracle (default: all three)",
+        help="comma-separated subset of naive,debiased,oracle,oracle_debiased (default: "
+        "naive,debiased,oracle; oracle_debiased is the corrected moment at the true nuisances)",
     )
     mc.add_argument(
         "--covariates",
