@@ -487,14 +487,22 @@ def test_scaling_page_quotes_the_allocator_run() -> None:
     assert f"{point['wall_s']['total']:.0f} s" in para
 
 
-def test_grid_table_matches_coverage_json() -> None:
-    """The 500-unit cells quoted in docs/validation.md are those of coverage.json."""
+@pytest.mark.parametrize(
+    ("heading", "units", "reps", "min_rows"),
+    [
+        ("### The rest of the grid: 500 units, 50 replications each", 500, 50, 10),
+        ("### The L1-penalised logit at 2,000 units: 200 replications each", 2000, 200, 7),
+    ],
+)
+def test_grid_table_matches_coverage_json(heading: str, units: int, reps: int,
+                                          min_rows: int) -> None:
+    """The grid cells quoted in docs/validation.md are those of coverage.json."""
     cells = _json("coverage.json")["cells"]
-    rows = _validation_table("### The rest of the grid: 500 units, 50 replications each")
-    assert len(rows) >= 10
+    rows = _validation_table(heading)
+    assert len(rows) >= min_rows
     for row in rows:
-        cell = cells[f"{row['scenario']}|N=500|{row['first stage']}"]
-        assert cell["status"] == "finished" and cell["mc"]["reps"] == 50
+        cell = cells[f"{row['scenario']}|N={units}|{row['first stage']}"]
+        assert cell["status"] == "finished" and cell["mc"]["reps"] == reps
         stats = {r["estimator"]: r for r in cell["mc"]["summary"] if r["parameter"] == row["parameter"]}
         where = f"{row['scenario']} {row['first stage']} {row['parameter']}"
         _assert_printed(row["plug-in coverage"], stats["naive"]["coverage"], where)
