@@ -511,3 +511,36 @@ def test_grid_table_matches_coverage_json(heading: str, units: int, reps: int,
         deb = stats["debiased"]
         _assert_printed(row["debiased bias / SD"], deb["bias"] / deb["sd"], where)
         _assert_printed(row["debiased SD / mean s.e."], deb["sd_over_se"], where)
+
+
+def test_oracle_moment_table_matches_its_json() -> None:
+    """The price-of-unknown-CCPs table is benchmarks/results/oracle_moment.json's."""
+    cells = _json("oracle_moment.json")["cells"]
+    rows = _validation_table("### What the corrected moment can do at best")
+    assert len(rows) == 7  # 2 + 3 + 2 parameters of the three headline designs
+    for row in rows:
+        cell = cells[f"{row['scenario']}|N=2000|lightgbm"]
+        # The panels are the coverage cells': the oracle estimates agree exactly.
+        assert cell["reps"] == 200 and cell["paired"]["max_abs_oracle_difference"] <= 1e-8
+        stats = {r["parameter"]: r for r in cell["paired"]["parameters"]}[row["parameter"]]
+        assert stats["paired_reps"] == 200
+        where = f"{row['scenario']} {row['parameter']}"
+        for column, key in [
+            ("RMSE oracle", "rmse_oracle"),
+            ("RMSE oracle, corrected moment", "rmse_oracle_debiased"),
+            ("RMSE debiased", "rmse_debiased"),
+            ("price of unknown CCPs", "price_of_unknown_ccp"),
+            ("learner's cost", "learner_cost"),
+            ("corrected-moment oracle bias / SD", "bias_over_sd_oracle_debiased"),
+        ]:
+            _assert_printed(row[column], stats[key], where)
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    text = readme[readme.index("**What the corrected moment can do at best**"):]
+    for row in _tables(text)[0]:
+        cell = cells[f"{row['design']}|N=2000|lightgbm"]
+        stats = {r["parameter"]: r for r in cell["paired"]["parameters"]}[row["parameter"]]
+        where = f"README {row['design']} {row['parameter']}"
+        _assert_printed(row["corrected moment at exact nuisances / oracle"],
+                        stats["price_of_unknown_ccp"], where)
+        _assert_printed(row["debiased / corrected moment at exact nuisances"],
+                        stats["learner_cost"], where)
