@@ -2,7 +2,8 @@
 
 The grid: scenarios ``ebike`` (binary renewal), ``ebike3`` (three-choice renewal) and
 ``producers`` (binary terminal); N in {500, 2000} units of 12 periods; first stages
-``lightgbm`` and ``lasso_logit`` and the parametric ``logit``; 5 folds. The headline cells are
+``lightgbm``, ``lasso_logit`` and the parametric ``logit`` (and, run for some cells only, the
+smoother ``lightgbm_smooth``); 5 folds. The headline cells are
 N = 2000 with LightGBM, with a target of 200 replications each. Every cell is one
 :func:`orthoccp.montecarlo.run_montecarlo` run with seed 0, so the cells of one scenario and
 N share their simulated panels across learners.
@@ -40,7 +41,7 @@ from orthoccp.montecarlo import MonteCarloResults, run_montecarlo  # noqa: E402
 
 SCENARIOS = ("ebike", "ebike3", "producers")
 UNITS = (500, 2000)
-LEARNERS = ("logit", "lasso_logit", "lightgbm")
+LEARNERS = ("logit", "lasso_logit", "lightgbm", "lightgbm_smooth")
 HEADLINE = {"units": 2000, "learner": "lightgbm"}
 PERIODS = 12
 FOLDS = 5

@@ -231,6 +231,11 @@ def test_learner_table_matches_the_registry() -> None:
     assert logit[-1].C == 1e6 and "10⁶" in described["logit"]
     lasso, _ = _REGISTRY["lasso_logit"]()
     assert lasso[-1].C == 0.5 and "C = 0.5" in described["lasso_logit"]
+    smooth, smooth_reg = _REGISTRY["lightgbm_smooth"]()
+    q = smooth.get_params()
+    assert (q["n_estimators"], q["num_leaves"], q["min_child_samples"]) == (150, 7, 120)
+    assert smooth_reg.get_params() == _REGISTRY["lightgbm"]()[1].get_params()
+    assert all(s in described["lightgbm_smooth"] for s in ("150 trees", "7 leaves", "120 rows"))
 
 
 # --------------------------------------------------------------------------- API and pages

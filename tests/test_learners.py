@@ -42,7 +42,7 @@ def test_probabilities_outside_unit_interval(small_ebike) -> None:  # type: igno
         oc.estimate(panel, model, learner=BadProba(strategy="prior"), regressor="logit", folds=3)
 
 
-@pytest.mark.parametrize("name", ["lasso_logit", "random_forest"])
+@pytest.mark.parametrize("name", ["lasso_logit", "random_forest", "lightgbm_smooth"])
 def test_registry_learners_run(small_ebike, name: str) -> None:  # type: ignore[no-untyped-def]
     panel, model, _ = panel_and_model(small_ebike)
     res = oc.estimate(panel, model, learner=name, folds=3)
