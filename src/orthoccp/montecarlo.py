@@ -124,6 +124,9 @@ SUMMARY_COLUMNS: tuple[str, ...] = (
 """Columns of :attr:`MonteCarloResults.summary`."""
 
 _MOMENTS = ("standard", "renewal_robust")
+# Which estimators solve the corrected moment, and which use the simulator's exact nuisances.
+_CORRECTED = frozenset({"debiased", "oracle_debiased"})
+_EXACT = frozenset({"oracle", "oracle_debiased"})
 _SEED_BOUND = 2**31 - 1
 _CATCH = (EstimationError, InputError)
 
@@ -256,7 +259,7 @@ def _check_settings(settings: MonteCarloSettings) -> None:
     # A one-unit draw is cheap and checks n_covariates and the scenario's kind.
     probe = simulate(settings.scenario, units=1, periods=1, seed=0,
                      n_covariates=settings.n_covariates)
-    corrected = "debiased" in est or "oracle_debiased" in est
+    corrected = bool(_CORRECTED.intersection(est))
     if settings.moments == "renewal_robust" and corrected and probe.kind != "renewal":
         raise InputError(
             f"moments='renewal_robust' needs a renewal scenario; {settings.scenario!r} is "
@@ -326,17 +329,13 @@ def _fit_one(
     """Run one estimator; returns (per parameter (est, se, lo, hi) or None, moments, error,
     number of orthoccp warnings, seconds)."""
     clf, reg = learners
-    options: dict[str, Any] = {"folds": settings.folds, "seed": est_seed}
-    if name == "naive":
-        options.update(learner=clf, regressor=reg, debias=False)
-    elif name == "debiased":
-        options.update(learner=clf, regressor=reg, debias=True, moments=settings.moments)
-    elif name == "oracle_debiased":
-        options.update(
-            learner=clf, regressor=reg, debias=True, moments=settings.moments, nuisances=oracle
-        )
-    else:
-        options.update(learner=clf, regressor=reg, debias=False, nuisances=oracle)
+    corrected = name in _CORRECTED
+    options: dict[str, Any] = {"folds": settings.folds, "seed": est_seed, "learner": clf,
+                               "regressor": reg, "debias": corrected}
+    if corrected:
+        options["moments"] = settings.moments
+    if name in _EXACT:
+        options["nuisances"] = oracle
     t0 = time.perf_counter()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -345,7 +344,6 @@ def _fit_one(
         except _CATCH as exc:
             seconds = time.perf_counter() - t0
             n_warn = sum(issubclass(w.category, OrthoCCPWarning) for w in caught)
-            corrected = name in ("debiased", "oracle_debiased")
             moments = settings.moments if corrected and settings.moments else ""
             text = " ".join(f"{type(exc).__name__}: {exc}".split())
             return None, moments, text, n_warn, seconds
@@ -403,7 +401,7 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
     pair = resolve_learners(settings.learner)
     learners = (_single_threaded(pair.classifier), _single_threaded(pair.regressor))
     oracle = None
-    if "oracle" in settings.estimators or "oracle_debiased" in settings.estimators:
+    if _EXACT.intersection(settings.estimators):
         order = [list(sim.choices).index(c) for c in panel.choices]
         oracle = nuisances_from_truth(
             model.bind(panel), sim.ccp[:, order], sim.continuation[:, order]
