@@ -19,6 +19,7 @@ from typing import Protocol
 import numpy as np
 import pandas as pd
 
+from ._arrays import group_sums
 from ._errors import InputError
 
 __all__ = ["CovarianceEstimate", "check_cov_name", "covariance_names", "estimate_covariance"]
@@ -80,9 +81,7 @@ def check_cov_name(name: object) -> None:
 
 def _sum_by(codes: np.ndarray, values: np.ndarray) -> np.ndarray:
     uniq, inv = np.unique(codes, return_inverse=True)
-    out = np.zeros((uniq.size, values.shape[1]))
-    np.add.at(out, inv, values)
-    return out
+    return group_sums(inv, values, uniq.size)
 
 
 def estimate_covariance(

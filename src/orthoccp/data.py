@@ -6,6 +6,7 @@ plain NumPy arrays held by :class:`Panel`.
 
 from __future__ import annotations
 
+import functools
 import warnings
 from collections.abc import Hashable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -281,7 +282,6 @@ class Panel:
     gap_after: np.ndarray = field(init=False, repr=False)
     features: np.ndarray = field(init=False, repr=False)
     feature_names: tuple[str, ...] = field(init=False)
-    unit_keys: np.ndarray = field(init=False, repr=False)
     n_input_rows: int = field(init=False, repr=False)
     dropped_rows: dict[str, int] = field(init=False, repr=False)
 
@@ -367,8 +367,16 @@ class Panel:
                 f"unit column {unit!r} mixes label types that cannot be ordered (e.g. strings "
                 f"and numbers); use one type, e.g. with .astype(str)."
             ) from exc
-        dup_mask = sorted_frame.duplicated([unit, period], keep=False)
-        if dup_mask.any():
+        periods = _check_periods(sorted_frame[period], period)
+        n = len(sorted_frame)
+        same_unit_next = np.zeros(n, dtype=bool)
+        same_unit_next[:-1] = unit_codes[1:] == unit_codes[:-1]
+        # sorted by (unit, period): rows sharing both are neighbours
+        repeat = same_unit_next[:-1] & (periods[1:] == periods[:-1])
+        if repeat.any():
+            dup_mask = np.zeros(n, dtype=bool)
+            dup_mask[:-1] |= repeat
+            dup_mask[1:] |= repeat
             first = sorted_frame.loc[dup_mask, [unit, period]].iloc[0]
             raise InputError(
                 f"{int(dup_mask.sum())} rows share a unit and period (e.g. {unit}="
@@ -384,10 +392,6 @@ class Panel:
                 f"choice column {choice!r} mixes label types (e.g. strings and numbers); "
                 f"use one type."
             ) from exc
-        periods = _check_periods(sorted_frame[period], period)
-        n = len(sorted_frame)
-        same_unit_next = np.zeros(n, dtype=bool)
-        same_unit_next[:-1] = unit_codes[1:] == unit_codes[:-1]
         consecutive = np.zeros(n, dtype=bool)
         consecutive[:-1] = periods[1:] == periods[:-1] + 1
         linked = same_unit_next & consecutive
@@ -395,7 +399,6 @@ class Panel:
         gap_after = same_unit_next & ~consecutive
 
         features, feature_names = _state_matrix(sorted_frame, states)
-        unit_keys = _unit_keys(sorted_frame[[period, choice, *states]], unit_codes, periods)
         if sorted_frame.columns.is_unique:
             sorted_frame = _share_state_columns(sorted_frame, features, feature_names)
         features.flags.writeable = False
@@ -415,9 +418,18 @@ class Panel:
         object.__setattr__(self, "gap_after", gap_after)
         object.__setattr__(self, "features", features)
         object.__setattr__(self, "feature_names", feature_names)
-        object.__setattr__(self, "unit_keys", unit_keys)
         object.__setattr__(self, "n_input_rows", int(n_input))
         object.__setattr__(self, "dropped_rows", dropped)
+
+    @functools.cached_property
+    def unit_keys(self) -> np.ndarray:
+        """(n_units,) a label-free 64-bit key per unit: a hash of its rows (every column the
+        panel uses but the unit label), so relabelling units or reordering rows leaves it
+        unchanged. The fold split orders units by it. Computed at first use (the discrete
+        estimators never need it).
+        """
+        rest = self.frame[[self.period, self.choice, *self.states]]
+        return _unit_keys(rest, self.unit_codes, self.periods)
 
     @property
     def canonical_order(self) -> np.ndarray:
@@ -513,12 +525,15 @@ def _sorted_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _unit_keys(rest: pd.DataFrame, unit_codes: np.ndarray, periods: np.ndarray) -> np.ndarray:
-    """A label-free 64-bit key per unit: a hash of its rows (everything but the unit label)."""
+    """A label-free 64-bit key per unit: a hash of its rows (everything but the unit label).
+
+    The rows are sorted by unit, so each unit is one run of rows; the key is the sum of its
+    rows' (period-mixed) hashes modulo 2**64, which does not depend on the rows' order.
+    """
     row_hash = pd.util.hash_pandas_object(rest, index=False).to_numpy(dtype=np.uint64)
     mixed = row_hash * (np.uint64(2) * (periods.astype(np.uint64) & np.uint64(0xFFFF)) + np.uint64(1))
-    keys = np.zeros(int(unit_codes.max()) + 1, dtype=np.uint64)
-    np.add.at(keys, unit_codes, mixed)
-    return keys
+    starts = np.flatnonzero(np.r_[True, unit_codes[1:] != unit_codes[:-1]])
+    return np.add.reduceat(mixed, starts)
 
 
 def _plain(value: Any) -> Any:

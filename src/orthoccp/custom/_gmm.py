@@ -18,6 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize, stats
 
+from .._arrays import group_sums
 from .._errors import EstimationError
 
 __all__ = ["HansenJ", "GMMFit", "two_step_gmm", "cluster_sums", "numerical_jacobian", "anderson_step"]
@@ -54,9 +55,7 @@ class GMMFit:
 
 
 def cluster_sums(values: np.ndarray, units: np.ndarray, n_units: int) -> np.ndarray:
-    out = np.zeros((n_units, values.shape[1]))
-    np.add.at(out, units, values)
-    return out
+    return group_sums(units, values, n_units)
 
 
 def numerical_jacobian(f: Callable[[np.ndarray], np.ndarray], theta: np.ndarray) -> np.ndarray:

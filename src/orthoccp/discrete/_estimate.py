@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 from scipy import sparse
 
+from .._arrays import group_sums
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._version import __version__
 from ..data import Panel
@@ -102,8 +103,8 @@ def build_problem(
     Z, names = utility_design(panel, space, utility, choices)
     _check_identified(Z, space, names)
     s, a = space.codes, panel.choice_codes
-    counts = np.zeros((space.n_states, J))
-    np.add.at(counts, (s, a), 1.0)
+    counts = np.bincount(s * J + a, minlength=space.n_states * J).reshape(space.n_states, J)
+    counts = counts.astype(np.float64)
     rows = np.flatnonzero(panel.next_row >= 0)
     if beta == 0.0 and not isinstance(transitions, Mapping):
         eye = sparse.identity(space.n_states, format="csr")
@@ -468,8 +469,7 @@ def _covariance(
     row_scores = g[problem.row_state, problem.row_choice]  # (n_rows, p)
     clusters = problem.row_unit if cov == "clustered" else np.arange(row_scores.shape[0])
     G = int(clusters.max()) + 1
-    score = np.zeros((G, p))
-    np.add.at(score, clusters, row_scores)
+    score = group_sums(clusters, row_scores, G)
     trans = np.zeros((G, p))
     if transition_noise and beta > 0 and problem.transitions.method in ("frequency", "increments"):
         inv = last_terms if isinstance(last_terms, InversionTerms) else inversion_terms(
@@ -512,7 +512,8 @@ def _covariance(
     shares["cross"] = 2 * factor * np.einsum("ga,ga->a", parts["choices"], parts["transitions"]) / diag
     if simulated:
         shares["simulation"] = np.diag(sim_var) / diag
-    decomposition = pd.DataFrame(shares, index=pd.Index(problem.parameters, name="parameter"))
+    decomposition = pd.DataFrame(np.column_stack(list(shares.values())), columns=list(shares),
+                                 index=pd.Index(problem.parameters, name="parameter"))
     return _Covariance(cov=V, influence=influence, clusters=clusters, factor=factor,
                        decomposition=decomposition, information=info, parts=parts)
 

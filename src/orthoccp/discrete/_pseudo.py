@@ -16,10 +16,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import special
 
 from .._errors import EstimationError
 
-__all__ = ["PseudoFit", "cell_logit", "maximise_pseudo"]
+__all__ = ["PseudoFit", "cell_logit", "grouped_logit_start", "maximise_pseudo"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -67,6 +68,73 @@ def _scores(Zt: np.ndarray, P: np.ndarray, n_s: np.ndarray) -> tuple[np.ndarray,
     return g, root.T @ root
 
 
+class _Multinomial:
+    """Q and its derivatives for J >= 2 choices (the general case)."""
+
+    def __init__(self, Zs: np.ndarray, es: np.ndarray, n: np.ndarray) -> None:
+        self.Zs, self.es = Zs, es
+        self.p = Zs.shape[2]
+        self.Zf = Zs.reshape(-1, self.p)
+        self.nflat = n.ravel()
+        self.ns = n.sum(axis=1)
+
+    def loglik(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
+        P, logp = cell_logit(self.Zs, self.es, theta)
+        return float(self.nflat @ logp.ravel()), P
+
+    def derivatives(self, P: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        # grad = Z'(n - n_s P), I = Z' diag(n_s P) Z - Zbar' diag(n_s) Zbar
+        w = self.ns[:, None] * P
+        grad = self.Zf.T @ (self.nflat - w.ravel())
+        Zbar = np.einsum("sj,sjp->sp", P, self.Zs)
+        info = (self.Zf * w.reshape(-1, 1)).T @ self.Zf - (Zbar * self.ns[:, None]).T @ Zbar
+        return grad, info
+
+
+class _Binary:
+    """Q and its derivatives for J = 2, as a binary logit of choice 1 on
+    :math:`x = \\tilde Z_1 - \\tilde Z_0` with offset :math:`o = \\tilde e_1 - \\tilde e_0`:
+    :math:`Q = \\sum_s n_{s1} \\eta_s - n_s \\ln(1 + e^{\\eta_s})`, :math:`\\eta = x'\\theta + o`.
+    The same Q as :class:`_Multinomial` with fewer array passes."""
+
+    def __init__(self, Zs: np.ndarray, es: np.ndarray, n: np.ndarray) -> None:
+        self.X = Zs[:, 1, :] - Zs[:, 0, :]
+        self.o = es[:, 1] - es[:, 0]
+        self.y, self.ns = n[:, 1], n.sum(axis=1)
+
+    def loglik(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
+        eta = self.X @ theta + self.o
+        return float(self.y @ eta - self.ns @ np.logaddexp(0.0, eta)), eta
+
+    def derivatives(self, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        p1 = special.expit(eta)
+        grad = self.X.T @ (self.y - self.ns * p1)
+        info = (self.X * (self.ns * p1 * (1.0 - p1))[:, None]).T @ self.X
+        return grad, info
+
+
+def grouped_logit_start(Zt: np.ndarray, et: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """Minimum logit chi-square start (Berkson 1944): weighted least squares of the cells'
+    empirical log-odds against choice 0 on the regressors' differences.
+
+    .. math::
+
+        \\ln\\frac{n_{sj} + 1/2}{n_{s0} + 1/2} - (\\tilde e_j - \\tilde e_0)(s)
+        \\approx (\\tilde Z_j - \\tilde Z_0)(s)'\\theta, \\qquad
+        w_{sj} = \\Big(\\frac{1}{n_{sj} + 1/2} + \\frac{1}{n_{s0} + 1/2}\\Big)^{-1},
+
+    the inverse of the log-odds' approximate variance; the 1/2 keeps empty cells finite
+    (Haldane's correction). Only a start for Newton's method, which then maximises Q.
+    """
+    seen = counts.sum(axis=1) > 0
+    Z, e, n = Zt[seen], et[seen], counts[seen] + 0.5
+    X = (Z[:, 1:, :] - Z[:, :1, :]).reshape(-1, Z.shape[2])
+    y = (np.log(n[:, 1:] / n[:, :1]) - (e[:, 1:] - e[:, :1])).ravel()
+    root_w = np.sqrt(1.0 / (1.0 / n[:, 1:] + 1.0 / n[:, :1])).ravel()
+    theta, *_ = np.linalg.lstsq(X * root_w[:, None], y * root_w, rcond=None)
+    return np.asarray(theta)
+
+
 def maximise_pseudo(
     Zt: np.ndarray,
     et: np.ndarray,
@@ -78,6 +146,11 @@ def maximise_pseudo(
     xtol: float = 1e-11,
 ) -> PseudoFit:
     """Maximise the pseudo-likelihood by Newton's method with step halving.
+
+    Newton starts from ``theta0`` or from the minimum logit chi-square estimate
+    (:func:`grouped_logit_start`), whichever has the larger Q: Q is globally concave, so the
+    start changes only the number of steps, not the maximiser. Far from the maximiser (rare
+    choices), Newton from zero takes many short steps; the chi-square start is usually close.
 
     Parameters
     ----------
@@ -102,20 +175,17 @@ def maximise_pseudo(
     """
     seen = counts.sum(axis=1) > 0
     Zs, es, n = Zt[seen], et[seen], counts[seen]
-    S_seen, J, p = Zs.shape
-    ns, nflat = n.sum(axis=1), n.ravel()
-    Zf = Zs.reshape(-1, p)
+    q = _Binary(Zs, es, n) if Zs.shape[1] == 2 else _Multinomial(Zs, es, n)
     theta = np.asarray(theta0, dtype=np.float64).copy()
-    P, logp = cell_logit(Zs, es, theta)
-    ll = float(nflat @ logp.ravel())
+    ll, state = q.loglik(theta)
+    alt = grouped_logit_start(Zt, et, counts)
+    if np.all(np.isfinite(alt)):
+        ll_alt, state_alt = q.loglik(alt)
+        if ll_alt > ll:
+            theta, ll, state = alt, ll_alt, state_alt
     it, step = 0, np.zeros_like(theta)
     for it in range(1, maxiter + 1):
-        # Gradient and information from the flattened design (fewer array passes than
-        # _scores): grad = Z'(n - n_s P), I = Z' diag(n_s P) Z - Zbar' diag(n_s) Zbar.
-        w = ns[:, None] * P
-        grad = Zf.T @ (nflat - w.ravel())
-        Zbar = np.einsum("sj,sjp->sp", P, Zs)
-        info = (Zf * w.reshape(-1, 1)).T @ Zf - (Zbar * ns[:, None]).T @ Zbar
+        grad, info = q.derivatives(state)
         try:
             step = np.linalg.solve(info, grad)
         except np.linalg.LinAlgError as exc:
@@ -129,12 +199,11 @@ def maximise_pseudo(
             break
         t = 1.0
         while True:
-            P_new, logp_new = cell_logit(Zs, es, theta + t * step)
-            new = float(nflat @ logp_new.ravel())
+            new, state_new = q.loglik(theta + t * step)
             if new >= ll - 1e-12 * max(1.0, abs(ll)) or t < 1e-8:
                 break
             t *= 0.5
-        theta, P, ll = theta + t * step, P_new, new
+        theta, state, ll = theta + t * step, state_new, new
         if not np.all(np.isfinite(theta)) or np.max(np.abs(theta)) > 1e8:
             raise EstimationError(
                 f"the pseudo-likelihood has no finite maximiser (parameters run off: "

@@ -56,17 +56,20 @@ def sieve_basis(values: pd.DataFrame, degree: int) -> tuple[np.ndarray, list[str
     labels: list[str] = []
     for name in values.columns:
         col = values[name]
-        distinct = pd.unique(col)
-        if distinct.size < 2:
-            continue
         if _numeric(col):
             x = col.to_numpy(dtype=np.float64)
+            n_distinct = np.unique(x).size
+            if n_distinct < 2:
+                continue
             lo, hi = float(x.min()), float(x.max())
             z = 2.0 * (x - lo) / (hi - lo) - 1.0
-            d = min(int(degree), distinct.size - 1)
+            d = min(int(degree), n_distinct - 1)
             blocks.append(legendre.legvander(z, d)[:, 1:])
             labels += [f"{name}^{k}" for k in range(1, d + 1)]
         else:
+            distinct = pd.unique(col)
+            if distinct.size < 2:
+                continue
             levels = sorted(distinct, key=str)[1:]
             blocks.append(np.column_stack([(col == v).to_numpy(dtype=np.float64)
                                            for v in levels]))

@@ -79,7 +79,6 @@ def state_space(panel: Panel, *, n_states: int | None = None) -> StateSpace:
     >>> sp.n_states, sp.codes.tolist()
     (3, [0, 2, 1])
     """
-    frame = panel.frame[list(panel.states)]
     if n_states is not None:
         if isinstance(n_states, bool) or not isinstance(n_states, (int, np.integer)) or n_states < 1:
             raise InputError(f"n_states must be a positive integer, got {n_states!r}.")
@@ -90,7 +89,11 @@ def state_space(panel: Panel, *, n_states: int | None = None) -> StateSpace:
                 f"unset to use their distinct combinations."
             )
         name = panel.states[0]
-        raw = pd.to_numeric(frame[name], errors="coerce").to_numpy(dtype=np.float64)
+        col = panel.frame[name]
+        if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
+            raw = col.to_numpy(dtype=np.float64, na_value=np.nan)
+        else:
+            raw = pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64)
         if (np.isnan(raw).any() or np.any(raw != np.round(raw)) or raw.min() < 0
                 or raw.max() >= n_states):
             raise InputError(
@@ -99,6 +102,7 @@ def state_space(panel: Panel, *, n_states: int | None = None) -> StateSpace:
             )
         values = pd.DataFrame({name: np.arange(int(n_states))})
         return StateSpace(raw.astype(np.int64), values, int(n_states), "given")
+    frame = panel.frame[list(panel.states)]
     codes = frame.groupby(list(panel.states), sort=True, observed=True).ngroup().to_numpy()
     order = np.argsort(codes, kind="stable")
     first = order[np.r_[True, np.diff(codes[order]) > 0]]

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 from scipy import sparse
 
+from .._arrays import group_sums
 from .._errors import InputError
 
 __all__ = ["TransitionMatrices", "estimate_transition_matrices"]
@@ -111,14 +112,13 @@ class TransitionMatrices:
             pmf = np.asarray(self.increments)
             base, lo = o["base"], int(o["low"][0])
             S = omega.shape[0]
-            B = np.zeros((pmf.size, p))
-            for j in range(omega.shape[1]):
-                for k in range(pmf.size):
-                    B[k] += value[np.clip(base[j] + lo + k, 0, S - 1)] @ omega[:, j, :]
+            # B[k] = sum_j sum_s omega_j(s) V(clip(b_j(s) + lo + k)): the score's derivative
+            # in the pmf's k-th mass
+            landing = np.clip(base[:, :, None] + lo + np.arange(pmf.size), 0, S - 1)  # (J, S, K)
+            B = np.einsum("jsk,sjp->kp", value[landing], omega)
             use = o["uncensored"]
             contrib = (B[o["increment"][use] - lo] - pmf @ B) / max(int(use.sum()), 1)
-            np.add.at(out, unit[use], contrib)
-            return out
+            return group_sums(unit[use], contrib, n_units)
         s, a, s1 = o["state"], o["choice"], o["next_state"]
         FV = np.stack([m @ value for m in self.matrices], axis=1)  # (S, J)
         n_js, n_j, q = o["row_counts"], o["choice_counts"], o["pooled"]
@@ -132,8 +132,7 @@ class TransitionMatrices:
         direct = own[s, a][:, None] * omega[s, a, :] * ((value[s1] - FV[s, a]) / denom)[:, None]
         spread = np.einsum("sj,sjp->jp", r, omega)  # (J, p)
         pooled = spread[a] * ((value[s1] - qV[a]) / n_j[a])[:, None]
-        np.add.at(out, unit, direct + pooled)
-        return out
+        return group_sums(unit, direct + pooled, n_units)
 
 
 def _choice_positions(labels: Sequence[Hashable], choices: Sequence[Hashable], role: str) -> np.ndarray:
@@ -269,8 +268,7 @@ def _frequency(
     resets: np.ndarray,
 ) -> TransitionMatrices:
     J = len(choices)
-    row_counts = np.zeros((S, J))
-    np.add.at(row_counts, (state, choice), 1.0)
+    row_counts = np.bincount(state * J + choice, minlength=S * J).reshape(S, J).astype(np.float64)
     n_j = row_counts.sum(axis=0)
     mats: list[sparse.csr_matrix] = []
     pooled: list[np.ndarray] = []
@@ -374,15 +372,17 @@ def _increments(
         )
     pmf = np.bincount(inc[uncensored] - lo, minlength=hi - lo + 1).astype(np.float64)
     pmf /= pmf.sum()
-    rows = np.arange(S)
     K = pmf.size
+    indptr = np.arange(0, S * K + 1, K)
+    data = np.tile(pmf, S)
     mats = []
     for j in range(len(choices)):
+        # row s puts pmf[k] on state clip(b_j(s) + lo + k): K entries per row, in column
+        # order; the clipped ones repeat a column and are summed (canonical CSR)
         cols = np.clip(bases[j][:, None] + lo + np.arange(K)[None, :], 0, S - 1)
-        data = np.broadcast_to(pmf, cols.shape)
-        mats.append(sparse.csr_matrix(
-            (data.ravel(), (np.repeat(rows, K), cols.ravel())), shape=(S, S)
-        ))
+        m = sparse.csr_matrix((data.copy(), cols.ravel(), indptr), shape=(S, S))
+        m.sum_duplicates()
+        mats.append(m)
     obs = {"unit": unit, "increment": inc, "uncensored": uncensored, "base": bases,
            "low": np.array([lo])}
     return TransitionMatrices(
