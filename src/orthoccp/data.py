@@ -35,7 +35,7 @@ def _check_column(frame: pd.DataFrame, name: str, role: str) -> None:
         raise InputError(
             f"{role} column {name!r} is not in the data. Available columns: {cols}{more}."
         )
-    n = int((frame.columns == name).sum())
+    n = 1 if frame.columns.is_unique else int((frame.columns == name).sum())
     if n > 1:
         raise InputError(
             f"{role} column {name!r} appears {n} times in the data; give the columns unique names."
@@ -55,6 +55,13 @@ def _column_names(value: Any, role: str) -> tuple[str, ...]:
 
 def _is_number_column(s: pd.Series) -> bool:
     return ptypes.is_numeric_dtype(s) and not ptypes.is_bool_dtype(s)
+
+
+def _n_missing(s: pd.Series) -> int:
+    """Missing values (NaN, None, NA) in a column; NumPy integer and boolean columns hold none."""
+    if isinstance(s.dtype, np.dtype) and s.dtype.kind in "iub":
+        return 0
+    return int(np.count_nonzero(s.array.isna()))
 
 
 def _bad_values(s: pd.Series) -> np.ndarray:
@@ -351,7 +358,7 @@ class Panel:
                 )
 
         for name in (unit, choice):
-            n_missing = int(frame[name].isna().sum())
+            n_missing = _n_missing(frame[name])
             if n_missing:
                 raise InputError(
                     f"{name!r} column has {n_missing} missing values; drop those rows, or pass "

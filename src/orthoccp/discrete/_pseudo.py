@@ -119,20 +119,28 @@ def grouped_logit_start(Zt: np.ndarray, et: np.ndarray, counts: np.ndarray) -> n
 
     .. math::
 
-        \\ln\\frac{n_{sj} + 1/2}{n_{s0} + 1/2} - (\\tilde e_j - \\tilde e_0)(s)
+        \\ln\\frac{m_{sj}}{m_{s0}} - (\\tilde e_j - \\tilde e_0)(s)
         \\approx (\\tilde Z_j - \\tilde Z_0)(s)'\\theta, \\qquad
-        w_{sj} = \\Big(\\frac{1}{n_{sj} + 1/2} + \\frac{1}{n_{s0} + 1/2}\\Big)^{-1},
+        w_{sj} = \\Big(\\frac{1}{m_{sj}} + \\frac{1}{m_{s0}}\\Big)^{-1},
 
-    the inverse of the log-odds' approximate variance; the 1/2 keeps empty cells finite
-    (Haldane's correction). Only a start for Newton's method, which then maximises Q.
+    with :math:`m_{sj} = n_{sj} + \\bar P_j` (one pseudo-observation per cell, spread by the
+    sample's choice shares :math:`\\bar P`, so empty cells stay finite; Haldane's 1/2 when a
+    choice is never made) and :math:`w` the inverse of the log-odds' approximate variance.
+    Only a start for Newton's method, which then maximises Q; NaN when the weighted normal
+    equations are singular.
     """
     seen = counts.sum(axis=1) > 0
-    Z, e, n = Zt[seen], et[seen], counts[seen] + 0.5
+    shares = counts.sum(axis=0) / counts.sum()
+    Z, e = Zt[seen], et[seen]
+    n = counts[seen] + (shares if np.all(shares > 0) else 0.5)
     X = (Z[:, 1:, :] - Z[:, :1, :]).reshape(-1, Z.shape[2])
     y = (np.log(n[:, 1:] / n[:, :1]) - (e[:, 1:] - e[:, :1])).ravel()
-    root_w = np.sqrt(1.0 / (1.0 / n[:, 1:] + 1.0 / n[:, :1])).ravel()
-    theta, *_ = np.linalg.lstsq(X * root_w[:, None], y * root_w, rcond=None)
-    return np.asarray(theta)
+    w = (1.0 / (1.0 / n[:, 1:] + 1.0 / n[:, :1])).ravel()
+    Xw = X * w[:, None]
+    try:
+        return np.asarray(np.linalg.solve(Xw.T @ X, Xw.T @ y))
+    except np.linalg.LinAlgError:
+        return np.full(X.shape[1], np.nan)
 
 
 def maximise_pseudo(
@@ -204,7 +212,7 @@ def maximise_pseudo(
                 break
             t *= 0.5
         theta, state, ll = theta + t * step, state_new, new
-        if not np.all(np.isfinite(theta)) or np.max(np.abs(theta)) > 1e8:
+        if not np.abs(theta).max() <= 1e8:  # also catches NaN
             raise EstimationError(
                 f"the pseudo-likelihood has no finite maximiser (parameters run off: "
                 f"{dict(zip(names, np.round(theta, 3)))}); some choice is perfectly predicted "

@@ -117,8 +117,13 @@ class TransitionMatrices:
             landing = np.clip(base[:, :, None] + lo + np.arange(pmf.size), 0, S - 1)  # (J, S, K)
             B = np.einsum("jsk,sjp->kp", value[landing], omega)
             use = o["uncensored"]
-            contrib = (B[o["increment"][use] - lo] - pmf @ B) / max(int(use.sum()), 1)
-            return group_sums(unit[use], contrib, n_units)
+            # sum over unit i's uncensored transitions of (B[k_t] - pmf'B) / n_unc, from the
+            # unit's count of each increment
+            K = pmf.size
+            per_unit_k = np.bincount(unit[use] * K + (o["increment"][use] - lo),
+                                     minlength=n_units * K).reshape(n_units, K)
+            n_unc = max(int(use.sum()), 1)
+            return (per_unit_k @ B - per_unit_k.sum(axis=1)[:, None] * (pmf @ B)[None, :]) / n_unc
         s, a, s1 = o["state"], o["choice"], o["next_state"]
         FV = np.stack([m @ value for m in self.matrices], axis=1)  # (S, J)
         n_js, n_j, q = o["row_counts"], o["choice_counts"], o["pooled"]
