@@ -84,11 +84,11 @@ class PolicySystem:
         self.S, self.discount = S, float(discount)
         rows, cols, vals, which = [np.arange(S)], [np.arange(S)], [np.zeros(S)], [np.full(S, -1)]
         for j, m in enumerate(mats):
-            c = sparse.coo_matrix(m)
-            rows.append(c.row.astype(np.int64))
-            cols.append(c.col.astype(np.int64))
-            vals.append(c.data.astype(np.float64))
-            which.append(np.full(c.nnz, j))
+            m = sparse.csr_matrix(m)  # no copy for a CSR matrix
+            rows.append(np.repeat(np.arange(S), np.diff(m.indptr)))
+            cols.append(m.indices.astype(np.int64))
+            vals.append(m.data.astype(np.float64))
+            which.append(np.full(m.indices.size, j))
         r, c_, self._vals, self._which = map(np.concatenate, (rows, cols, vals, which))
         key = c_ * S + r
         union, self._pos = np.unique(key, return_inverse=True)

@@ -100,7 +100,7 @@ def state_space(panel: Panel, *, n_states: int | None = None) -> StateSpace:
                 f"state column {name!r} must hold integer codes 0..{int(n_states) - 1} when "
                 f"n_states={n_states}; found values in [{np.nanmin(raw):g}, {np.nanmax(raw):g}]."
             )
-        values = pd.DataFrame({name: np.arange(int(n_states))})
+        values = pd.DataFrame(np.arange(int(n_states))[:, None], columns=[name])
         return StateSpace(raw.astype(np.int64), values, int(n_states), "given")
     frame = panel.frame[list(panel.states)]
     codes = frame.groupby(list(panel.states), sort=True, observed=True).ngroup().to_numpy()
