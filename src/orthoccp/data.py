@@ -57,6 +57,17 @@ def _is_number_column(s: pd.Series) -> bool:
     return ptypes.is_numeric_dtype(s) and not ptypes.is_bool_dtype(s)
 
 
+def as_float(s: pd.Series) -> np.ndarray:
+    """A numeric or boolean column as a float64 array, missing values (NA) as NaN.
+
+    NumPy-typed columns are converted directly (``Series.to_numpy`` with ``na_value`` takes a
+    slower path even when nothing can be missing).
+    """
+    if isinstance(s.dtype, np.dtype) and s.dtype.kind in "iufb":
+        return s.to_numpy().astype(np.float64)
+    return s.to_numpy(dtype=np.float64, na_value=np.nan)
+
+
 def _n_missing(s: pd.Series) -> int:
     """Missing values (NaN, None, NA) in a column; NumPy integer and boolean columns hold none."""
     if isinstance(s.dtype, np.dtype) and s.dtype.kind in "iub":
@@ -68,7 +79,7 @@ def _bad_values(s: pd.Series) -> np.ndarray:
     """Rows that are missing (NaN, None, NA) or, in a numeric column, infinite."""
     bad = np.asarray(s.isna(), dtype=bool)
     if _is_number_column(s) and not ptypes.is_complex_dtype(s):
-        values = s.to_numpy(dtype=np.float64, na_value=np.nan)
+        values = as_float(s)
         bad = bad | ~np.isfinite(values)
     return bad
 
@@ -141,7 +152,7 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
                 f"categorical."
             )
         if ptypes.is_bool_dtype(s) or ptypes.is_numeric_dtype(s):
-            values = s.to_numpy(dtype=np.float64, na_value=np.nan)
+            values = as_float(s)
         else:
             raise InputError(
                 f"state column {col!r} has unsupported dtype {s.dtype}; use numbers, "
@@ -188,7 +199,7 @@ def _check_periods(per: pd.Series, period: str) -> np.ndarray:
         raise InputError(
             f"period column {period!r} must hold integers, got dtype {per.dtype}."
         )
-    values = per.to_numpy(dtype=np.float64, na_value=np.nan)
+    values = as_float(per)
     finite = np.isfinite(values)
     if not finite.all():
         n_bad = int((~finite).sum())
@@ -496,7 +507,7 @@ class Panel:
             raise InputError(
                 f"utility column {name!r} must be numeric, got dtype {s.dtype}."
             )
-        values = s.to_numpy(dtype=np.float64, na_value=np.nan)
+        values = as_float(s)
         n_bad = int((~np.isfinite(values)).sum())
         if n_bad:
             raise InputError(

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from .._errors import InputError
-from ..data import Panel
+from ..data import Panel, as_float
 from ..model import CONSTANT
 
 __all__ = ["StateSpace", "bin_states", "state_space", "utility_design"]
@@ -91,7 +91,7 @@ def state_space(panel: Panel, *, n_states: int | None = None) -> StateSpace:
         name = panel.states[0]
         col = panel.frame[name]
         if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
-            raw = col.to_numpy(dtype=np.float64, na_value=np.nan)
+            raw = as_float(col)
         else:
             raw = pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64)
         if (np.isnan(raw).any() or np.any(raw != np.round(raw)) or raw.min() < 0
