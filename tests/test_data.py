@@ -77,3 +77,29 @@ def test_bad_inputs_raise_clear_errors(kwargs: dict, message: str) -> None:
     opts.update({k: v for k, v in kwargs.items() if k != "frame"})
     with pytest.raises(oc.InputError, match=message.replace("(", r"\(").replace(")", r"\)")):
         oc.Panel(kwargs["frame"], **opts)
+
+
+@pytest.mark.parametrize(("periods", "expected"), [
+    ([0, 0, 1, 0, 1, 3], "2 rows share a unit and period (e.g. id='b', t=0)"),
+    ([0, 0, 0, 0, 1, 1], "5 rows share a unit and period (e.g. id='a', t=1)"),
+])
+def test_duplicate_unit_periods_are_counted_like_pandas_duplicated(periods: list, expected: str) -> None:
+    # pandas' DataFrame.duplicated(keep=False) is the reference count of rows involved.
+    df = _with(t=periods)
+    assert int(df.duplicated(["id", "t"], keep=False).sum()) == int(expected.split()[0])
+    with pytest.raises(oc.InputError, match=expected.replace("(", r"\(").replace(")", r"\)")):
+        oc.Panel(df, unit="id", period="t", choice="a", states=["x"])
+
+
+def test_unit_keys_survive_pickling_and_ignore_labels() -> None:
+    import pickle
+
+    p = oc.Panel(_frame(), unit="id", period="t", choice="a", states=["x"])
+    before = pickle.loads(pickle.dumps(p)).unit_keys  # computed after the round trip
+    keys = p.unit_keys
+    np.testing.assert_array_equal(before, keys)
+    np.testing.assert_array_equal(pickle.loads(pickle.dumps(p)).unit_keys, keys)
+    relabelled = oc.Panel(_frame().assign(id=lambda d: d["id"].map({"a": "z", "b": "y"})),
+                          unit="id", period="t", choice="a", states=["x"])
+    # units now sort the other way round; each keeps its key
+    np.testing.assert_array_equal(relabelled.unit_keys, keys[::-1])
