@@ -273,7 +273,9 @@ def estimate_discrete(
         The initial CCPs are clipped to [clip, 1 - clip] and renormalised (their logarithms
         enter the inversion). The model-implied CCPs of later iterations are not clipped.
     start : mapping, optional
-        Starting parameters of the first pseudo-likelihood maximisation (default zeros).
+        Starting parameters of the first pseudo-likelihood maximisation (default: zero or the
+        minimum logit chi-square estimate, whichever has the larger pseudo-likelihood; the
+        maximiser is the same, only the number of Newton steps differs).
     steps : int, default=1
         Pseudo-likelihood steps for ``estimator="pml"``.
     max_iterations : int, default=100
@@ -430,9 +432,9 @@ def estimate_discrete(
                              "total_s": time.perf_counter() - t_start})
 
 
-def _start(start: Mapping[str, float] | None, names: tuple[str, ...]) -> np.ndarray:
+def _start(start: Mapping[str, float] | None, names: tuple[str, ...]) -> np.ndarray | None:
     if start is None:
-        return np.zeros(len(names))
+        return None  # maximise_pseudo picks zero or the chi-square start
     if not isinstance(start, Mapping):
         raise InputError(f"start must map parameter names to numbers, got {start!r}.")
     unknown = set(start) - set(names)

@@ -147,7 +147,7 @@ def maximise_pseudo(
     Zt: np.ndarray,
     et: np.ndarray,
     counts: np.ndarray,
-    theta0: np.ndarray,
+    theta0: np.ndarray | None,
     *,
     names: tuple[str, ...],
     maxiter: int = 200,
@@ -155,10 +155,11 @@ def maximise_pseudo(
 ) -> PseudoFit:
     """Maximise the pseudo-likelihood by Newton's method with step halving.
 
-    Newton starts from ``theta0`` or from the minimum logit chi-square estimate
-    (:func:`grouped_logit_start`), whichever has the larger Q: Q is globally concave, so the
-    start changes only the number of steps, not the maximiser. Far from the maximiser (rare
-    choices), Newton from zero takes many short steps; the chi-square start is usually close.
+    Newton starts from ``theta0``; without one, from zero or the minimum logit chi-square
+    estimate (:func:`grouped_logit_start`), whichever has the larger Q. Q is globally concave,
+    so the start changes only the number of steps, not the maximiser: far from the maximiser
+    (rare choices) Newton from zero takes many short steps, and the chi-square start is
+    usually closer.
 
     Parameters
     ----------
@@ -166,8 +167,8 @@ def maximise_pseudo(
         (S, J, p) and (S, J) constructed regressors and offsets.
     counts : numpy.ndarray
         (S, J) choice counts.
-    theta0 : numpy.ndarray
-        Start (the previous iteration's estimate).
+    theta0 : numpy.ndarray or None
+        Start (the previous iteration's estimate, or the user's); None: see above.
     names : tuple of str
         Parameter names (for error messages).
     maxiter : int, default=200
@@ -184,13 +185,17 @@ def maximise_pseudo(
     seen = counts.sum(axis=1) > 0
     Zs, es, n = Zt[seen], et[seen], counts[seen]
     q = _Binary(Zs, es, n) if Zs.shape[1] == 2 else _Multinomial(Zs, es, n)
-    theta = np.asarray(theta0, dtype=np.float64).copy()
-    ll, state = q.loglik(theta)
-    alt = grouped_logit_start(Zt, et, counts)
-    if np.all(np.isfinite(alt)):
-        ll_alt, state_alt = q.loglik(alt)
-        if ll_alt > ll:
-            theta, ll, state = alt, ll_alt, state_alt
+    if theta0 is None:
+        theta = np.zeros(Zt.shape[2])
+        ll, state = q.loglik(theta)
+        alt = grouped_logit_start(Zt, et, counts)
+        if np.all(np.isfinite(alt)):
+            ll_alt, state_alt = q.loglik(alt)
+            if ll_alt > ll:
+                theta, ll, state = alt, ll_alt, state_alt
+    else:
+        theta = np.asarray(theta0, dtype=np.float64).copy()
+        ll, state = q.loglik(theta)
     it, step = 0, np.zeros_like(theta)
     for it in range(1, maxiter + 1):
         grad, info = q.derivatives(state)

@@ -124,12 +124,8 @@ def sieve_ccp(space: StateSpace, counts: np.ndarray, degree: int) -> np.ndarray:
     for j in range(1, J):
         Zt[:, j, (j - 1) * q:j * q] = X
     names = tuple(f"{lab}[{j}]" for j in range(1, J) for lab in ("1", *labels))
-    start = np.zeros(Zt.shape[2])
-    shares = counts.sum(axis=0)
-    if np.all(shares > 0):  # start at the constant-only fit: fewer Newton steps
-        start[::q] = np.log(shares[1:] / shares[0])
     try:
-        fit = maximise_pseudo(Zt, np.zeros((S, J)), counts, start, names=names)
+        fit = maximise_pseudo(Zt, np.zeros((S, J)), counts, None, names=names)
     except EstimationError as exc:
         raise EstimationError(
             f"the sieve logit of the initial CCPs (degree {degree}) failed: {exc} Lower "
