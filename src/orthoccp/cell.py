@@ -201,8 +201,8 @@ class CellFrequencyClassifier(ClassifierMixin, BaseEstimator):  # type: ignore[m
         # Rows of weight 0 carry no information: they do not make their cell "seen".
         keep = w > 0
         cells = _Cells(X[keep])
-        counts = np.zeros((cells.n_cells, K))
-        np.add.at(counts, (cells.codes, y_codes.reshape(-1)[keep]), w[keep])
+        flat = cells.codes * K + y_codes.reshape(-1)[keep]
+        counts = np.bincount(flat, weights=w[keep], minlength=cells.n_cells * K).reshape(cells.n_cells, K)
         self._cells = cells
         pooled = counts.sum(axis=0)
         self.pooled_proba_ = (pooled + alpha) / (pooled.sum() + K * alpha)
