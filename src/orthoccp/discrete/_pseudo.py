@@ -20,7 +20,7 @@ from scipy import special
 
 from .._errors import EstimationError
 
-__all__ = ["PseudoFit", "cell_logit", "grouped_logit_start", "maximise_pseudo"]
+__all__ = ["PseudoFit", "cell_logit", "grouped_logit_start", "maximise_pseudo", "newton_pseudo"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -143,7 +143,7 @@ def grouped_logit_start(Zt: np.ndarray, et: np.ndarray, counts: np.ndarray) -> n
         return np.full(X.shape[1], np.nan)
 
 
-def maximise_pseudo(
+def newton_pseudo(
     Zt: np.ndarray,
     et: np.ndarray,
     counts: np.ndarray,
@@ -152,36 +152,9 @@ def maximise_pseudo(
     names: tuple[str, ...],
     maxiter: int = 200,
     xtol: float = 1e-11,
-) -> PseudoFit:
-    """Maximise the pseudo-likelihood by Newton's method with step halving.
-
-    Newton starts from ``theta0``; without one, from zero or the minimum logit chi-square
-    estimate (:func:`grouped_logit_start`), whichever has the larger Q. Q is globally concave,
-    so the start changes only the number of steps, not the maximiser: far from the maximiser
-    (rare choices) Newton from zero takes many short steps, and the chi-square start is
-    usually closer.
-
-    Parameters
-    ----------
-    Zt, et : numpy.ndarray
-        (S, J, p) and (S, J) constructed regressors and offsets.
-    counts : numpy.ndarray
-        (S, J) choice counts.
-    theta0 : numpy.ndarray or None
-        Start (the previous iteration's estimate, or the user's); None: see above.
-    names : tuple of str
-        Parameter names (for error messages).
-    maxiter : int, default=200
-        Newton steps.
-    xtol : float, default=1e-11
-        Stop when every step component is below ``xtol * (1 + |theta|)``.
-
-    Raises
-    ------
-    EstimationError
-        When the information matrix is singular (parameters not identified) or the
-        maximiser runs off (perfect prediction).
-    """
+) -> tuple[np.ndarray, int]:
+    """The maximiser of Q and the number of Newton steps (see :func:`maximise_pseudo`),
+    without the scores and information at the estimate."""
     seen = counts.sum(axis=1) > 0
     Zs, es, n = Zt[seen], et[seen], counts[seen]
     q = _Binary(Zs, es, n) if Zs.shape[1] == 2 else _Multinomial(Zs, es, n)
@@ -228,6 +201,49 @@ def maximise_pseudo(
             f"the pseudo-likelihood maximisation did not converge in {maxiter} Newton steps "
             f"(last step {np.max(np.abs(step)):.3g})."
         )
+    return theta, it
+
+
+def maximise_pseudo(
+    Zt: np.ndarray,
+    et: np.ndarray,
+    counts: np.ndarray,
+    theta0: np.ndarray | None,
+    *,
+    names: tuple[str, ...],
+    maxiter: int = 200,
+    xtol: float = 1e-11,
+) -> PseudoFit:
+    """Maximise the pseudo-likelihood by Newton's method with step halving.
+
+    Newton starts from ``theta0``; without one, from zero or the minimum logit chi-square
+    estimate (:func:`grouped_logit_start`), whichever has the larger Q. Q is globally concave,
+    so the start changes only the number of steps, not the maximiser: far from the maximiser
+    (rare choices) Newton from zero takes many short steps, and the chi-square start is
+    usually closer.
+
+    Parameters
+    ----------
+    Zt, et : numpy.ndarray
+        (S, J, p) and (S, J) constructed regressors and offsets.
+    counts : numpy.ndarray
+        (S, J) choice counts.
+    theta0 : numpy.ndarray or None
+        Start (the previous iteration's estimate, or the user's); None: see above.
+    names : tuple of str
+        Parameter names (for error messages).
+    maxiter : int, default=200
+        Newton steps.
+    xtol : float, default=1e-11
+        Stop when every step component is below ``xtol * (1 + |theta|)``.
+
+    Raises
+    ------
+    EstimationError
+        When the information matrix is singular (parameters not identified) or the
+        maximiser runs off (perfect prediction).
+    """
+    theta, it = newton_pseudo(Zt, et, counts, theta0, names=names, maxiter=maxiter, xtol=xtol)
     P, logp = cell_logit(Zt, et, theta)
     g, info = _scores(Zt, P, counts.sum(axis=1))
     cond = np.linalg.cond(info)

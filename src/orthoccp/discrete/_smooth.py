@@ -18,7 +18,7 @@ from numpy.polynomial import legendre
 
 from .._errors import EstimationError
 from ..learners import _check_methods, _seeded, checked_proba
-from ._pseudo import maximise_pseudo
+from ._pseudo import cell_logit, newton_pseudo
 from ._states import StateSpace
 
 __all__ = ["classifier_ccp", "sieve_basis", "sieve_ccp"]
@@ -91,7 +91,7 @@ def sieve_ccp(space: StateSpace, counts: np.ndarray, degree: int) -> np.ndarray:
     with :math:`b(s)` the basis of :func:`sieve_basis`. Its regressors are functions of the
     state, so the row-level likelihood equals the likelihood of the cell counts
     :math:`\\sum_{s,j} n_{sj} \\ln P_j(s)`, which is maximised by Newton's method
-    (:func:`~orthoccp.discrete._pseudo.maximise_pseudo`). A polynomial series logit is a
+    (:func:`~orthoccp.discrete._pseudo.newton_pseudo`). A polynomial series logit is a
     standard smooth first stage for CCP estimators (Hotz & Miller 1993 use nonparametric
     first stages; Aguirregabiria & Mira 2010, Journal of Econometrics 156(1), 38--67, survey
     the choices; both from memory).
@@ -125,13 +125,13 @@ def sieve_ccp(space: StateSpace, counts: np.ndarray, degree: int) -> np.ndarray:
         Zt[:, j, (j - 1) * q:j * q] = X
     names = tuple(f"{lab}[{j}]" for j in range(1, J) for lab in ("1", *labels))
     try:
-        fit = maximise_pseudo(Zt, np.zeros((S, J)), counts, None, names=names)
+        theta, _ = newton_pseudo(Zt, np.zeros((S, J)), counts, None, names=names)
     except EstimationError as exc:
         raise EstimationError(
             f"the sieve logit of the initial CCPs (degree {degree}) failed: {exc} Lower "
             f"sieve_degree, or use initial_ccp='frequency'."
         ) from exc
-    return fit.ccp
+    return cell_logit(Zt, np.zeros((S, J)), theta)[0]
 
 
 def _features(values: pd.DataFrame) -> np.ndarray:
