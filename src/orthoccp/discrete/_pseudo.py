@@ -161,7 +161,7 @@ def newton_pseudo(
     if theta0 is None:
         theta = np.zeros(Zt.shape[2])
         ll, state = q.loglik(theta)
-        alt = grouped_logit_start(Zt, et, counts)
+        alt = grouped_logit_start(Zs, es, n)  # the observed cells: same start, no re-slicing
         if np.all(np.isfinite(alt)):
             ll_alt, state_alt = q.loglik(alt)
             if ll_alt > ll:
