@@ -103,3 +103,37 @@ def test_unit_keys_survive_pickling_and_ignore_labels() -> None:
                           unit="id", period="t", choice="a", states=["x"])
     # units now sort the other way round; each keeps its key
     np.testing.assert_array_equal(relabelled.unit_keys, keys[::-1])
+
+
+def _numeric_units() -> pd.DataFrame:
+    return _frame().assign(id=lambda d: d["id"].map({"a": 7, "b": 3}))
+
+
+def test_presorted_rows_give_the_panel_of_a_shuffled_copy() -> None:
+    # Reference: pandas' stable sort by (unit, period). A frame already in that order takes
+    # the path that skips the sort; it must give the same panel as any row order.
+    df = _numeric_units()
+    ordered = df.sort_values(["id", "t"], kind="mergesort").set_index(pd.Index([9, 8, 7, 6, 5, 4]))
+    opts = dict(unit="id", period="t", choice="a", states=["x", "road"])
+    a, b = oc.Panel(ordered, **opts), oc.Panel(df.iloc[::-1], **opts)
+    pd.testing.assert_frame_equal(a.frame, b.frame)
+    assert a.frame.index.equals(pd.RangeIndex(6))
+    for name in ("unit_codes", "periods", "next_row", "gap_after", "choice_codes", "features"):
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name))
+    # the panel does not share the caller's rows: editing them leaves it as it was
+    ordered.loc[ordered.index[0], "t"] = 99
+    assert a.frame["t"].iloc[0] == 0
+
+
+@pytest.mark.parametrize("missing", [None, np.nan])
+@pytest.mark.parametrize("numeric_units", [False, True])
+def test_missing_choices_are_counted_on_either_sort_path(missing: object, numeric_units: bool) -> None:
+    df = _numeric_units() if numeric_units else _frame()
+    df = df.astype({"a": object})
+    df.loc[[1, 4], "a"] = missing
+    if numeric_units:
+        df = df.sort_values(["id", "t"])  # the already-sorted path
+    with pytest.raises(oc.InputError, match="'a' column has 2 missing values"):
+        oc.Panel(df, unit="id", period="t", choice="a", states=["x"])
+    p = oc.Panel(df, unit="id", period="t", choice="a", states=["x"], missing="drop")
+    assert p.n_rows == 4 and p.choices == ("keep", "swap")

@@ -368,24 +368,24 @@ class Panel:
                     stacklevel=2,
                 )
 
-        for name in (unit, choice):
-            n_missing = _n_missing(frame[name])
-            if n_missing:
-                raise InputError(
-                    f"{name!r} column has {n_missing} missing values; drop those rows, or pass "
-                    f"missing='drop'."
-                )
-        _check_periods(frame[period], period)
+        n_missing = _n_missing(frame[unit])
+        if n_missing:
+            _raise_missing(unit, n_missing)
+        periods = _check_periods(frame[period], period)
 
         try:
-            sorted_frame = frame.sort_values([unit, period], kind="mergesort").reset_index(drop=True)
+            if _in_panel_order(frame[unit], periods):
+                sorted_frame = frame.reset_index(drop=True)  # the same rows a stable sort gives
+            else:
+                sorted_frame = frame.sort_values([unit, period], kind="mergesort").reset_index(
+                    drop=True)
+                periods = _check_periods(sorted_frame[period], period)
             unit_labels, unit_codes = _sorted_runs(sorted_frame[unit].to_numpy())
         except TypeError as exc:
             raise InputError(
                 f"unit column {unit!r} mixes label types that cannot be ordered (e.g. strings "
                 f"and numbers); use one type, e.g. with .astype(str)."
             ) from exc
-        periods = _check_periods(sorted_frame[period], period)
         n = len(sorted_frame)
         same_unit_next = np.zeros(n, dtype=bool)
         same_unit_next[:-1] = unit_codes[1:] == unit_codes[:-1]
@@ -410,6 +410,9 @@ class Panel:
                 f"choice column {choice!r} mixes label types (e.g. strings and numbers); "
                 f"use one type."
             ) from exc
+        n_missing = int(np.count_nonzero(codes < 0))
+        if n_missing:
+            _raise_missing(choice, n_missing)
         consecutive = np.zeros(n, dtype=bool)
         consecutive[:-1] = periods[1:] == periods[:-1] + 1
         linked = same_unit_next & consecutive
@@ -527,18 +530,41 @@ def _sorted_runs(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return values[start], np.cumsum(start) - 1
 
 
+def _raise_missing(name: str, n_missing: int) -> None:
+    raise InputError(
+        f"{name!r} column has {n_missing} missing values; drop those rows, or pass "
+        f"missing='drop'."
+    )
+
+
+def _in_panel_order(units: pd.Series, periods: np.ndarray) -> bool:
+    """Whether rows with numeric unit labels are already sorted by (unit, period).
+
+    Then a stable sort would return them as they are, so the copy it makes can be skipped.
+    Other labels (text, categories) are always sorted by pandas.
+    """
+    if not (isinstance(units.dtype, np.dtype) and units.dtype.kind in "iuf"):
+        return False
+    u = units.to_numpy()
+    later = u[1:] > u[:-1]
+    same = u[1:] == u[:-1]
+    return bool(np.all(later | (same & (periods[1:] >= periods[:-1]))))
+
+
 def _sorted_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Sorted distinct labels and each value's position among them, like ``np.unique(...,
-    return_inverse=True)`` but by hashing: only the distinct labels are sorted. Raises
-    TypeError for labels that cannot be ordered (e.g. strings mixed with numbers)."""
+    return_inverse=True)`` but by hashing: only the distinct labels are sorted. Missing values
+    (NaN, None, NA) get code -1 and are not labels. Raises TypeError for labels that cannot
+    be ordered (e.g. strings mixed with numbers)."""
     codes, uniques = pd.factorize(values, sort=False)
     uniques = np.asarray(uniques, dtype=values.dtype)
     kinds = {type(u) for u in uniques} if uniques.dtype.kind == "O" else set()
     if len(kinds) > 1 and not all(issubclass(k, (int, float, np.number)) for k in kinds):
         raise TypeError(f"labels of mixed types {sorted(k.__name__ for k in kinds)}")
     order = np.argsort(uniques, kind="stable")
-    rank = np.empty_like(order)
+    rank = np.empty(order.size + 1, dtype=order.dtype)
     rank[order] = np.arange(order.size)
+    rank[-1] = -1  # code -1 (missing) stays -1
     return uniques[order], rank[codes]
 
 
