@@ -241,6 +241,31 @@ def test_increment_transitions_reproduce_reference(bus_frame: pd.DataFrame) -> N
     np.testing.assert_allclose(ours.dense(), ref.matrices, atol=1e-15)
 
 
+
+def test_a_forgotten_reset_choice_is_named(bus_panel: oc.Panel) -> None:
+    # Without reset_choices a replacement reads as a huge negative increment; the error names
+    # the choice and the option instead of only saying that nothing could be counted.
+    with pytest.raises(oc.InputError, match=r"After choice 'replace' .* reset_choices=\['replace'\]"):
+        estimate_discrete(bus_panel, utility=BUS.utility_spec(), discount=0.975,
+                          n_states=BUS.n_states, transitions="increments")
+
+
+def test_mostly_censored_increments_warn_with_the_count() -> None:
+    # 20 states; choice 1 restarts at 0 but is not declared a reset, so its increments
+    # (-4, -3) make the range -4..1 and censor every transition from states 0..3.
+    state = np.array([0, 1, 2, 3, 0, 1, 2, 3, 4, 3, 4, 5])
+    choice = np.array([0] * 8 + [1, 1, 0, 0])
+    nxt = state + np.where(choice == 1, -state, 1)
+    with pytest.warns(oc.OrthoCCPWarning, match="only 3 of 12 observed transitions") as rec:
+        tm = estimate_transition_matrices(state, choice, nxt, n_states=20, choices=(0, 1),
+                                          method="increments")
+    assert "reset_choices=[1]" in str(rec[0].message)
+    assert tm.n_transitions == 3
+    # declared, the reset leaves every transition counted and the warning away
+    tm = estimate_transition_matrices(state, choice, nxt, n_states=20, choices=(0, 1),
+                                      method="increments", reset_choices=[1])
+    assert tm.n_transitions == 12
+
 # --------------------------------------------------------------------------- forward simulation
 def test_forward_simulated_values_converge_to_inversion(inventory_panel: oc.Panel) -> None:
     # Hotz, Miller, Sanders & Smith (1994): the simulated continuation is an unbiased

@@ -468,7 +468,8 @@ def _covariance(
     S, J, p = g.shape
     beta = problem.discount
     n_s = problem.counts.sum(axis=1)
-    row_scores = g[problem.row_state, problem.row_choice]  # (n_rows, p)
+    # (n_rows, p) each row's score; a flat take is much faster than g[state, choice]
+    row_scores = np.take(g.reshape(S * J, p), problem.row_state * J + problem.row_choice, axis=0)
     clusters = problem.row_unit if cov == "clustered" else np.arange(row_scores.shape[0])
     G = int(clusters.max()) + 1
     score = group_sums(clusters, row_scores, G)

@@ -25,6 +25,7 @@ the first step's sampling noise to their standard errors (:meth:`TransitionMatri
 from __future__ import annotations
 
 from collections.abc import Hashable, Mapping, Sequence
+import warnings
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -32,7 +33,7 @@ import numpy as np
 from scipy import sparse
 
 from .._arrays import group_sums
-from .._errors import InputError
+from .._errors import InputError, OrthoCCPWarning
 
 __all__ = ["TransitionMatrices", "estimate_transition_matrices"]
 
@@ -337,6 +338,24 @@ def _bases(
     return out
 
 
+def _widest_choice(
+    inc: np.ndarray, choice: np.ndarray, choices: tuple[Hashable, ...], resets: np.ndarray
+) -> str:
+    """A hint naming the non-reset choice after which the increments spread most."""
+    spread = {j: int(np.ptp(inc[choice == j])) for j in np.unique(choice)
+              if j not in set(resets.tolist())}
+    if not spread:
+        return "Narrow increment_range, or check base."
+    j = max(spread, key=lambda k: spread[k])
+    low, high = int(inc[choice == j].min()), int(inc[choice == j].max())
+    return (
+        f"After choice {choices[j]!r} the increments run from {low} to {high}: if that choice "
+        f"restarts the state (a replacement, a renewal), pass reset_choices=[{choices[j]!r}] "
+        f"(it restarts at reset_state); otherwise give its base states with base=, or narrow "
+        f"increment_range."
+    )
+
+
 def _increments(
     state: np.ndarray,
     choice: np.ndarray,
@@ -372,8 +391,17 @@ def _increments(
         )
     if not uncensored.any():
         raise InputError(
-            "every transition starts where increments are censored by the first or last "
-            "state; no increment can be counted."
+            f"no increment can be counted: with observed increments from {lo} to {hi}, every "
+            f"transition starts where part of that range would leave the states 0..{S - 1} "
+            f"(censored). {_widest_choice(inc, choice, choices, resets)}"
+        )
+    n_used = int(uncensored.sum())
+    if n_used < 0.5 * inc.size:
+        warnings.warn(
+            f"only {n_used} of {inc.size} observed transitions enter the increment pmf: the "
+            f"others start within reach of the first or last state for increments from {lo} "
+            f"to {hi}, so they are censored. {_widest_choice(inc, choice, choices, resets)}",
+            OrthoCCPWarning, stacklevel=4,
         )
     pmf = np.bincount(inc[uncensored] - lo, minlength=hi - lo + 1).astype(np.float64)
     pmf /= pmf.sum()
