@@ -67,6 +67,25 @@ def test_inversion_equals_value_function_three_choices_no_anchor() -> None:
     np.testing.assert_allclose(V, sol.value, rtol=0, atol=1e-8)
 
 
+
+def test_each_factorisation_keeps_its_own_values() -> None:
+    # PolicySystem refills one matrix object per factor() call; an earlier LU must still
+    # solve its own system (checked against a dense solve of I - beta F^P, numpy.linalg).
+    from scipy import sparse
+
+    from orthoccp.discrete._inversion import PolicySystem
+
+    mats = tuple(sparse.csr_matrix(m) for m in BUS.transitions())
+    system = PolicySystem(mats, BUS.discount)
+    rng = np.random.default_rng(3)
+    P1, P2 = (rng.dirichlet([1.0, 1.0], size=BUS.n_states) for _ in range(2))
+    b = rng.normal(size=BUS.n_states)
+    lu1 = system.factor(P1)
+    system.factor(P2)
+    A1 = np.eye(BUS.n_states) - BUS.discount * sum(
+        P1[:, [j]] * mats[j].toarray() for j in range(2))
+    np.testing.assert_allclose(lu1.solve(b), np.linalg.solve(A1, b), rtol=1e-10, atol=1e-10)
+
 def test_policy_step_has_fixed_point_at_model_ccps() -> None:
     # Aguirregabiria & Mira (2002, Prop. 1): Lambda(u + beta F W(P)) = P at the solution.
     sol = INVENTORY.solve()

@@ -20,7 +20,7 @@ from ..nuisance import clip_probabilities
 from ..results import RowAccounting
 from ._forward import default_horizon, simulate_continuation
 from ._inversion import InversionTerms, PolicySystem, inversion_terms
-from ._pseudo import PseudoFit, maximise_pseudo
+from ._pseudo import PseudoFit, cell_logit, newton_pseudo, pseudo_fit
 from ._results import DiscreteResults
 from ._smooth import classifier_ccp, sieve_ccp
 from ._states import StateSpace, state_space, utility_design
@@ -394,14 +394,13 @@ def estimate_discrete(
 
     limit = max_iterations if estimator == "npl" else steps
     changes: list[float] = []
-    fit: PseudoFit | None = None
     last_terms: Any = None
     P_used = P
     for _ in range(limit):
         Zt, et, last_terms = terms(P)
-        fit = maximise_pseudo(Zt, et, problem.counts, theta, names=names)
-        theta = fit.theta
-        new = fit.ccp.copy()
+        theta_hat, n_steps = newton_pseudo(Zt, et, problem.counts, theta, names=names)
+        theta = theta_hat
+        new = cell_logit(Zt, et, theta_hat)[0]  # the model-implied CCPs at this step's estimate
         if values == "simulation":
             keep = np.ones(new.shape[0], dtype=bool)
             keep[observed] = False
@@ -411,7 +410,8 @@ def estimate_discrete(
         P = new
         if estimator == "npl" and changes[-1] < tol:
             break
-    assert fit is not None
+    # scores, information and the identification check only at the last step's estimate
+    fit = pseudo_fit(Zt, et, problem.counts, theta_hat, names=names, iterations=n_steps)
     converged = estimator != "npl" or changes[-1] < tol
     if not converged:
         warnings.warn(
@@ -434,7 +434,7 @@ def estimate_discrete(
 
 def _start(start: Mapping[str, float] | None, names: tuple[str, ...]) -> np.ndarray | None:
     if start is None:
-        return None  # maximise_pseudo picks zero or the chi-square start
+        return None  # newton_pseudo picks zero or the chi-square start
     if not isinstance(start, Mapping):
         raise InputError(f"start must map parameter names to numbers, got {start!r}.")
     unknown = set(start) - set(names)

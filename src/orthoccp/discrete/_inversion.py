@@ -75,8 +75,9 @@ class PolicySystem:
     """The sparse matrix :math:`I - \\beta F^P` with its pattern fixed once.
 
     The union pattern of the identity and all :math:`F_j` is built in CSC order at
-    construction; each :meth:`factor` call only refills the values (one ``bincount``) and
-    runs ``scipy.sparse.linalg.splu``, so repeated solves at new CCPs stay cheap.
+    construction; each :meth:`factor` call only refills the values of one matrix object (one
+    ``bincount``) and runs ``scipy.sparse.linalg.splu``, so repeated solves at new CCPs stay
+    cheap.
     """
 
     def __init__(self, mats: Sequence[sparse.csr_matrix], discount: float) -> None:
@@ -98,6 +99,9 @@ class PolicySystem:
         self._diag = np.searchsorted(union, np.arange(S) * S + np.arange(S))
         self._nnz = union.size
         self._entries = self._which >= 0
+        # one matrix object whose values each factor() call overwrites (its pattern is fixed)
+        self._A = sparse.csc_matrix(
+            (np.zeros(self._nnz), self.indices, self.indptr), shape=(S, S))
 
     def factor(self, ccp: np.ndarray) -> Any:
         """Sparse LU of :math:`I - \\beta \\sum_j \\mathrm{diag}(P_j) F_j` at ``ccp``."""
@@ -105,7 +109,8 @@ class PolicySystem:
         w = ccp[self._rows_all[e], self._which[e]] * self._vals[e]
         data = -self.discount * np.bincount(self._pos[e], weights=w, minlength=self._nnz)
         data[self._diag] += 1.0
-        A = sparse.csc_matrix((data, self.indices, self.indptr), shape=(self.S, self.S))
+        A = self._A
+        A.data[:] = data  # splu copies the values into its factors
         try:
             return splu(A)
         except RuntimeError as exc:

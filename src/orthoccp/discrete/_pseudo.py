@@ -20,7 +20,8 @@ from scipy import special
 
 from .._errors import EstimationError
 
-__all__ = ["PseudoFit", "cell_logit", "grouped_logit_start", "maximise_pseudo", "newton_pseudo"]
+__all__ = ["PseudoFit", "cell_logit", "grouped_logit_start", "maximise_pseudo", "newton_pseudo",
+           "pseudo_fit"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -244,6 +245,20 @@ def maximise_pseudo(
         maximiser runs off (perfect prediction).
     """
     theta, it = newton_pseudo(Zt, et, counts, theta0, names=names, maxiter=maxiter, xtol=xtol)
+    return pseudo_fit(Zt, et, counts, theta, names=names, iterations=it)
+
+
+def pseudo_fit(
+    Zt: np.ndarray,
+    et: np.ndarray,
+    counts: np.ndarray,
+    theta: np.ndarray,
+    *,
+    names: tuple[str, ...],
+    iterations: int,
+) -> PseudoFit:
+    """The CCPs, scores and information of Q at a maximiser ``theta`` (see
+    :func:`maximise_pseudo`); raises EstimationError when the information is ill-conditioned."""
     P, logp = cell_logit(Zt, et, theta)
     g, info = _scores(Zt, P, counts.sum(axis=1))
     cond = np.linalg.cond(info)
@@ -255,5 +270,5 @@ def maximise_pseudo(
         )
     return PseudoFit(
         theta=theta, loglik=float(np.sum(counts * np.where(counts > 0, logp, 0.0))), ccp=P,
-        scores=g, information=info, iterations=it,
+        scores=g, information=info, iterations=iterations,
     )
