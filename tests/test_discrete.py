@@ -495,3 +495,16 @@ def test_group_sums_equal_numpy_add_at() -> None:
     np.add.at(expected, codes, values)
     assert np.array_equal(group_sums(codes, values, 45), expected)
     assert np.array_equal(group_sums(codes, values[:, 0], 45), expected[:, 0])
+
+
+def test_label_index_equals_pandas_and_is_a_fresh_object() -> None:
+    # Reference: pd.Index built directly; the cached template must not change dtypes
+    # ((1, 2) and (1.0, 2.0) compare equal as tuples) nor share a renamable object.
+    from orthoccp._arrays import label_index
+
+    for labels in (("theta11", "RC"), (1, 2), (1.0, 2.0), (True, False)):
+        pd.testing.assert_index_equal(label_index(labels, "parameter"),
+                                      pd.Index(list(labels), name="parameter"), exact=True)
+    a = label_index(("x", "y"), "parameter")
+    a.name = "renamed"
+    assert label_index(("x", "y"), "parameter").name == "parameter"

@@ -2,9 +2,13 @@
 
 from __future__ import annotations
 
-import numpy as np
+import functools
+from collections.abc import Hashable, Iterable
 
-__all__ = ["group_sums"]
+import numpy as np
+import pandas as pd
+
+__all__ = ["group_sums", "label_index"]
 
 
 def group_sums(codes: np.ndarray, values: np.ndarray, n_groups: int) -> np.ndarray:
@@ -37,3 +41,22 @@ def group_sums(codes: np.ndarray, values: np.ndarray, n_groups: int) -> np.ndarr
     for k in range(values.shape[1]):
         out[:, k] = np.bincount(codes, weights=values[:, k], minlength=n_groups)
     return out
+
+
+@functools.lru_cache(maxsize=256)
+def _label_template(labels: tuple[Hashable, ...], kinds: tuple[type, ...],
+                    name: Hashable) -> pd.Index:
+    return pd.Index(list(labels), name=name)
+
+
+def label_index(labels: Iterable[Hashable], name: Hashable = None) -> pd.Index:
+    """``pd.Index(list(labels), name=name)``, a fresh object each call.
+
+    Inferring the dtype of text labels makes building a small Index cost tens of
+    microseconds, which adds up in estimators called thousands of times (Monte Carlo runs,
+    benchmarks). The Index is built once per distinct labels and then copied, so every caller
+    gets its own object (renaming it in place cannot leak to others). The labels' types are
+    part of the cache key, so ``(1, 2)`` and ``(1.0, 2.0)`` keep their own dtypes.
+    """
+    labels = tuple(labels)
+    return _label_template(labels, tuple(type(v) for v in labels), name).copy()

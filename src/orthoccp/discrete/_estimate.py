@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 from scipy import sparse
 
-from .._arrays import group_sums
+from .._arrays import group_sums, label_index
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._version import __version__
 from ..data import Panel
@@ -515,8 +515,9 @@ def _covariance(
     shares["cross"] = 2 * factor * np.einsum("ga,ga->a", parts["choices"], parts["transitions"]) / diag
     if simulated:
         shares["simulation"] = np.diag(sim_var) / diag
-    decomposition = pd.DataFrame(np.column_stack(list(shares.values())), columns=list(shares),
-                                 index=pd.Index(problem.parameters, name="parameter"))
+    decomposition = pd.DataFrame(np.column_stack(list(shares.values())),
+                                 columns=label_index(shares),
+                                 index=label_index(problem.parameters, "parameter"))
     return _Covariance(cov=V, influence=influence, clusters=clusters, factor=factor,
                        decomposition=decomposition, information=info, parts=parts)
 
@@ -543,7 +544,7 @@ def _results(
     horizon: int,
     timings: dict[str, float],
 ) -> DiscreteResults:
-    index = pd.Index(problem.parameters, name="parameter")
+    index = label_index(problem.parameters, "parameter")
     se = np.sqrt(np.diag(cv.cov))
     n_linked = int((panel.next_row >= 0).sum())
     accounting = RowAccounting(
@@ -574,7 +575,7 @@ def _results(
         moments="pseudo_likelihood", version=__version__,
         estimator=estimator, values=values, converged=converged, last_change=changes[-1],
         changes=tuple(changes), loglik=fit.loglik, n_states=problem.space.n_states,
-        ccp=pd.DataFrame(ccp, columns=list(problem.choices)), value=value,
+        ccp=pd.DataFrame(ccp, columns=label_index(problem.choices)), value=value,
         transitions=problem.transitions, n_paths=int(n_paths) if simulated else 0,
         horizon=int(horizon) if simulated else 0, information=cv.information,
         influence_parts=cv.parts,

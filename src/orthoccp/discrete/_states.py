@@ -17,6 +17,7 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 
+from .._arrays import label_index
 from .._errors import InputError
 from ..data import Panel, as_float
 from ..model import CONSTANT
@@ -100,7 +101,7 @@ def state_space(panel: Panel, *, n_states: int | None = None) -> StateSpace:
                 f"state column {name!r} must hold integer codes 0..{int(n_states) - 1} when "
                 f"n_states={n_states}; found values in [{np.nanmin(raw):g}, {np.nanmax(raw):g}]."
             )
-        values = pd.DataFrame(np.arange(int(n_states))[:, None], columns=[name])
+        values = pd.DataFrame(np.arange(int(n_states))[:, None], columns=label_index([name]))
         return StateSpace(raw.astype(np.int64), values, int(n_states), "given")
     frame = panel.frame[list(panel.states)]
     codes = frame.groupby(list(panel.states), sort=True, observed=True).ngroup().to_numpy()

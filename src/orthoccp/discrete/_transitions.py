@@ -191,7 +191,12 @@ def estimate_transition_matrices(
     reset_state : int, default=0
         Where a reset choice restarts the state before the increment (``"increments"``).
     increment_range : (int, int), optional
-        Smallest and largest increment (``"increments"``); default the observed range.
+        Smallest and largest increment (``"increments"``); default the observed range. A
+        transition from a base state b with b + smallest < 0 or b + largest > S - 1 is
+        censored (its increment could have been cut off at the edge) and does not enter the
+        pmf; :attr:`TransitionMatrices.n_transitions` counts the ones that do, and an
+        :class:`~orthoccp.OrthoCCPWarning` names the count when fewer than half do (often a
+        restart choice missing from ``reset_choices``).
     base : mapping, optional
         Choice label -> (S,) integer base states :math:`b_j` (``"increments"``); choices not
         given use x (or ``reset_state`` for reset choices).
