@@ -54,14 +54,16 @@ DESCRIPTION = {
 }
 
 
-def cell_key(scenario: str, units: int, learner: str) -> str:
-    """The key of a cell in ``coverage.json``, e.g. ``"ebike|N=500|logit"``."""
-    return f"{scenario}|N={units}|{learner}"
+def cell_key(scenario: str, units: int, learner: str, ccp_steps: int = 0) -> str:
+    """The key of a cell in ``coverage.json``, e.g. ``"ebike|N=500|logit"``, with
+    ``"|ccp_steps=2"`` appended when the debiased estimator takes model-implied CCP steps."""
+    key = f"{scenario}|N={units}|{learner}"
+    return f"{key}|ccp_steps={ccp_steps}" if ccp_steps else key
 
 
 def cell_slug(key: str) -> str:
     """A file-name form of a cell key, e.g. ``"ebike_N500_logit"``."""
-    return key.replace("|N=", "_N").replace("|", "_")
+    return key.replace("|N=", "_N").replace("|ccp_steps=", "_ccpsteps").replace("|", "_")
 
 
 # --------------------------------------------------------------------------- storage
@@ -122,9 +124,10 @@ def run_cell(
     reps: int,
     jobs: int,
     checkpoint: int,
+    ccp_steps: int = 0,
 ) -> str:
     """Bring one cell to ``reps`` replications, saving after every ``checkpoint``."""
-    key = cell_key(scenario, units, learner)
+    key = cell_key(scenario, units, learner, ccp_steps)
     entry = doc["cells"].get(key)
     done = stored_results(entry)
     have = 0 if done is None else done.reps
@@ -149,6 +152,7 @@ def run_cell(
             folds=FOLDS,
             seed=SEED,
             jobs=jobs,
+            model_ccp_steps=ccp_steps,
             progress=False,
         )
         if done is not None and part.settings != done.settings:
@@ -166,6 +170,7 @@ def run_cell(
             "periods": PERIODS,
             "folds": FOLDS,
             "seed": SEED,
+            **({"model_ccp_steps": ccp_steps} if ccp_steps else {}),
             "target_reps": reps,
             "status": status,
             "mc": done.to_dict(),
@@ -233,6 +238,8 @@ def markdown(doc: dict[str, Any], *, source: str = "benchmarks/results/coverage.
             mc = e["mc"]
             head = e["units"] == HEADLINE["units"] and e["learner"] == HEADLINE["learner"]
             scen = f"**{e['scenario']}**" if head else e["scenario"]
+            if e.get("model_ccp_steps"):
+                scen += f" ({e['model_ccp_steps']} model CCP steps)"
             for r in mc["summary"]:
                 lines.append(
                     f"| {scen} | {e['units']} | {e['learner']} | {mc['reps']} | "
@@ -292,6 +299,9 @@ def parse(argv: Sequence[str] | None = None) -> argparse.Namespace:
     ap.add_argument("--learner", nargs="+", choices=LEARNERS, default=list(LEARNERS))
     ap.add_argument("--jobs", type=int, default=1,
                     help="worker processes; learners are single-threaded (default: 1)")
+    ap.add_argument("--model-ccp-steps", type=int, default=0,
+                    help="model-implied CCP steps of the debiased estimator (terminal "
+                         "scenarios; stored as separate cells, key suffix |ccp_steps=K)")
     ap.add_argument("--checkpoint", type=int, default=10,
                     help="save after this many replications (default: 10)")
     ap.add_argument("--results", type=Path, default=RESULTS / "coverage.json")
@@ -321,7 +331,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         t0 = time.perf_counter()
         for scenario, units, learner in cells:
             run_cell(doc, path, scenario=scenario, units=units, learner=learner, reps=a.reps,
-                     jobs=a.jobs, checkpoint=a.checkpoint)
+                     jobs=a.jobs, checkpoint=a.checkpoint, ccp_steps=a.model_ccp_steps)
             write_report(doc, path, plots=False)
         written = write_report(doc, path, plots=not a.no_plots)
     print(f"done in {time.perf_counter() - t0:.0f} s; wrote {path}, "

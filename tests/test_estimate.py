@@ -134,3 +134,58 @@ def test_solve_without_root_raises_with_diagnostics() -> None:
     sim = simulate("producers", units=300, periods=8, seed=2)
     with pytest.raises(oc.EstimationError, match="condition number of G"):
         _fit(sim)
+
+
+# --------------------------------------------------------------------------- model-implied CCPs
+@pytest.mark.parametrize("name", ["producers", "ebike3"])
+def test_model_implied_ccps_at_the_truth_are_the_bellman_solution(big_sims, name: str) -> None:  # type: ignore[no-untyped-def]
+    # Arcidiacono & Miller (2011) finite dependence: Lambda(w(theta0, mu0)) with the exact
+    # continuation expectations is the CCP of the model's own Bellman solution, which the
+    # simulator computes by value iteration, a different route. Both are exact up to the
+    # solver's tolerance, so 1e-8.
+    from orthoccp.estimate import model_ccp
+
+    sim = big_sims[name]
+    panel, model, order = panel_and_model(sim)
+    bound = model.bind(panel)
+    theta0 = np.array([sim.truth[p] for p in bound.parameters])
+    P = model_ccp(bound, truth_nuisances(sim, panel, model, order), theta0, clip=1e-12)
+    np.testing.assert_allclose(P, sim.ccp[:, order], rtol=0, atol=1e-8)
+
+
+def test_model_ccp_steps_are_seeded_and_counted() -> None:
+    from orthoccp.simulate import simulate
+
+    sim = simulate("producers", units=300, periods=8, seed=2)
+    panel, model, _ = panel_and_model(sim)
+    opts = dict(learner="lightgbm", folds=3, seed=4)
+    base = oc.estimate(panel, model, **opts)
+    a = oc.estimate(panel, model, model_ccp_steps=2, **opts)
+    b = oc.estimate(panel, model, model_ccp_steps=2, **opts)
+    np.testing.assert_array_equal(a.params.to_numpy(), b.params.to_numpy())
+    np.testing.assert_array_equal(a.std_errors.to_numpy(), b.std_errors.to_numpy())
+    # each step refits the ln P_R regression of the one continuation choice in every fold
+    assert a.n_learner_fits == base.n_learner_fits + 2 * 3
+    assert a.nuisance_source == "cross-fitted, then 2 model-implied CCP steps"
+    pd.testing.assert_series_equal(a.plugin_params, base.plugin_params)
+    assert not np.allclose(a.params.to_numpy(), base.params.to_numpy())
+
+
+@pytest.mark.parametrize(("kwargs", "message"), [
+    (dict(model_ccp_steps=-1), "model_ccp_steps must be an integer >= 0, got -1"),
+    (dict(model_ccp_steps=True), "model_ccp_steps must be an integer >= 0, got True"),
+    (dict(model_ccp_steps=1, moments="renewal_robust"), "needs the standard moment"),
+])
+def test_model_ccp_steps_bad_options(small_ebike, kwargs: dict, message: str) -> None:  # type: ignore[no-untyped-def]
+    panel, model, _ = panel_and_model(small_ebike)
+    model = oc.Model(anchor=model.anchor, kind=model.kind, discount=model.discount,
+                     utility=model.utility, persistent=tuple(small_ebike.persistent))
+    with pytest.raises(oc.InputError, match=message):
+        oc.estimate(panel, model, learner="logit", folds=3, **kwargs)
+
+
+def test_model_ccp_steps_need_cross_fitted_nuisances(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    panel, model, order = panel_and_model(small_ebike)
+    with pytest.raises(oc.InputError, match="needs cross-fitted nuisances"):
+        oc.estimate(panel, model, nuisances=truth_nuisances(small_ebike, panel, model, order),
+                    model_ccp_steps=1, moments="standard")

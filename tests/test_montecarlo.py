@@ -280,3 +280,21 @@ def test_cli_out_must_be_json(tmp_path: Path, capsys: pytest.CaptureFixture[str]
     code = main(["montecarlo", "ebike", "--reps", "1", "--out", str(tmp_path / "mc.csv")])
     assert code == 2
     assert ".json file name" in capsys.readouterr().err
+
+
+def test_model_ccp_steps_setting_round_trips_and_is_checked() -> None:
+    from orthoccp.montecarlo import MonteCarloSettings
+
+    s = MonteCarloSettings(scenario="producers", units=100, periods=4, model_ccp_steps=2)
+    assert MonteCarloSettings.from_dict(s.to_dict()) == s
+    # documents written before the option keep their settings (no key, steps 0)
+    plain = MonteCarloSettings(scenario="producers", units=100, periods=4)
+    assert "model_ccp_steps" not in plain.to_dict()
+    assert MonteCarloSettings.from_dict(plain.to_dict()) == plain
+    with pytest.raises(oc.InputError, match="pass moments='standard'"):
+        run_montecarlo("ebike", reps=1, units=50, periods=4, model_ccp_steps=1)
+    with pytest.raises(oc.InputError, match="applies to the 'debiased' estimator"):
+        run_montecarlo("producers", reps=1, units=50, periods=4, model_ccp_steps=1,
+                       estimators=("naive",))
+    with pytest.raises(oc.InputError, match="model_ccp_steps must be an integer >= 0"):
+        run_montecarlo("producers", reps=1, units=50, periods=4, model_ccp_steps=-1)

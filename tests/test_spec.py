@@ -120,7 +120,8 @@ def test_defaults_and_options() -> None:
     # Keys left out are not passed: the estimator's own defaults apply.
     assert spec.estimate_options() == {}
     assert spec.first_stage.learner is None and spec.inference.debias is None
-    doc["first_stage"] = {"learner": "logit", "folds": 3, "seed": 2, "splits": 2, "scheme": "plain", "clip": 0.001}
+    doc["first_stage"] = {"learner": "logit", "folds": 3, "seed": 2, "splits": 2, "scheme": "plain", "clip": 0.001,
+                          "model_ccp_steps": 2}
     doc["inference"] = {"moments": "standard", "debias": False, "cov": "clustered", "small_sample": False}
     assert parse_spec(doc).estimate_options() == {
         "learner": "logit",
@@ -129,6 +130,7 @@ def test_defaults_and_options() -> None:
         "splits": 2,
         "scheme": "plain",
         "clip": 0.001,
+        "model_ccp_steps": 2,
         "cov": "clustered",
         "small_sample": False,
         "debias": False,

@@ -683,6 +683,7 @@ def _cmd_montecarlo(args: argparse.Namespace) -> int:
         moments=moments,
         estimators=args.estimators,
         n_covariates=args.covariates,
+        model_ccp_steps=args.model_ccp_steps,
     )
     print(mc.table())
     failures = {k: v for k, v in mc.failures.items() if v}
@@ -1095,6 +1096,14 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         metavar="P",
         help="covariates per unit (default: the scenario's)",
+    )
+    mc.add_argument(
+        "--model-ccp-steps",
+        type=int,
+        default=0,
+        metavar="K",
+        help="model-implied CCP steps of the debiased estimator (needs the standard moment; "
+        "default: 0)",
     )
     mc.add_argument(
         "--out",

@@ -22,7 +22,7 @@ from .instruments import persistent_feature_columns, plan_robust, renewal_robust
 from .learners import resolve_learners
 from .model import BoundModel, Model
 from .moments import build_moment_system
-from .nuisance import Nuisances, crossfit_nuisances
+from .nuisance import Nuisances, clip_probabilities, crossfit_nuisances, refit_anchor_target
 from .results import Results, RowAccounting
 from .solver import solve_orthogonal, solve_plugin
 
@@ -123,6 +123,7 @@ def estimate(
     small_sample: bool = True,
     moments: str | None = None,
     nuisances: Nuisances | None = None,
+    model_ccp_steps: int = 0,
     backend: Any = None,
     n_jobs: int | None = None,
 ) -> Results:
@@ -166,6 +167,16 @@ def estimate(
         persistent states, ``"standard"`` otherwise.
     nuisances : Nuisances, optional
         Known nuisance values (e.g. the simulator's exact ones) instead of cross-fitting.
+    model_ccp_steps : int, default=0
+        Model-implied CCP steps after the first solve. Each step replaces the learner's CCP
+        by the model's :math:`\Lambda(\hat\theta)` (built from the current continuation
+        expectations, clipped to ``clip``), refits the continuation regressions of its
+        :math:`\ln P_R` target (same folds; K regressor fits per continuation choice) and
+        solves again. Where the anchor choice is so rare that no learner can resolve its
+        probability (states from which the anchor is essentially never chosen), the model's
+        utility index extrapolates it instead of the learner's floor. Needs the standard
+        moment (``moments="standard"``: terminal models, or renewal models that ask for it)
+        and cross-fitted nuisances. See ``docs/validation.md`` for when it helps.
     backend : {"sequential", "joblib", "dask"}, distributed.Client or str, optional
         Where the cross-fitting's learner fits run: in this process, in ``n_jobs`` joblib
         worker processes, or on a Dask cluster (a ``distributed.Client``, a scheduler address
@@ -223,6 +234,7 @@ def estimate(
         )
     bound = model.bind(panel)
     moments = _choose_moments(bound, moments, debias)
+    _check_model_ccp_steps(model_ccp_steps, moments=moments, nuisances=nuisances, bound=bound)
     rows, corrected, accounting = account_rows(bound)
     if rows.size < panel.n_rows:
         bound._check_identified(rows)
@@ -300,6 +312,17 @@ def estimate(
         if debias and not static:
             theta, info = solve_orthogonal(system, theta0)
         iterations += info.iterations
+        for _ in range(int(model_ccp_steps)):
+            t2 = time.perf_counter()
+            nuis = refit_anchor_target(bound, pair, nuis, model_ccp(bound, nuis, theta, clip),
+                                       rng, backend=runner)
+            n_fits += nuis.n_fits
+            timings["first_stage_s"] += time.perf_counter() - t2
+            system = build_moment_system(bound, nuis, rows, corrected)
+            theta, info = solve_plugin(system)  # plugin_params keep the learner's plug-in
+            if debias:
+                theta, info = solve_orthogonal(system, theta)
+            iterations += info.iterations
         comps = system.components(theta, debias=debias and not static)
         ce = estimate_covariance(
             cov,
@@ -356,14 +379,17 @@ def estimate(
         source = "supplied by the caller"
     else:
         source = "cross-fitted"
+        if model_ccp_steps:
+            source += (f", then {int(model_ccp_steps)} model-implied CCP step"
+                       f"{'s' if model_ccp_steps > 1 else ''}")
     results = Results(
         params=pd.Series(theta_hat, index=index, name="estimate"),
         std_errors=pd.Series(se, index=index, name="std_error"),
         cov=pd.DataFrame(V, index=index, columns=index),
         debiased=bool(debias),
         model=model.to_dict(),
-        learner=pair.name if source == "cross-fitted" else "-",
-        regressor=pair.regressor_name if source == "cross-fitted" else "-",
+        learner=pair.name if nuisances is None and not static else "-",
+        regressor=pair.regressor_name if nuisances is None and not static else "-",
         folds=int(folds),
         splits=int(splits),
         scheme=scheme,
@@ -393,6 +419,38 @@ def estimate(
     if cov == "clustered" and panel.n_units >= 2:
         dominant_units(results, stacklevel=3)
     return results
+
+
+def _check_model_ccp_steps(steps: Any, *, moments: str, nuisances: Nuisances | None,
+                           bound: BoundModel) -> None:
+    if isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 0:
+        raise InputError(f"model_ccp_steps must be an integer >= 0, got {steps!r}.")
+    if steps == 0:
+        return
+    if nuisances is not None:
+        raise InputError(
+            "model_ccp_steps needs cross-fitted nuisances (it refits the continuation "
+            "regressions); drop nuisances= or set model_ccp_steps=0."
+        )
+    if not bound.has_next_stage:
+        raise InputError("model_ccp_steps needs a dynamic model (discount > 0).")
+    if moments != "standard":
+        raise InputError(
+            f"model_ccp_steps needs the standard moment, got moments={moments!r}; pass "
+            f"moments='standard' or set model_ccp_steps=0."
+        )
+
+
+def model_ccp(bound: BoundModel, nuisances: Nuisances, theta: np.ndarray, clip: float) -> np.ndarray:
+    """(n_rows, J) model-implied CCPs :math:`\Lambda_j(w(x; \theta, \hat\mu))` at every row.
+
+    :math:`w_j = X_j'\theta + o_j` from the continuation expectations at the row (METHOD §2),
+    so the anchor probability follows the utility index where no learner can resolve it.
+    Clipped to [clip, 1 - clip] like the learner's.
+    """
+    n = bound.panel.n_rows
+    system = build_moment_system(bound, nuisances, np.arange(n), np.zeros(n, dtype=bool))
+    return clip_probabilities(system.probabilities(theta), float(clip))[0]
 
 
 def _choose_moments(bound: BoundModel, moments: str | None, debias: bool) -> str:

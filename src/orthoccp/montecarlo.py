@@ -161,6 +161,9 @@ class MonteCarloSettings:
         Confidence level of the intervals whose coverage is measured.
     n_covariates : int or None
         Covariates per unit; the scenario's default when ``None``.
+    model_ccp_steps : int
+        Model-implied CCP steps of the debiased estimator (``estimate(model_ccp_steps=)``);
+        the other estimators do not take them.
     """
 
     scenario: str
@@ -173,6 +176,7 @@ class MonteCarloSettings:
     estimators: tuple[str, ...] = DEFAULT_ESTIMATORS
     level: float = 0.95
     n_covariates: int | None = None
+    model_ccp_steps: int = 0
 
     def to_dict(self) -> dict[str, Any]:
         """The settings as plain JSON values (``moments`` ``None`` is written as ``"auto"``).
@@ -184,6 +188,8 @@ class MonteCarloSettings:
         doc = asdict(self)
         doc["estimators"] = list(self.estimators)
         doc["moments"] = "auto" if self.moments is None else self.moments
+        if not self.model_ccp_steps:
+            del doc["model_ccp_steps"]  # documents written before the option read the same
         return doc
 
     @classmethod
@@ -211,6 +217,7 @@ class MonteCarloSettings:
             estimators=tuple(doc.get("estimators", DEFAULT_ESTIMATORS)),
             level=float(doc.get("level", 0.95)),
             n_covariates=None if doc.get("n_covariates") is None else int(doc["n_covariates"]),
+            model_ccp_steps=int(doc.get("model_ccp_steps", 0)),
         )
 
 
@@ -260,6 +267,15 @@ def _check_settings(settings: MonteCarloSettings) -> None:
     probe = simulate(settings.scenario, units=1, periods=1, seed=0,
                      n_covariates=settings.n_covariates)
     corrected = bool(_CORRECTED.intersection(est))
+    steps = _integer("model_ccp_steps", settings.model_ccp_steps, minimum=0)
+    if steps and "debiased" not in est:
+        raise InputError("model_ccp_steps applies to the 'debiased' estimator; add it to estimators.")
+    if steps and probe.kind == "renewal" and settings.moments != "standard":
+        raise InputError(
+            f"model_ccp_steps needs the standard moment; the renewal scenario "
+            f"{settings.scenario!r} defaults to renewal-robust moments, so pass "
+            f"moments='standard'."
+        )
     if settings.moments == "renewal_robust" and corrected and probe.kind != "renewal":
         raise InputError(
             f"moments='renewal_robust' needs a renewal scenario; {settings.scenario!r} is "
@@ -334,6 +350,8 @@ def _fit_one(
                                "regressor": reg, "debias": corrected}
     if corrected:
         options["moments"] = settings.moments
+    if name == "debiased" and settings.model_ccp_steps:
+        options["model_ccp_steps"] = settings.model_ccp_steps
     if name in _EXACT:
         options["nuisances"] = oracle
     t0 = time.perf_counter()
@@ -966,6 +984,7 @@ def run_montecarlo(
     estimators: Sequence[str] = DEFAULT_ESTIMATORS,
     level: float = 0.95,
     n_covariates: int | None = None,
+    model_ccp_steps: int = 0,
     first_rep: int = 0,
     progress: bool | None = None,
     on_replication: Callable[[list[dict[str, Any]]], None] | None = None,
@@ -1003,6 +1022,9 @@ def run_montecarlo(
         Confidence level whose coverage is measured.
     n_covariates : int, optional
         Covariates per unit; the scenario's default (30 or 25) when omitted.
+    model_ccp_steps : int, default=0
+        Model-implied CCP steps of the debiased estimator (:func:`orthoccp.estimate`); they
+        need the standard moment (``moments="standard"`` for the renewal scenarios).
     first_rep : int, default=0
         Index of the first replication: replications ``first_rep, ..., first_rep + reps - 1``
         run, so a run can be continued in parts and joined with
@@ -1056,6 +1078,7 @@ def run_montecarlo(
         estimators=tuple(estimators),
         level=level,
         n_covariates=n_covariates,
+        model_ccp_steps=model_ccp_steps,
     )
     reps = _integer("reps", reps, minimum=1)
     first_rep = _integer("first_rep", first_rep, minimum=0)

@@ -40,6 +40,7 @@ __all__ = [
     "fit_predict",
     "learner_dtype",
     "nuisances_from_truth",
+    "refit_anchor_target",
 ]
 
 Scheme = Literal["plain", "nested"]
@@ -362,6 +363,80 @@ def crossfit_nuisances(
         folds=folds,
         clipped_rows=np.asarray(hit.any(axis=1)),
     )
+
+
+def refit_anchor_target(
+    bound: BoundModel,
+    pair: LearnerPair,
+    base: Nuisances,
+    ccp: np.ndarray,
+    rng: np.random.Generator,
+    *,
+    anchor_features: np.ndarray | None = None,
+    backend: Backend | None = None,
+) -> Nuisances:
+    """``base`` with new CCPs and the continuation regressions of their ln P_R target refitted.
+
+    Parameters
+    ----------
+    bound : BoundModel
+        Model bound to the panel.
+    pair : LearnerPair
+        The regressor template (cloned per fit, seeded from ``rng``).
+    base : Nuisances
+        Cross-fitted nuisances (its folds are reused; its z_R-target regressions are kept,
+        as their targets do not depend on the CCP).
+    ccp : numpy.ndarray
+        (n_rows, J) new CCPs at every row (already clipped).
+    rng : numpy.random.Generator
+        Seeds the regressors, in a fixed order, before any fit runs.
+    anchor_features, backend
+        As in :func:`crossfit_nuisances`.
+
+    Returns
+    -------
+    Nuisances
+        ``ccp`` and the refitted :math:`\mu^\ell_j(x) = E[\ln P_R(x_{t+1}) | x_t = x, a_t = j]`:
+        fold k's predictions come from regressions fitted on the other folds (plain
+        cross-fitting of the regression; the new target is a function of the whole sample
+        through the estimate that produced ``ccp``).
+    """
+    if base.folds is None:
+        raise InputError("the CCP refit needs cross-fitted nuisances (their folds).")
+    backend = backend if backend is not None else resolve_backend("sequential")
+    panel = bound.panel
+    folds = base.folds
+    codes = panel.choice_codes
+    R = bound.anchor_index
+    n, K = panel.n_rows, int(folds.max()) + 1
+    index = np.int32 if n < 2**31 else np.int64
+    canon = panel.canonical_order.astype(index)
+    fold_rows = [np.flatnonzero(folds == k).astype(index) for k in range(K)]
+    nxt = panel.next_row
+    linked = nxt >= 0
+    target = np.full(n, np.nan)
+    target[linked] = np.log(ccp[nxt[linked], R])
+    last = bound.n_targets - 1
+    jobs = [(j, k, pair.new_regressor(rng), f"choice {panel.choices[j]!r}, fold {k}")
+            for j in bound.continuation_choices() for k in range(K)]
+    dtype = learner_dtype(pair.classifier, pair.regressor)  # the first stage's dtype
+
+    def tasks() -> Iterator[FoldFit]:
+        for j, k, est, label in jobs:
+            cols = anchor_features if (anchor_features is not None and j == R) else None
+            mask = linked & (codes == j) & (folds != k)
+            train = canon[mask[canon]]
+            yield FoldFit(est, train, fold_rows[k], target[train], cols, dtype, label, k)
+
+    mu = base.mu.copy()
+    t0 = time.perf_counter()
+    with backend.session(panel.features, dtype=dtype) as session:
+        for (j, k, _, _), pred in zip(jobs, session.map(fit_predict, tasks())):
+            mu[fold_rows[k], j, last] = pred
+    timings = dict(base.timings)
+    timings["continuation_s"] = timings.get("continuation_s", 0.0) + time.perf_counter() - t0
+    return Nuisances(ccp=ccp, mu=mu, clipped=base.clipped, n_fits=len(jobs), timings=timings,
+                     folds=folds, clipped_rows=base.clipped_rows)
 
 
 def nuisances_from_truth(

@@ -186,6 +186,8 @@ class FirstStageSpec:
         Cross-fitting scheme of the continuation target.
     clip : float or None
         Probability clip bound in (0, 0.5).
+    model_ccp_steps : int or None
+        Model-implied CCP steps after the first solve (>= 0; needs the standard moment).
     """
 
     learner: str | None = None
@@ -195,6 +197,7 @@ class FirstStageSpec:
     splits: int | None = None
     scheme: str | None = None
     clip: float | None = None
+    model_ccp_steps: int | None = None
 
 
 @dataclass(frozen=True)
@@ -362,7 +365,8 @@ class Spec:
         -------
         dict
             The options the spec sets, among ``learner, regressor, folds, seed, splits,
-            scheme, clip, cov, small_sample, debias, moments``; options it leaves out are
+            scheme, clip, model_ccp_steps, cov, small_sample, debias, moments``; options it
+            leaves out are
             not passed, so the estimator's defaults apply.
         """
         merged = {**dataclasses.asdict(self.first_stage), **dataclasses.asdict(self.inference)}
@@ -640,7 +644,8 @@ class Spec:
 _TOP_KEYS = ("data", "model", "utility", "first_stage", "inference", "estimator")
 _DATA_KEYS = ("unit", "period", "choice", "states", "path", "missing")
 _MODEL_KEYS = ("kind", "anchor", "discount", "persistent")
-_FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme", "clip")
+_FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme", "clip",
+                     "model_ccp_steps")
 _INFERENCE_KEYS = ("cov", "small_sample", "debias", "moments")
 _ESTIMATOR_KEYS = (
     "method", "values", "transitions", "smoothing", "reset_choices", "n_states", "steps",
@@ -649,8 +654,8 @@ _ESTIMATOR_KEYS = (
 # Options of the orthogonal estimator that the discrete-state estimators do not use.
 _ORTHOGONAL_ONLY = (
     "first_stage.learner", "first_stage.regressor", "first_stage.folds", "first_stage.splits",
-    "first_stage.scheme", "first_stage.clip", "inference.debias", "inference.moments",
-    "model.persistent",
+    "first_stage.scheme", "first_stage.clip", "first_stage.model_ccp_steps", "inference.debias",
+    "inference.moments", "model.persistent",
 )
 
 
@@ -920,6 +925,7 @@ def parse_spec(
         splits=fs("splits", lambda k, v: chk.integer(k, v, minimum=1)),
         scheme=fs("scheme", lambda k, v: chk.choice(k, v, SCHEMES)),
         clip=fs("clip", chk.number),
+        model_ccp_steps=fs("model_ccp_steps", lambda k, v: chk.integer(k, v, minimum=0)),
     )
     if first_stage.clip is not None and not 0.0 < first_stage.clip < 0.5:
         raise chk.fail(
