@@ -367,6 +367,18 @@ def test_monte_carlo_tables_match_their_json() -> None:
          "oracle (exact nuisances)": "oracle"},
         [(p, k) for p in ("fixed_cost", "profit") for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
     )
+    steps = _headline_cell("producers|N=2000|lightgbm|ccp_steps=2")
+    _check_mc_rows(
+        _validation_table("### Model-implied CCP steps on the exit design"),
+        {"default": by_estimator["debiased"], "steps": steps["debiased"]},
+        {"the default": "default", "2 model-implied CCP steps": "steps"},
+        [(p, k) for p in ("fixed_cost", "profit") for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
+    )
+    # the plug-in and the oracle do not take the steps: the same panels give the same numbers
+    for name in ("naive", "oracle"):
+        for param in ("fixed_cost", "profit"):
+            for stat in ("bias", "sd", "mean_se", "coverage"):
+                assert steps[name][param][stat] == by_estimator[name][param][stat], (name, stat)
     by_estimator = _headline_cell("ebike3|N=2000|lightgbm")
     _check_mc_rows(
         _validation_table("### The three-choice headline cell: 2,000 bikes, default options"),
