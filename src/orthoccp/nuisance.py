@@ -372,7 +372,6 @@ def refit_anchor_target(
     ccp: np.ndarray,
     rng: np.random.Generator,
     *,
-    anchor_features: np.ndarray | None = None,
     backend: Backend | None = None,
 ) -> Nuisances:
     """``base`` with new CCPs and the continuation regressions of their ln P_R target refitted.
@@ -390,8 +389,9 @@ def refit_anchor_target(
         (n_rows, J) new CCPs at every row (already clipped).
     rng : numpy.random.Generator
         Seeds the regressors, in a fixed order, before any fit runs.
-    anchor_features, backend
-        As in :func:`crossfit_nuisances`.
+    backend : Backend, optional
+        As in :func:`crossfit_nuisances`. Every regression uses all features (the standard
+        moment's, like :func:`crossfit_nuisances` without ``anchor_features``).
 
     Returns
     -------
@@ -423,10 +423,9 @@ def refit_anchor_target(
 
     def tasks() -> Iterator[FoldFit]:
         for j, k, est, label in jobs:
-            cols = anchor_features if (anchor_features is not None and j == R) else None
             mask = linked & (codes == j) & (folds != k)
             train = canon[mask[canon]]
-            yield FoldFit(est, train, fold_rows[k], target[train], cols, dtype, label, k)
+            yield FoldFit(est, train, fold_rows[k], target[train], None, dtype, label, k)
 
     mu = base.mu.copy()
     t0 = time.perf_counter()
