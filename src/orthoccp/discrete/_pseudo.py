@@ -153,9 +153,13 @@ def newton_pseudo(
     names: tuple[str, ...],
     maxiter: int = 200,
     xtol: float = 1e-11,
+    max_steps: int | None = None,
 ) -> tuple[np.ndarray, int]:
     """The maximiser of Q and the number of Newton steps (see :func:`maximise_pseudo`),
-    without the scores and information at the estimate."""
+    without the scores and information at the estimate.
+
+    With ``max_steps``, stop after that many (step-halved) Newton steps even short of
+    convergence: NPL's inner loop, whose fixed point does not depend on it."""
     seen = counts.sum(axis=1) > 0
     Zs, es, n = Zt[seen], et[seen], counts[seen]
     q = _Binary(Zs, es, n) if Zs.shape[1] == 2 else _Multinomial(Zs, es, n)
@@ -197,6 +201,8 @@ def newton_pseudo(
                 f"{dict(zip(names, np.round(theta, 3)))}); some choice is perfectly predicted "
                 f"by the states."
             )
+        if it == max_steps:
+            break
     else:
         raise EstimationError(
             f"the pseudo-likelihood maximisation did not converge in {maxiter} Newton steps "
