@@ -24,6 +24,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 
 import orthoccp
@@ -561,3 +562,25 @@ def test_oracle_moment_table_matches_its_json() -> None:
                         stats["price_of_unknown_ccp"], where)
         _assert_printed(row["debiased / corrected moment at exact nuisances"],
                         stats["learner_cost"], where)
+
+
+def test_renewal_ccp_steps_screen_matches_its_json() -> None:
+    """The renewal-design bullet of the model-implied steps quotes two 20-panel runs and the
+    default cell's first 20 panels (same seeds)."""
+    text = _section(_page("validation.md"), "### Model-implied CCP steps on the exit design")
+    bullet = " ".join(text[text.index("**Worse in the renewal design"):].split("\n- ")[0].split())
+    params = ("wear_cost", "swap_cost")
+    quoted: list[float] = []
+    for name in ("mc_ebike_N2000_standard_ccpsteps2.json", "mc_ebike_N2000_standard.json"):
+        doc = _json(name)
+        assert doc["reps"] == 20 and doc["settings"]["seed"] == 0
+        rows = {r["parameter"]: r for r in doc["summary"]}
+        quoted += [rows[p]["rmse"] for p in params]
+    reps = _json("coverage.json")["cells"]["ebike|N=2000|lightgbm"]["mc"]["replications"]
+    for p in params:
+        err = [r["estimate"] - r["truth"] for r in reps
+               if r["estimator"] == "debiased" and r["parameter"] == p and r["rep"] < 20]
+        assert len(err) == 20
+        quoted.append(float(np.sqrt(np.mean(np.square(err)))))
+    for value in quoted:
+        assert f"{value:.3f}" in bullet, (value, bullet)

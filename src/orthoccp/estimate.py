@@ -176,7 +176,9 @@ def estimate(
         probability (states from which the anchor is essentially never chosen), the model's
         utility index extrapolates it instead of the learner's floor. Needs the standard
         moment (``moments="standard"``: terminal models, or renewal models that ask for it)
-        and cross-fitted nuisances. See ``docs/validation.md`` for when it helps.
+        and cross-fitted nuisances. Measured to help in the terminal (exit) design and to
+        hurt in the binary renewal design, where the renewal-robust moments without steps are
+        far more precise; see ``docs/validation.md``.
     backend : {"sequential", "joblib", "dask"}, distributed.Client or str, optional
         Where the cross-fitting's learner fits run: in this process, in ``n_jobs`` joblib
         worker processes, or on a Dask cluster (a ``distributed.Client``, a scheduler address
