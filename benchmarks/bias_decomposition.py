@@ -57,7 +57,8 @@ from orthoccp.estimate import account_rows  # noqa: E402
 from orthoccp.folds import unit_folds  # noqa: E402
 from orthoccp.learners import resolve_learners  # noqa: E402
 from orthoccp.moments import build_moment_system  # noqa: E402
-from orthoccp.montecarlo import _single_threaded, replication_seeds  # noqa: E402
+from orthoccp.montecarlo import replication_seeds  # noqa: E402
+from orthoccp.montecarlo._replicate import _single_threaded  # noqa: E402
 from orthoccp.nuisance import crossfit_nuisances, nuisances_from_truth  # noqa: E402
 from orthoccp.simulate import simulate  # noqa: E402
 
