@@ -253,7 +253,8 @@ def test_page_examples_run(
 # estimate run in tests/test_docstrings.py, those of the discrete modules and anchor in
 # tests/test_discrete.py; these are the rest of the modules on the API page that have any.
 DOCSTRING_MODULES = [
-    "orthoccp.spec", "orthoccp.cell", "orthoccp.montecarlo._replicate", "orthoccp.montecarlo._run",
+    "orthoccp.spec._records", "orthoccp.cell", "orthoccp.montecarlo._replicate",
+    "orthoccp.montecarlo._run",
     "orthoccp.custom._spec",
     "orthoccp.reference._bellman", "orthoccp.reference._bus", "orthoccp.reference._nfxp",
 ]
