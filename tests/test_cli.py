@@ -20,7 +20,7 @@ import pandas as pd
 import pytest
 
 import orthoccp as oc
-from orthoccp import cli
+from orthoccp.cli import _commands, _plumbing
 from orthoccp.cli import main, results_payload
 from orthoccp.simulate import simulate
 from orthoccp.spec import parse_spec, read_spec, write_spec
@@ -410,8 +410,8 @@ def test_progress_only_on_a_terminal() -> None:
             return True
 
     tty, pipe = Terminal(), io.StringIO()
-    cli._Progress(stream=tty).stage("first stage")
-    cli._Progress(stream=pipe).stage("first stage")
+    _plumbing._Progress(stream=tty).stage("first stage")
+    _plumbing._Progress(stream=pipe).stage("first stage")
     assert re.fullmatch(r"orthoccp: \[\s*\d+\.\ds\] first stage\n", tty.getvalue())
     assert pipe.getvalue() == ""
 
@@ -419,9 +419,9 @@ def test_progress_only_on_a_terminal() -> None:
 # --------------------------------------------------------------------------- demo
 def test_demo_folder_numbering(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.chdir(tmp_path)
-    made = [cli._demo_folder(None) for _ in range(3)]
+    made = [_commands._demo_folder(None) for _ in range(3)]
     assert [p.name for p in made] == ["orthoccp-demo", "orthoccp-demo-2", "orthoccp-demo-3"]
-    assert cli._demo_folder(str(tmp_path / "mine" / "deep")).is_dir()
+    assert _commands._demo_folder(str(tmp_path / "mine" / "deep")).is_dir()
 
 
 def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:

@@ -1,0 +1,445 @@
+"""The argument parser of every command, with its help texts."""
+
+from __future__ import annotations
+
+import argparse
+
+import orthoccp as oc
+
+from .._version import __version__
+from ._commands import (
+    _cmd_compare,
+    _cmd_demo,
+    _cmd_estimate,
+    _cmd_montecarlo,
+    _cmd_report,
+    _cmd_simulate,
+    _estimator_list,
+)
+from ._plumbing import DEMO_FOLDER, DEMO_SCENARIO, PROG, _Formatter, _Parser
+
+# --------------------------------------------------------------------------- parser
+_MAIN_EPILOG = """\
+examples:
+  orthoccp demo
+      simulate the e-bike renewal scenario, estimate it debiased and plug-in, compare with
+      the truth, and write the data and spec to ./orthoccp-demo/
+  orthoccp simulate ebike --units 1000 --periods 12 --seed 0 --out panel.csv
+  orthoccp estimate panel.csv --spec panel.toml --json results.json
+  orthoccp compare panel.csv --spec panel.toml --with logit --with lightgbm
+  orthoccp report panel.csv --spec panel.toml --out report.html
+  orthoccp montecarlo ebike --reps 50 --units 500 --learner logit --out mc.json
+  orthoccp estimate --help
+
+exit codes: 0 success, 2 usage or input error, 1 estimation failure.
+"""
+
+_DEMO_EPILOG = """\
+examples:
+  orthoccp demo
+  orthoccp demo --units 500 --periods 8 --seed 3 --out my-demo
+  orthoccp demo --learner logit --folds 3      # a faster first stage
+
+The folder receives ebike.csv (the panel) and ebike.toml (its spec, with the true
+parameters in a comment); the demo prints the command that reruns the estimate on them.
+Unless --learner is logit, it also writes report.html: the learner against the parametric
+logit first stage, the truth, diagnostics and figures (figures need matplotlib).
+"""
+
+_SIMULATE_EPILOG = """\
+examples:
+  orthoccp simulate ebike --units 1000 --periods 12 --seed 0 --out panel.csv
+  orthoccp simulate producers --units 500 --out data/producers.parquet   # needs pyarrow
+  orthoccp estimate panel.csv --spec panel.toml
+
+Writes the panel (CSV or Parquet, by the extension of --out) and a spec file beside it
+with the same name and the extension .toml. The spec's data path is relative to the spec;
+its first-stage seed is --seed. The true parameters are in a comment at the top of the spec.
+"""
+
+_COMPARE_EPILOG = """\
+examples:
+  orthoccp compare panel.csv --spec panel.toml                      # logit vs the spec's learner
+  orthoccp compare panel.csv --spec panel.toml --with logit --with lightgbm --with lasso_logit
+  orthoccp compare panel.csv --spec panel.toml --json cmp.json --latex cmp.tex
+"""
+
+_REPORT_EPILOG = """\
+examples:
+  orthoccp report panel.csv --spec panel.toml --out report.html
+  orthoccp report panel.csv --spec panel.toml --with logit --with lightgbm --out report.html
+  orthoccp report panel.csv --spec panel.toml --out report.html --no-stability   # faster
+"""
+
+_ESTIMATE_EPILOG = """\
+examples:
+  orthoccp estimate panel.csv --spec panel.toml
+  orthoccp estimate panel.csv --spec panel.toml --json results.json --latex table.tex
+  orthoccp estimate --spec panel.toml --naive          # data path taken from the spec
+  orthoccp estimate panel.csv --spec panel.toml --learner logit --folds 3 --seed 1
+  orthoccp estimate panel.csv --spec panel.toml --json - | python -m json.tool
+
+spec file (TOML):
+  [data]
+  unit = "bike"                    # column of the decision maker
+  period = "week"                  # integer period column
+  choice = "action"                # chosen alternative
+  states = ["wear", "x0", "x1"]    # columns the first-stage learners see
+  path = "panel.csv"               # optional; relative to the spec; DATA overrides it
+  [model]
+  kind = "renewal"                 # or "terminal"
+  anchor = "swap"
+  discount = 0.95
+  persistent = ["x0", "x1"]        # optional: states a renewal does not reset
+  [utility.keep]                   # one table per choice: parameter = column
+  wear_cost = "wear_scaled"
+  [utility.swap]
+  swap_cost = "1"                  # "1" is a constant
+  [first_stage]                    # optional: learner, regressor, folds, seed, splits,
+  learner = "lightgbm"             #   scheme ("plain"/"nested"), clip
+  [inference]                      # optional: cov, small_sample, debias,
+  moments = "renewal_robust"       #   moments ("renewal_robust"/"standard")
+  [estimator]                      # optional: method = "npl"/"pml" for discrete states
+"""
+
+
+_MONTECARLO_EPILOG = """\
+examples:
+  orthoccp montecarlo ebike --reps 50 --units 500 --periods 12 --learner logit --out mc.json
+  orthoccp montecarlo producers --reps 200 --units 2000 --jobs 2 --out mc.json --plot mc.png
+  orthoccp montecarlo ebike3 --reps 20 --moments standard --estimators debiased,oracle \\
+      --out mc.json --replications mc-replications.csv
+
+Each replication simulates a fresh panel and runs, on the same data, the plug-in ("naive")
+estimator, the debiased estimator and the oracle (plug-in with the simulator's exact
+nuisances). Writes the JSON (settings, summary and every replication) to --out and the
+summary CSV (one row per estimator and parameter) beside it with the extension .csv.
+Replication r's seeds depend on --seed and r only, so --jobs does not change the numbers;
+learners run single-threaded in each worker. Failed estimates are counted, not dropped.
+"""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The ``orthoccp`` argument parser with its six sub-commands.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+    """
+    parser = _Parser(
+        prog=PROG,
+        description=(
+            "Cross-fitted, Neyman-orthogonal CCP estimation of dynamic discrete choice "
+            "models with machine-learning first stages."
+        ),
+        epilog=_MAIN_EPILOG,
+        formatter_class=_Formatter,
+    )
+    parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
+    debug_help = "show tracebacks and all warnings"
+    parser.add_argument("--debug", action="store_true", default=False, help=debug_help)
+    # Accept --debug after the command too, without overriding one given before it.
+    common = _Parser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=debug_help)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    learners = oc.learner_names()
+
+    demo = sub.add_parser(
+        "demo",
+        parents=[common],
+        help="simulate, estimate and compare with the truth (no arguments needed)",
+        description=(
+            f"Simulate the built-in {DEMO_SCENARIO!r} renewal scenario, estimate it debiased "
+            "and plug-in, print the summary and a truth-vs-estimates table, and write the data "
+            "(CSV) and the spec (TOML) so that 'orthoccp estimate' can be rerun on them."
+        ),
+        epilog=_DEMO_EPILOG,
+        formatter_class=_Formatter,
+    )
+    demo.add_argument(
+        "--units", type=int, default=2000, metavar="N", help="simulated units (default: 2000)"
+    )
+    demo.add_argument(
+        "--periods", type=int, default=12, metavar="T", help="periods per unit (default: 12)"
+    )
+    demo.add_argument(
+        "--seed",
+        type=int,
+        default=0,
+        metavar="S",
+        help="seed of the simulation and of the estimation (default: 0)",
+    )
+    demo.add_argument(
+        "--out",
+        metavar="FOLDER",
+        default=None,
+        help=f"output folder, new or empty (default: a fresh ./{DEMO_FOLDER}, "
+        f"./{DEMO_FOLDER}-2, ...)",
+    )
+    demo.add_argument(
+        "--learner",
+        choices=learners,
+        default="lightgbm",
+        help="first-stage learner (default: lightgbm)",
+    )
+    demo.add_argument(
+        "--folds", type=int, default=5, metavar="K", help="cross-fitting folds (default: 5)"
+    )
+    demo.set_defaults(handler=_cmd_demo)
+
+    from ..simulate import scenario_names
+
+    scenarios = scenario_names()
+    simulate = sub.add_parser(
+        "simulate",
+        parents=[common],
+        help="write a simulated panel and its spec file",
+        description=(
+            "Simulate one of the built-in scenarios and write the panel and a matching spec "
+            "file beside it."
+        ),
+        epilog=_SIMULATE_EPILOG,
+        formatter_class=_Formatter,
+    )
+    simulate.add_argument(
+        "scenario", metavar="SCENARIO", choices=scenarios, help="one of: " + ", ".join(scenarios)
+    )
+    simulate.add_argument(
+        "--units", type=int, default=1000, metavar="N", help="units (default: 1000)"
+    )
+    simulate.add_argument(
+        "--periods", type=int, default=12, metavar="T", help="periods (default: 12)"
+    )
+    simulate.add_argument(
+        "--seed",
+        type=int,
+        default=0,
+        metavar="S",
+        help="seed of the simulation, also written as first_stage.seed (default: 0)",
+    )
+    simulate.add_argument(
+        "--out",
+        required=True,
+        metavar="FILE",
+        help="panel file: .csv or .parquet (Parquet needs pyarrow)",
+    )
+    simulate.add_argument(
+        "--discount",
+        type=float,
+        default=None,
+        metavar="BETA",
+        help="discount factor in [0, 1) (default: the scenario's, 0.95)",
+    )
+    simulate.add_argument(
+        "--covariates",
+        type=int,
+        default=None,
+        metavar="P",
+        help="number of covariates x0, x1, ... (default: the scenario's)",
+    )
+    simulate.set_defaults(handler=_cmd_simulate)
+
+    est = sub.add_parser(
+        "estimate",
+        parents=[common],
+        help="estimate a model described by a spec file",
+        description=(
+            "Estimate the model described by SPEC on the panel DATA and print the summary. "
+            "Progress goes to stderr when it is a terminal."
+        ),
+        epilog=_ESTIMATE_EPILOG,
+        formatter_class=_Formatter,
+    )
+    est.add_argument(
+        "data",
+        metavar="DATA",
+        nargs="?",
+        default=None,
+        help="panel file (.csv or .parquet); default: data.path in the spec",
+    )
+    est.add_argument("--spec", required=True, metavar="SPEC", help="spec file (TOML)")
+    est.add_argument(
+        "--json",
+        metavar="OUT",
+        default=None,
+        help="write the results as JSON ('-' for stdout, without the summary)",
+    )
+    est.add_argument(
+        "--latex",
+        metavar="OUT",
+        default=None,
+        help="write a LaTeX table of the estimates ('-' for stdout)",
+    )
+    est.add_argument(
+        "--naive",
+        action="store_true",
+        help="plug-in estimator (debias = false); its standard errors ignore first-stage noise",
+    )
+    est.add_argument(
+        "--learner", choices=learners, default=None, help="override first_stage.learner"
+    )
+    est.add_argument(
+        "--folds", type=int, default=None, metavar="K", help="override first_stage.folds"
+    )
+    est.add_argument(
+        "--seed", type=int, default=None, metavar="S", help="override first_stage.seed"
+    )
+    est.set_defaults(handler=_cmd_estimate)
+
+    for name in ("compare", "report"):
+        is_report = name == "report"
+        cp = sub.add_parser(
+            name,
+            parents=[common],
+            help=(
+                "one self-contained HTML page: comparison, diagnostics, figures, assumptions"
+                if is_report
+                else "the same model with several first stages, side by side, with equality tests"
+            ),
+            description=(
+                "Estimate the model of SPEC on DATA with several first stages (all debiased) and "
+                "test each against the baseline (the first --with) using both estimators' "
+                "per-unit influence terms."
+                + (
+                    " Write one HTML page with the comparison, every first stage's diagnostics "
+                    "and figures, the fold stability of the non-baseline first stages, and the "
+                    "assumptions; it opens in a browser with no network."
+                    if is_report
+                    else ""
+                )
+            ),
+            epilog=_REPORT_EPILOG if is_report else _COMPARE_EPILOG,
+            formatter_class=_Formatter,
+        )
+        cp.add_argument(
+            "data", metavar="DATA", nargs="?", default=None,
+            help="panel file (.csv or .parquet); default: data.path in the spec",
+        )
+        cp.add_argument("--spec", required=True, metavar="SPEC", help="spec file (TOML)")
+        cp.add_argument(
+            "--with", dest="first_stages", action="append", choices=learners, metavar="LEARNER",
+            help=(
+                "a first stage (repeatable; one of " + ", ".join(learners) + "); default: logit "
+                "and the spec's learner"
+            ),
+        )
+        cp.add_argument(
+            "--baseline", default=None, metavar="LEARNER",
+            help="the first stage the others are tested against (default: the first --with)",
+        )
+        cp.add_argument("--folds", type=int, default=None, metavar="K", help="override first_stage.folds")
+        cp.add_argument("--seed", type=int, default=None, metavar="S", help="override first_stage.seed")
+        if is_report:
+            cp.add_argument("--out", required=True, metavar="OUT", help="the HTML file to write")
+            cp.add_argument(
+                "--no-stability", dest="stability", action="store_false",
+                help="skip the fold-stability refits (they cost one more first stage per learner)",
+            )
+            cp.set_defaults(handler=_cmd_report)
+        else:
+            for opt, what in (("--json", "JSON"), ("--latex", "a LaTeX table"), ("--html", "an HTML table")):
+                cp.add_argument(opt, metavar="OUT", default=None, help=f"write the comparison as {what}")
+            cp.set_defaults(handler=_cmd_compare)
+
+    mc = sub.add_parser(
+        "montecarlo",
+        parents=[common],
+        help="replicate a scenario: bias, SD, SE, RMSE and coverage of each estimator",
+        description=(
+            "Replicate a built-in scenario and compare the plug-in, debiased and oracle "
+            "estimators: per parameter bias, SD, mean SE, SD/SE, RMSE, coverage of the 95% "
+            "interval with its Monte Carlo standard error, runtime and failures. A counter "
+            "goes to stderr when it is a terminal."
+        ),
+        epilog=_MONTECARLO_EPILOG,
+        formatter_class=_Formatter,
+    )
+    mc.add_argument(
+        "scenario", metavar="SCENARIO", choices=scenarios, help="one of: " + ", ".join(scenarios)
+    )
+    mc.add_argument(
+        "--reps", type=int, default=100, metavar="R", help="replications (default: 100)"
+    )
+    mc.add_argument(
+        "--units",
+        type=int,
+        default=1000,
+        metavar="N",
+        help="units per replication (default: 1000)",
+    )
+    mc.add_argument(
+        "--periods", type=int, default=12, metavar="T", help="periods per unit (default: 12)"
+    )
+    mc.add_argument(
+        "--learner",
+        choices=learners,
+        default="lightgbm",
+        help="first-stage learner, single-threaded (default: lightgbm)",
+    )
+    mc.add_argument(
+        "--folds",
+        type=int,
+        default=5,
+        metavar="K",
+        help="cross-fitting folds, at least 3 (default: 5)",
+    )
+    mc.add_argument(
+        "--seed", type=int, default=0, metavar="S", help="seed of the whole run (default: 0)"
+    )
+    mc.add_argument(
+        "--jobs",
+        type=int,
+        default=1,
+        metavar="J",
+        help="worker processes, -1 for all cores (default: 1)",
+    )
+    mc.add_argument(
+        "--moments",
+        choices=["auto", "standard", "renewal_robust"],
+        default="auto",
+        help="moments of the debiased estimator; auto: renewal_robust for the renewal "
+        "scenarios, standard for producers (default: auto)",
+    )
+    mc.add_argument(
+        "--estimators",
+        type=_estimator_list,
+        default=("naive", "debiased", "oracle"),
+        metavar="LIST",
+        help="comma-separated subset of naive,debiased,oracle,oracle_debiased (default: "
+        "naive,debiased,oracle; oracle_debiased is the corrected moment at the true nuisances)",
+    )
+    mc.add_argument(
+        "--covariates",
+        type=int,
+        default=None,
+        metavar="P",
+        help="covariates per unit (default: the scenario's)",
+    )
+    mc.add_argument(
+        "--model-ccp-steps",
+        type=int,
+        default=0,
+        metavar="K",
+        help="model-implied CCP steps of the debiased estimator (needs the standard moment; "
+        "default: 0)",
+    )
+    mc.add_argument(
+        "--out",
+        required=True,
+        metavar="FILE.json",
+        help="results JSON; the summary CSV goes beside it as FILE.csv",
+    )
+    mc.add_argument(
+        "--replications",
+        metavar="FILE.csv",
+        default=None,
+        help="also write the per-replication records as CSV",
+    )
+    mc.add_argument(
+        "--plot",
+        metavar="FILE.png",
+        default=None,
+        help="also write the coverage and interval-length plot (PNG; needs matplotlib)",
+    )
+    mc.set_defaults(handler=_cmd_montecarlo)
+    return parser
