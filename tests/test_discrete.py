@@ -119,6 +119,16 @@ def test_npl_fixed_point_is_the_nfxp_mle(bus_frame: pd.DataFrame, bus_panel: oc.
     assert res.loglik == pytest.approx(nf.loglik, rel=1e-10)
 
 
+def test_npl_fixed_point_does_not_depend_on_the_start(bus_panel: oc.Panel) -> None:
+    # The NPL fixed point is a property of the data (Aguirregabiria & Mira 2002, Prop. 3), so
+    # a far start (and the one-Newton-step inner iterations that follow the first) must reach
+    # the same estimate; both stop at a CCP change of 1e-10, which moves theta by ~1e-8 here.
+    base = _bus_npl(bus_panel)
+    far = _bus_npl(bus_panel, start={"RC": 2.0, "theta11": 0.5})
+    assert far.converged and far.last_change < 1e-10
+    np.testing.assert_allclose(far.params.to_numpy(), base.params.to_numpy(), rtol=0, atol=1e-7)
+
+
 def test_pseudo_scores_equal_full_likelihood_scores(bus_panel: oc.Panel) -> None:
     # Zero-Jacobian property (Aguirregabiria & Mira 2002, Prop. 2): at the fixed point each
     # observation's pseudo-score equals its full-likelihood score, computed by the reference

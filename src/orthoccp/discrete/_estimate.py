@@ -407,12 +407,12 @@ def estimate_discrete(
             new[keep] = P[keep]
         return new
 
-    for _ in range(limit):
+    for iteration in range(limit):
         Zt, et, last_terms = terms(P)
         # NPL's inner maximisation may stop after one Newton step once it has a start: the
         # fixed point (the maximiser at the CCPs it implies) is the same, and the exact
         # maximiser is taken once the CCPs have settled. "pml" steps are exact maximisers.
-        inexact = estimator == "npl" and theta is not None
+        inexact = estimator == "npl" and iteration > 0
         theta_hat, n_steps = newton_pseudo(Zt, et, problem.counts, theta, names=names,
                                            max_steps=1 if inexact else None)
         new = implied(Zt, et, theta_hat)
