@@ -166,9 +166,45 @@ def test_model_ccp_steps_are_seeded_and_counted() -> None:
     np.testing.assert_array_equal(a.std_errors.to_numpy(), b.std_errors.to_numpy())
     # each step refits the ln P_R regression of the one continuation choice in every fold
     assert a.n_learner_fits == base.n_learner_fits + 2 * 3
-    assert a.nuisance_source == "cross-fitted, then 2 model-implied CCP steps"
+    assert a.nuisance_source == ("cross-fitted, then 2 model-implied CCP steps (ln P_R "
+                                 "regressions refitted with plain cross-fitting)")
     pd.testing.assert_series_equal(a.plugin_params, base.plugin_params)
     assert not np.allclose(a.params.to_numpy(), base.params.to_numpy())
+    # the diagnostics describe the learner's out-of-fold first stage, not the model's CCPs
+    pd.testing.assert_frame_equal(a.diagnostics.ccp_quality, base.diagnostics.ccp_quality)
+    # the JSON record says how the nuisances were made, and keeps the learner's plug-in
+    d = a.to_dict()
+    assert d["nuisance_source"] == a.nuisance_source
+    assert d["plugin_params"] == pytest.approx(base.plugin_params.to_dict())
+    assert "before the model-implied steps" in a.summary()
+
+
+def test_model_ccp_steps_count_the_clipping_of_the_ccps_they_use() -> None:
+    # With one step, the final moment's CCPs are the model's Lambda(theta) at the first
+    # solve's estimate (the estimate without steps, same seed) and the learner's nuisances,
+    # clipped to [clip, 1 - clip]. The reported counts must be that clipping's, rebuilt here
+    # from the same seed, entry by entry (not the learner's, which differ).
+    from orthoccp.estimate import model_ccp_clipped
+    from orthoccp.folds import unit_folds
+    from orthoccp.learners import resolve_learners
+    from orthoccp.nuisance import crossfit_nuisances
+    from orthoccp.simulate import simulate
+
+    sim = simulate("producers", units=300, periods=8, seed=2)
+    panel, model, _ = panel_and_model(sim)
+    opts = dict(learner="logit", folds=3, seed=4, clip=0.02)
+    base = oc.estimate(panel, model, **opts)
+    with pytest.warns(oc.OrthoCCPWarning, match=r"moment rows \(more than 1%\) use a probability"):
+        res = oc.estimate(panel, model, model_ccp_steps=1, **opts)
+    bound = model.bind(panel)
+    rng = np.random.default_rng(4)
+    folds = unit_folds(panel.unit_codes, 3, rng, unit_keys=panel.unit_keys)
+    nuis = crossfit_nuisances(bound, resolve_learners("logit"), folds, rng, clip=0.02)
+    assert nuis.clipped == base.clipped  # the rebuild is the estimate's first stage
+    _, hit = model_ccp_clipped(bound, nuis, base.params.to_numpy(), 0.02)
+    expected = {c: int(hit[:, j].sum()) for j, c in enumerate(panel.choices)}
+    assert sum(expected.values()) > 0 and expected != base.clipped
+    assert res.clipped == expected
 
 
 @pytest.mark.parametrize(("kwargs", "message"), [

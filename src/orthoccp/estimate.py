@@ -178,7 +178,11 @@ def estimate(
         moment (``moments="standard"``: terminal models, or renewal models that ask for it)
         and cross-fitted nuisances. Measured to help in the terminal (exit) design and to
         hurt in the binary renewal design, where the renewal-robust moments without steps are
-        far more precise; see ``docs/validation.md``.
+        far more precise; see ``docs/validation.md``. The refits use plain cross-fitting
+        whatever ``scheme`` is; the clipping counts and warning describe the model-implied
+        CCPs the final moment uses, while ``diagnostics`` and ``plugin_params`` describe the
+        learner's first stage. The refits' seeds come from the run's one generator, so with
+        ``splits`` > 1 the later splits' folds differ from those of a run without steps.
     backend : {"sequential", "joblib", "dask"}, distributed.Client or str, optional
         Where the cross-fitting's learner fits run: in this process, in ``n_jobs`` joblib
         worker processes, or on a Dask cluster (a ``distributed.Client``, a scheduler address
@@ -278,13 +282,7 @@ def estimate(
             )
         timings["first_stage_s"] += time.perf_counter() - t0
         n_fits += nuis.n_fits
-        for k, v in nuis.clipped.items():
-            clipped[k] = clipped.get(k, 0) + v
-        if nuis.clipped_rows is not None:
-            # A moment row depends on the CCP at its next row.
-            nxt = panel.next_row[rows]
-            hit = nuis.clipped_rows[np.where(nxt >= 0, nxt, rows)]
-            n_clipped_moment_rows += int(hit.sum())
+        learner_nuis = nuis  # the learner's out-of-fold nuisances, for the diagnostics
 
         if split == 0 and debias and moments == "standard" and not static:
             # Before the solve, which is the step a tiny P_R can break. Only the probability
@@ -316,8 +314,9 @@ def estimate(
         iterations += info.iterations
         for _ in range(int(model_ccp_steps)):
             t2 = time.perf_counter()
-            nuis = refit_anchor_target(bound, pair, nuis, model_ccp(bound, nuis, theta, clip),
-                                       rng, backend=runner)
+            implied, hit = model_ccp_clipped(bound, nuis, theta, clip)
+            nuis = refit_anchor_target(bound, pair, nuis, implied, rng, backend=runner,
+                                       clipped=hit)
             n_fits += nuis.n_fits
             timings["first_stage_s"] += time.perf_counter() - t2
             system = build_moment_system(bound, nuis, rows, corrected)
@@ -325,6 +324,14 @@ def estimate(
             if debias:
                 theta, info = solve_orthogonal(system, theta)
             iterations += info.iterations
+        # Clipping counts of the CCPs the final moment uses (the model's after the steps).
+        for k, v in nuis.clipped.items():
+            clipped[k] = clipped.get(k, 0) + v
+        if nuis.clipped_rows is not None:
+            # A moment row depends on the CCP at its next row.
+            nxt = panel.next_row[rows]
+            hit_rows = nuis.clipped_rows[np.where(nxt >= 0, nxt, rows)]
+            n_clipped_moment_rows += int(hit_rows.sum())
         comps = system.components(theta, debias=debias and not static)
         ce = estimate_covariance(
             cov,
@@ -337,7 +344,7 @@ def estimate(
         timings["second_stage_s"] += time.perf_counter() - t1
         if split == 0 and not static:
             diagnostics = compute_diagnostics(
-                bound, nuis, rows, clip=float(clip),
+                bound, learner_nuis, rows, clip=float(clip),
                 influence=ce.influence if cov == "clustered" else None,
                 influence_units=panel.unit_labels[ce.clusters] if cov == "clustered" else None,
             )
@@ -383,7 +390,8 @@ def estimate(
         source = "cross-fitted"
         if model_ccp_steps:
             source += (f", then {int(model_ccp_steps)} model-implied CCP step"
-                       f"{'s' if model_ccp_steps > 1 else ''}")
+                       f"{'s' if model_ccp_steps > 1 else ''} (ln P_R regressions refitted "
+                       f"with plain cross-fitting)")
     results = Results(
         params=pd.Series(theta_hat, index=index, name="estimate"),
         std_errors=pd.Series(se, index=index, name="std_error"),
@@ -448,11 +456,19 @@ def model_ccp(bound: BoundModel, nuisances: Nuisances, theta: np.ndarray, clip: 
 
     :math:`w_j = X_j'\theta + o_j` from the continuation expectations at the row (METHOD §2),
     so the anchor probability follows the utility index where no learner can resolve it.
-    Clipped to [clip, 1 - clip] like the learner's.
+    Clipped to [clip, 1 - clip] like the learner's (:func:`model_ccp_clipped` also returns
+    which entries were clipped).
     """
+    return model_ccp_clipped(bound, nuisances, theta, clip)[0]
+
+
+def model_ccp_clipped(
+    bound: BoundModel, nuisances: Nuisances, theta: np.ndarray, clip: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`model_ccp` and the (n_rows, J) boolean matrix of the entries it clipped."""
     n = bound.panel.n_rows
     system = build_moment_system(bound, nuisances, np.arange(n), np.zeros(n, dtype=bool))
-    return clip_probabilities(system.probabilities(theta), float(clip))[0]
+    return clip_probabilities(system.probabilities(theta), float(clip))
 
 
 def _choose_moments(bound: BoundModel, moments: str | None, debias: bool) -> str:

@@ -373,6 +373,7 @@ def refit_anchor_target(
     rng: np.random.Generator,
     *,
     backend: Backend | None = None,
+    clipped: np.ndarray | None = None,
 ) -> Nuisances:
     """``base`` with new CCPs and the continuation regressions of their ln P_R target refitted.
 
@@ -392,6 +393,9 @@ def refit_anchor_target(
     backend : Backend, optional
         As in :func:`crossfit_nuisances`. Every regression uses all features (the standard
         moment's, like :func:`crossfit_nuisances` without ``anchor_features``).
+    clipped : numpy.ndarray, optional
+        (n_rows, J) which entries of ``ccp`` were clipped; the result's clipping counts come
+        from it (default: no entry clipped).
 
     Returns
     -------
@@ -434,8 +438,10 @@ def refit_anchor_target(
             mu[fold_rows[k], j, last] = pred
     timings = dict(base.timings)
     timings["continuation_s"] = timings.get("continuation_s", 0.0) + time.perf_counter() - t0
-    return Nuisances(ccp=ccp, mu=mu, clipped=base.clipped, n_fits=len(jobs), timings=timings,
-                     folds=folds, clipped_rows=base.clipped_rows)
+    hit = np.zeros(ccp.shape, dtype=bool) if clipped is None else np.asarray(clipped, dtype=bool)
+    counts = {panel.choices[j]: int(hit[:, j].sum()) for j in range(ccp.shape[1])}
+    return Nuisances(ccp=ccp, mu=mu, clipped=counts, n_fits=len(jobs), timings=timings,
+                     folds=folds, clipped_rows=np.asarray(hit.any(axis=1)))
 
 
 def nuisances_from_truth(

@@ -237,10 +237,12 @@ class Results:
                 lines.append(f"  {name}: {why}")
         elif self.debiased:
             lines.append("moments: standard (pseudo-likelihood score with the full correction)")
-        if self.plugin_params is not None and self.debiased:
+        if self.plugin_params is not None and (self.debiased or "model-implied" in self.nuisance_source):
+            label = ("plug-in estimates (the learner's first stage, before the model-implied "
+                     "steps): " if "model-implied" in self.nuisance_source else
+                     "plug-in estimates: ")
             lines.append(
-                "plug-in estimates: "
-                + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items())
+                label + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items())
             )
         if self.decomposition.shape[1] > 1:
             lines.append("variance shares (m: identifying moment, phi_mu: continuation correction, phi_P: CCP correction):")
@@ -318,6 +320,9 @@ class Results:
             "rows_dropped": dict(self.accounting.dropped),
             "learner": self.learner,
             "regressor": self.regressor,
+            "nuisance_source": self.nuisance_source,
+            "plugin_params": (None if self.plugin_params is None else
+                              {str(k): _num(v) for k, v in self.plugin_params.items()}),
             "folds": self.folds,
             "splits": self.splits,
             "scheme": self.scheme,
