@@ -129,6 +129,18 @@ def test_npl_fixed_point_does_not_depend_on_the_start(bus_panel: oc.Panel) -> No
     np.testing.assert_allclose(far.params.to_numpy(), base.params.to_numpy(), rtol=0, atol=1e-7)
 
 
+def test_npl_out_of_iterations_returns_the_last_policy_steps_maximiser(bus_panel: oc.Panel) -> None:
+    # NPL stopped after K iterations is, by definition, K pseudo-likelihood steps from the
+    # same start (Aguirregabiria & Mira 2002): each step's estimate maximises Q on its CCPs.
+    # The truncated inner loop must not leave the last one a single Newton step short.
+    with pytest.warns(oc.OrthoCCPWarning, match="NPL did not converge in 2 iterations"):
+        npl = _bus_npl(bus_panel, max_iterations=2)
+    pml = _bus_npl(bus_panel, estimator="pml", steps=2)
+    assert not npl.converged
+    np.testing.assert_allclose(npl.params.to_numpy(), pml.params.to_numpy(), rtol=1e-9)
+    np.testing.assert_allclose(npl.std_errors.to_numpy(), pml.std_errors.to_numpy(), rtol=1e-6)
+
+
 def test_pseudo_scores_equal_full_likelihood_scores(bus_panel: oc.Panel) -> None:
     # Zero-Jacobian property (Aguirregabiria & Mira 2002, Prop. 2): at the fixed point each
     # observation's pseudo-score equals its full-likelihood score, computed by the reference
@@ -246,6 +258,42 @@ def test_transition_correction_matches_finite_differences(
     for unit in (0, 5, 17):
         lp = [solve_bellman(u, _weighted_frequency(prob, unit, s * h, alpha),
                             INVENTORY.discount).log_ccp for s in (1, -1)]
+        fd = -np.einsum("sjk,sj->k", w, (lp[0] - lp[1]) / (2 * h))
+        ours = res.information @ res.influence_parts["transitions"][unit]
+        np.testing.assert_allclose(ours, fd, rtol=1e-5, atol=1e-7 * np.abs(fd).max())
+
+
+def test_pml_transition_correction_matches_finite_differences(inventory_panel: oc.Panel) -> None:
+    # One pseudo-likelihood step from cell-frequency CCPs P0: the estimate solves
+    # sum_s n_s sum_j (m_sj - Lambda_j(v(theta; P0, F))) g_j = 0 with P0 held fixed, so unit
+    # i's transition term is -sum_s n_s sum_j Lambda_j g_j d ln Lambda_j(v(theta; P0, F_hat(h)))/dh
+    # (Newey & McFadden 1994, Thm 6.1), differentiated here through the inversion at P0 by
+    # central differences (step 1e-5; truncation O(h^2) ~ 1e-10). Away from NPL's fixed point
+    # Lambda differs from P0, so this checks that the adjoint uses the inversion's CCPs.
+    from scipy import sparse
+
+    from orthoccp.discrete._estimate import _initial_ccp
+    from orthoccp.discrete._pseudo import cell_logit
+
+    common = dict(utility=INVENTORY.utility_spec(), discount=INVENTORY.discount,
+                  n_states=INVENTORY.n_states, transitions="frequency")
+    res = estimate_discrete(inventory_panel, estimator="pml", **common)
+    prob = build_problem(inventory_panel, **common)
+    P0 = _initial_ccp(prob, "frequency", 1e-4, 3, 0)[0]
+    theta = res.params.to_numpy()
+    inv = inversion_terms(P0, prob.design, prob.mats, prob.discount)
+    Lam, _ = cell_logit(inv.Zt, inv.et, theta)
+    assert np.max(np.abs(Lam - P0)) > 1e-2  # not at a fixed point: the two CCPs differ
+    g = inv.Zt - np.einsum("sj,sjk->sk", Lam, inv.Zt)[:, None, :]
+    w = prob.counts.sum(axis=1)[:, None, None] * Lam[:, :, None] * g
+    h = 1e-5
+    for unit in (0, 5, 17):
+        lp = []
+        for sign in (1, -1):
+            F = _weighted_frequency(prob, unit, sign * h, 0.0)
+            t = inversion_terms(P0, prob.design, [sparse.csr_matrix(m) for m in F],
+                                prob.discount)
+            lp.append(cell_logit(t.Zt, t.et, theta)[1])
         fd = -np.einsum("sjk,sj->k", w, (lp[0] - lp[1]) / (2 * h))
         ours = res.information @ res.influence_parts["transitions"][unit]
         np.testing.assert_allclose(ours, fd, rtol=1e-5, atol=1e-7 * np.abs(fd).max())

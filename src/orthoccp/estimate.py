@@ -169,9 +169,9 @@ def estimate(
         Known nuisance values (e.g. the simulator's exact ones) instead of cross-fitting.
     model_ccp_steps : int, default=0
         Model-implied CCP steps after the first solve. Each step replaces the learner's CCP
-        by the model's :math:`\Lambda(\hat\theta)` (built from the current continuation
+        by the model's :math:`\\Lambda(\\hat\\theta)` (built from the current continuation
         expectations, clipped to ``clip``), refits the continuation regressions of its
-        :math:`\ln P_R` target (same folds; K regressor fits per continuation choice) and
+        :math:`\\ln P_R` target (same folds; K regressor fits per continuation choice) and
         solves again. Where the anchor choice is so rare that no learner can resolve its
         probability (states from which the anchor is essentially never chosen), the model's
         utility index extrapolates it instead of the learner's floor. Needs the standard
@@ -452,7 +452,7 @@ def _check_model_ccp_steps(steps: Any, *, moments: str, nuisances: Nuisances | N
 
 
 def model_ccp(bound: BoundModel, nuisances: Nuisances, theta: np.ndarray, clip: float) -> np.ndarray:
-    """(n_rows, J) model-implied CCPs :math:`\Lambda_j(w(x; \theta, \hat\mu))` at every row.
+    r"""(n_rows, J) model-implied CCPs :math:`\Lambda_j(w(x; \theta, \hat\mu))` at every row.
 
     :math:`w_j = X_j'\theta + o_j` from the continuation expectations at the row (METHOD §2),
     so the anchor probability follows the utility index where no learner can resolve it.

@@ -375,7 +375,7 @@ def refit_anchor_target(
     backend: Backend | None = None,
     clipped: np.ndarray | None = None,
 ) -> Nuisances:
-    """``base`` with new CCPs and the continuation regressions of their ln P_R target refitted.
+    r"""``base`` with new CCPs and the continuation regressions of their ln P_R target refitted.
 
     Parameters
     ----------

@@ -334,8 +334,9 @@ def estimate_discrete(
     first-order effect of unit i's transitions on the score through :math:`\\hat F`
     (two-step estimation, Newey & McFadden 1994, Theorem 6.1):
     :math:`c_i = -\\beta \\sum_{s,k} \\omega_k(s) (D^{(i)}_k V)(s)`,
-    :math:`\\omega_k = n_s \\Lambda_k g_k + \\beta \\Lambda_k \\mu`,
-    :math:`\\mu = (I - \\beta F^P)^{-\\prime} \\sum_j F_j' (n \\Lambda_j g_j)`, where
+    :math:`\\omega_k = n_s \\Lambda_k g_k + \\beta P_k \\mu`,
+    :math:`\\mu = (I - \\beta F^P)^{-\\prime} \\sum_j F_j' (n \\Lambda_j g_j)`, with
+    :math:`P` the CCPs the inversion used (:math:`P = \\Lambda` at NPL's fixed point), where
     :math:`D^{(i)}` is unit i's influence on :math:`\\hat F`
     (:meth:`TransitionMatrices.directional`). The same formula holds for ``"pml"`` steps
     from :math:`\\sqrt{n}`-consistent CCPs (Aguirregabiria & Mira 2002, Proposition 4), with
@@ -417,7 +418,8 @@ def estimate_discrete(
                                            max_steps=1 if inexact else None)
         new = implied(Zt, et, theta_hat)
         change = float(np.max(np.abs(new - P)))
-        if inexact and change < tol:
+        if inexact and (change < tol or iteration == limit - 1):
+            # settled, or out of iterations: the returned estimate must maximise Q on its terms
             theta_hat, n_steps = newton_pseudo(Zt, et, problem.counts, theta_hat, names=names)
             new = implied(Zt, et, theta_hat)
             change = float(np.max(np.abs(new - P)))
@@ -498,7 +500,9 @@ def _covariance(
         w = n_s[:, None, None] * Lam[:, :, None] * g  # (S, J, p)
         lam = sum(problem.mats[j].T @ w[:, j, :] for j in range(J))
         mu = inv.lu.solve(np.asarray(lam), trans="T")
-        omega = w + beta * Lam[:, :, None] * mu[:, None, :]
+        # dW/dF runs through I - beta F^P at the CCPs the inversion used (= Lam at NPL's fixed
+        # point; the starting CCPs for "pml")
+        omega = w + beta * ccp_used[:, :, None] * mu[:, None, :]
         per_unit = -beta * problem.transitions.directional(omega, value, problem.n_units)
         if cov == "clustered":
             trans = per_unit

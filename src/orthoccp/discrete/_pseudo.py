@@ -160,6 +160,8 @@ def newton_pseudo(
 
     With ``max_steps``, stop after that many (step-halved) Newton steps even short of
     convergence: NPL's inner loop, whose fixed point does not depend on it."""
+    if max_steps is not None and max_steps < 1:
+        raise ValueError(f"max_steps must be None or at least 1, got {max_steps!r}.")
     seen = counts.sum(axis=1) > 0
     Zs, es, n = Zt[seen], et[seen], counts[seen]
     q = _Binary(Zs, es, n) if Zs.shape[1] == 2 else _Multinomial(Zs, es, n)
