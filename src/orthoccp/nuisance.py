@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from typing import Any, Literal
 
 import numpy as np
@@ -86,6 +86,12 @@ def clip_probabilities(P: np.ndarray, eps: float) -> tuple[np.ndarray, np.ndarra
     Q = np.clip(P, eps, 1.0 - eps)
     Q /= Q.sum(axis=1, keepdims=True)
     return Q, hit
+
+
+def clip_record(choices: Sequence[Any], hit: np.ndarray) -> tuple[dict[Any, int], np.ndarray]:
+    """Per choice label, how many entries of ``hit`` were clipped, and which rows had any."""
+    counts = {choices[j]: int(hit[:, j].sum()) for j in range(hit.shape[1])}
+    return counts, np.asarray(hit.any(axis=1))
 
 
 def learner_dtype(*templates: Any) -> type:
@@ -296,7 +302,7 @@ def crossfit_nuisances(
             raw[fold_rows[k]] = next(probas)
         ccp, hit = clip_probabilities(raw, clip)
         del raw
-        clipped = {panel.choices[j]: int(hit[:, j].sum()) for j in range(J)}
+        clipped, clipped_rows = clip_record(panel.choices, hit)
         n_fits = len(clf_jobs)
 
         d = bound.n_targets
@@ -319,7 +325,7 @@ def crossfit_nuisances(
         if not bound.has_next_stage:
             return Nuisances(ccp=ccp, mu=mu, clipped=clipped, n_fits=n_fits,
                              timings={"ccp_s": t_ccp, "continuation_s": 0.0}, folds=folds,
-                             clipped_rows=np.asarray(hit.any(axis=1)))
+                             clipped_rows=clipped_rows)
 
         t1 = time.perf_counter()
         zR_data = bound.next_targets_data()
@@ -361,7 +367,7 @@ def crossfit_nuisances(
         n_fits=n_fits,
         timings={"ccp_s": t_ccp, "continuation_s": t_cont},
         folds=folds,
-        clipped_rows=np.asarray(hit.any(axis=1)),
+        clipped_rows=clipped_rows,
     )
 
 
@@ -439,9 +445,9 @@ def refit_anchor_target(
     timings = dict(base.timings)
     timings["continuation_s"] = timings.get("continuation_s", 0.0) + time.perf_counter() - t0
     hit = np.zeros(ccp.shape, dtype=bool) if clipped is None else np.asarray(clipped, dtype=bool)
-    counts = {panel.choices[j]: int(hit[:, j].sum()) for j in range(ccp.shape[1])}
+    counts, clipped_rows = clip_record(panel.choices, hit)
     return Nuisances(ccp=ccp, mu=mu, clipped=counts, n_fits=len(jobs), timings=timings,
-                     folds=folds, clipped_rows=np.asarray(hit.any(axis=1)))
+                     folds=folds, clipped_rows=clipped_rows)
 
 
 def nuisances_from_truth(
@@ -471,6 +477,6 @@ def nuisances_from_truth(
     hit = np.zeros_like(ccp, dtype=bool)
     if clip > 0:
         ccp, hit = clip_probabilities(ccp, clip)
-    clipped = {panel.choices[j]: int(hit[:, j].sum()) for j in range(J)}
+    clipped, clipped_rows = clip_record(panel.choices, hit)
     return Nuisances(ccp=ccp, mu=mu, clipped=clipped, n_fits=0, timings={}, folds=None,
-                     clipped_rows=np.asarray(hit.any(axis=1)))
+                     clipped_rows=clipped_rows)

@@ -237,10 +237,10 @@ class Results:
                 lines.append(f"  {name}: {why}")
         elif self.debiased:
             lines.append("moments: standard (pseudo-likelihood score with the full correction)")
-        if self.plugin_params is not None and (self.debiased or "model-implied" in self.nuisance_source):
+        stepped = "model-implied" in self.nuisance_source
+        if self.plugin_params is not None and (self.debiased or stepped):
             label = ("plug-in estimates (the learner's first stage, before the model-implied "
-                     "steps): " if "model-implied" in self.nuisance_source else
-                     "plug-in estimates: ")
+                     "steps): " if stepped else "plug-in estimates: ")
             lines.append(
                 label + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items())
             )
