@@ -60,3 +60,45 @@ def test_bad_baseline(small_ebike) -> None:  # type: ignore[no-untyped-def]
     panel, model, _ = panel_and_model(small_ebike)
     with pytest.raises(oc.InputError, match="baseline 'probit' is not among the first stages"):
         compare(panel, model, first_stages={"logit": "logit"}, baseline="probit")
+
+
+class _Broken:
+    """A classifier that fails at fit time with the error a data-dependent failure raises."""
+
+    def get_params(self, deep: bool = True) -> dict:  # type: ignore[type-arg]
+        return {}
+
+    def set_params(self, **params) -> "_Broken":  # type: ignore[no-untyped-def]
+        return self
+
+    def fit(self, X, y):  # type: ignore[no-untyped-def]
+        raise oc.EstimationError("this first stage cannot be fitted here")
+
+    def predict_proba(self, X):  # type: ignore[no-untyped-def]
+        raise AssertionError("never reached")
+
+
+def test_a_failed_first_stage_is_shown_and_the_others_go_through(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    panel, model, _ = panel_and_model(small_ebike)
+    with pytest.warns(oc.OrthoCCPWarning, match="first stage 'broken' failed"):
+        cmp = compare(panel, model, first_stages={"logit": "logit", "broken": _Broken()}, folds=3)
+    assert list(cmp.results) == ["logit"] and "cannot be fitted" in cmp.failed["broken"]
+    frame = cmp.to_frame()
+    assert frame.loc[("broken", "wear_cost"), "solution"].startswith("failed: ")
+    assert np.isnan(frame.loc[("broken", "wear_cost"), "estimate"])
+    assert frame.loc[("logit", "wear_cost"), "solution"] == "newton"
+    assert "broken: FAILED, no estimate" in cmp.summary()
+    assert "failed" in cmp.to_latex()
+    from orthoccp.report import render_report
+
+    page = render_report(cmp)
+    assert "First stage: broken (failed)" in page and "cannot be fitted" in page
+    # The baseline failing too: no difference tests, and it says so.
+    cmp2 = compare(panel, model, first_stages={"broken": _Broken(), "logit": "logit"}, folds=3)
+    assert cmp2.tests == {} and "the baseline broken failed" in cmp2.summary()
+
+
+def test_every_first_stage_failing_raises_the_error(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    panel, model, _ = panel_and_model(small_ebike)
+    with pytest.raises(oc.EstimationError, match="cannot be fitted"):
+        compare(panel, model, first_stages={"broken": _Broken()}, folds=3)

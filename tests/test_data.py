@@ -137,3 +137,28 @@ def test_missing_choices_are_counted_on_either_sort_path(missing: object, numeri
         oc.Panel(df, unit="id", period="t", choice="a", states=["x"])
     p = oc.Panel(df, unit="id", period="t", choice="a", states=["x"], missing="drop")
     assert p.n_rows == 4 and p.choices == ("keep", "swap")
+
+
+def test_unit_keys_are_canonical_across_representations(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    """Writing the same data differently gives the same keys, hence the same folds."""
+    sim = small_ebike
+    states = list(sim.states)
+    base = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice, states=states)
+    variants = {
+        "periods numbered from 1": sim.data.assign(**{sim.period: sim.data[sim.period] + 1}),
+        "integer state stored as float": sim.data.assign(
+            **{states[0]: sim.data[states[0]].astype(np.float64)}),
+        "a value moved in its 13th digit": sim.data.assign(
+            **{states[1]: sim.data[states[1]] * (1 + 1e-13)}),
+    }
+    for what, frame in variants.items():
+        p = oc.Panel(frame, unit=sim.unit, period=sim.period, choice=sim.choice, states=states)
+        np.testing.assert_array_equal(p.unit_keys, base.unit_keys, err_msg=what)
+    reordered = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice,
+                         states=states[::-1])
+    np.testing.assert_array_equal(reordered.unit_keys, base.unit_keys)
+    # A real change of one value changes that unit's key, and only that unit's.
+    changed = sim.data.copy()
+    changed.loc[0, states[1]] += 0.5
+    p = oc.Panel(changed, unit=sim.unit, period=sim.period, choice=sim.choice, states=states)
+    assert int((p.unit_keys != base.unit_keys).sum()) == 1

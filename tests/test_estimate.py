@@ -125,15 +125,32 @@ def test_results_views_are_consistent(small_ebike) -> None:  # type: ignore[no-u
         assert a in res.summary()
 
 
-def test_solve_without_root_raises_with_diagnostics() -> None:
-    """An unpenalised 25-covariate logit on 300 producers predicts exits of ~1e-4 for many
-    rows; the CCP correction then dominates and the corrected moment has no root near the
-    plug-in start. The failure is reported with the condition numbers, never a silent NaN."""
-    from orthoccp.simulate import simulate
+def test_a_failed_newton_solve_falls_back_and_says_so(small_ebike, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """When damped Newton stops short, the estimate comes from the root-finder (here the same
+    root, since one exists) and the summary, the JSON and a warning say so; never a silent
+    NaN and never a lost estimate (tests/test_solver.py checks each route's formula)."""
+    import orthoccp.solver as solver
 
-    sim = simulate("producers", units=300, periods=8, seed=2)
-    with pytest.raises(oc.EstimationError, match="condition number of G"):
-        _fit(sim)
+    full = _fit(small_ebike)
+
+    def stops_short(*args, **kwargs):  # type: ignore[no-untyped-def]
+        raise solver._SolveFailed("no damped step reduces the moment norm (forced)", 3)
+
+    monkeypatch.setattr(solver, "_damped_newton", stops_short)
+    # With a logit first stage on 300 bikes the root lies about 3 s.e. from the one-step
+    # estimate: accepted under a wide nearness rule, replaced by the one-step one under 1 s.e.
+    monkeypatch.setattr(solver, "NEAR_SE", 10.0)
+    with pytest.warns(oc.OrthoCCPWarning, match="damped Newton failed"):
+        res = _fit(small_ebike)
+    assert res.solve_routes == ("root",)
+    np.testing.assert_allclose(res.params, full.params, rtol=0, atol=1e-7)
+    assert "Powell hybrid root-finder" in res.summary() and "(forced)" in res.summary()
+    assert res.to_dict()["solution"]["routes"] == ["root"]
+    monkeypatch.setattr(solver, "NEAR_SE", 1.0)
+    with pytest.warns(oc.OrthoCCPWarning, match="one-step estimator"):
+        res = _fit(small_ebike)
+    assert res.solve_routes == ("one_step",) and "s.e. from the one-step" in res.solve_notes[0]
+    assert np.abs(res.params - full.params).max() > 0.1
 
 
 # --------------------------------------------------------------------------- model-implied CCPs
@@ -192,12 +209,12 @@ def test_model_ccp_steps_count_the_clipping_of_the_ccps_they_use() -> None:
 
     sim = simulate("producers", units=300, periods=8, seed=2)
     panel, model, _ = panel_and_model(sim)
-    opts = dict(learner="logit", folds=3, seed=4, clip=0.02)
+    opts = dict(learner="logit", folds=3, seed=3, clip=0.02)
     base = oc.estimate(panel, model, **opts)
     with pytest.warns(oc.OrthoCCPWarning, match=r"moment rows \(more than 1%\) use a probability"):
         res = oc.estimate(panel, model, model_ccp_steps=1, **opts)
     bound = model.bind(panel)
-    rng = np.random.default_rng(4)
+    rng = np.random.default_rng(3)
     folds = unit_folds(panel.unit_codes, 3, rng, unit_keys=panel.unit_keys)
     nuis = crossfit_nuisances(bound, resolve_learners("logit"), folds, rng, clip=0.02)
     assert nuis.clipped == base.clipped  # the rebuild is the estimate's first stage

@@ -16,6 +16,7 @@ with a :math:`\\chi^2_p` reference.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -24,7 +25,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ._errors import InputError
+from ._errors import EstimationError, InputError, OrthoCCPWarning
 from .data import Panel
 from .estimate import estimate
 from .model import Model
@@ -91,11 +92,22 @@ class Comparison:
         Label of the parametric reference the others are tested against.
     tests : dict
         Label -> :func:`difference_test` table against the baseline.
+    failed : dict
+        Label -> why that first stage gave no estimate (its error message). A failed first
+        stage is shown as failed in every view; the others go through.
     """
 
     results: dict[str, Results]
     baseline: str
     tests: dict[str, pd.DataFrame] = field(default_factory=dict)
+    failed: dict[str, str] = field(default_factory=dict)
+
+    @property
+    def parameters(self) -> list[str]:
+        """Parameter names (from any result that has them)."""
+        for res in self.results.values():
+            return list(res.params.index)
+        return []
 
     def to_frame(self) -> pd.DataFrame:
         """Tidy table: one row per first stage and parameter."""
@@ -108,6 +120,7 @@ class Comparison:
                     "parameter": name,
                     "estimate": float(res.params[name]),
                     "std_error": float(res.std_errors[name]),
+                    "solution": ",".join(sorted(set(res.solve_routes))) or "-",
                 }
                 if test is not None:
                     row.update(
@@ -116,6 +129,10 @@ class Comparison:
                         diff_p_value=float(test.loc[name, "p_value"]),
                     )
                 rows.append(row)
+        for label, why in self.failed.items():
+            for name in self.parameters or ["-"]:
+                rows.append({"first_stage": label, "parameter": name, "estimate": np.nan,
+                             "std_error": np.nan, "solution": "failed: " + why})
         return pd.DataFrame(rows).set_index(["first_stage", "parameter"])
 
     def summary(self) -> str:
@@ -126,8 +143,18 @@ class Comparison:
             f"{'first stage':<16}{'parameter':<18}{'estimate':>10}{'s.e.':>9}{'diff':>10}{'s.e.':>9}{'p':>8}",
         ]
         for (fs, name), r in t.iterrows():
-            diff = "" if fs == self.baseline else f"{r['diff_vs_baseline']:>10.4f}{r['diff_std_error']:>9.4f}{r['diff_p_value']:>8.3f}"
+            if fs in self.failed:
+                continue
+            test = self.tests.get(fs)
+            diff = "" if test is None else f"{r['diff_vs_baseline']:>10.4f}{r['diff_std_error']:>9.4f}{r['diff_p_value']:>8.3f}"
             lines.append(f"{fs:<16}{name:<18}{r['estimate']:>10.4f}{r['std_error']:>9.4f}{diff}")
+        for label, res in self.results.items():
+            if any(route != "newton" for route in res.solve_routes):
+                lines.append(f"{label}: solution {res.solution}")
+        for label, why in self.failed.items():
+            lines.append(f"{label}: FAILED, no estimate ({why})")
+        if self.baseline in self.failed:
+            lines.append(f"no difference tests: the baseline {self.baseline} failed")
         for label, test in self.tests.items():
             w = test.attrs["wald"]
             lines.append(
@@ -147,7 +174,9 @@ class Comparison:
         """LaTeX tabular of the comparison."""
         t = self.to_frame().reset_index()
         body = [
-            f"{r.first_stage} & {str(r.parameter).replace('_', chr(92) + '_')} & {r.estimate:.4f} & ({r.std_error:.4f}) \\\\"
+            f"{r.first_stage} & {str(r.parameter).replace('_', chr(92) + '_')} & "
+            + ("\\multicolumn{2}{c}{failed}" if r.first_stage in self.failed
+               else f"{r.estimate:.4f} & ({r.std_error:.4f})") + " \\\\"
             for r in t.itertuples()
         ]
         return "\n".join(
@@ -197,12 +226,27 @@ def compare(
         raise InputError("compare runs debiased estimates only; drop debias=False.")
     options.pop("debias", None)
     results: dict[str, Results] = {}
+    failed: dict[str, str] = {}
+    first_error: Exception | None = None
     for label, learner in stages.items():
         regressor = None
         if isinstance(learner, tuple):
             learner, regressor = learner
-        results[label] = estimate(panel, model, learner=learner, regressor=regressor, seed=seed, **options)
+        try:
+            results[label] = estimate(
+                panel, model, learner=learner, regressor=regressor, seed=seed, **options
+            )
+        except (EstimationError, InputError) as exc:
+            failed[label] = str(exc)
+            first_error = first_error or exc
+    if not results:
+        assert first_error is not None
+        raise first_error  # every first stage failed: the input, not one learner, is at fault
+    for label, why in failed.items():
+        warnings.warn(f"first stage {label!r} failed and is left out: {why}", OrthoCCPWarning,
+                      stacklevel=2)
     tests = {
-        label: difference_test(res, results[base]) for label, res in results.items() if label != base
+        label: difference_test(res, results[base])
+        for label, res in results.items() if label != base and base in results
     }
-    return Comparison(results=results, baseline=base, tests=tests)
+    return Comparison(results=results, baseline=base, tests=tests, failed=failed)

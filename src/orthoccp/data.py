@@ -448,9 +448,15 @@ class Panel:
         panel uses but the unit label), so relabelling units or reordering rows leaves it
         unchanged. The fold split orders units by it. Computed at first use (the discrete
         estimators never need it).
+
+        The key is canonical: it hashes the choice codes, the states in name order with
+        numeric values as float64 rounded to ``KEY_DIGITS`` significant digits (text states as
+        their text), and periods counted from each unit's first period. Writing the same data
+        differently (``2.0`` for ``2``, states listed in another order, periods numbered from
+        1, a value changed in its 12th digit) gives the same key, hence the same folds.
         """
-        rest = self.frame[[self.period, self.choice, *self.states]]
-        return _unit_keys(rest, self.unit_codes, self.periods)
+        return _unit_keys(self.frame, self.states, self.choice_codes, self.unit_codes,
+                          self.periods)
 
     @property
     def canonical_order(self) -> np.ndarray:
@@ -568,15 +574,58 @@ def _sorted_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return uniques[order], rank[codes]
 
 
-def _unit_keys(rest: pd.DataFrame, unit_codes: np.ndarray, periods: np.ndarray) -> np.ndarray:
-    """A label-free 64-bit key per unit: a hash of its rows (everything but the unit label).
+KEY_DIGITS = 10
+"""Significant digits of a numeric state that enter :attr:`Panel.unit_keys`."""
+
+
+def _round_significant(values: np.ndarray, digits: int) -> tuple[np.ndarray, np.ndarray]:
+    """``values`` as (mantissa integer, decimal exponent) pairs at ``digits`` significant digits.
+
+    Two numbers that round to the same ``digits`` digits give bit-identical pairs (no division
+    that could leave a last-bit difference); zero and -0.0 both give (0, 0).
+    """
+    mantissa = np.zeros(values.shape, dtype=np.float64)
+    exponent = np.zeros(values.shape, dtype=np.float64)
+    nz = np.isfinite(values) & (values != 0)
+    mag = np.floor(np.log10(np.abs(values[nz])))
+    mantissa[nz] = np.round(values[nz] * 10.0 ** (digits - 1 - mag))
+    # a mantissa rounded up to 10**digits belongs to the next decade
+    up = np.abs(mantissa[nz]) >= 10.0**digits
+    mag[up] += 1
+    mantissa[np.flatnonzero(nz)[up]] = np.sign(values[nz][up]) * 10.0 ** (digits - 1)
+    exponent[nz] = mag
+    mantissa[~np.isfinite(values)] = values[~np.isfinite(values)]
+    return mantissa + 0.0, exponent
+
+
+def _unit_keys(
+    frame: pd.DataFrame,
+    states: Sequence[str],
+    choice_codes: np.ndarray,
+    unit_codes: np.ndarray,
+    periods: np.ndarray,
+) -> np.ndarray:
+    """A canonical, label-free 64-bit key per unit: a hash of its rows (all but the unit label).
 
     The rows are sorted by unit, so each unit is one run of rows; the key is the sum of its
     rows' (period-mixed) hashes modulo 2**64, which does not depend on the rows' order.
+    Numeric states enter as float64 rounded to :data:`KEY_DIGITS` significant digits, states
+    in name order, periods relative to the unit's first period (see :attr:`Panel.unit_keys`).
     """
+    columns: dict[str, Any] = {"choice": choice_codes.astype(np.int64)}
+    for k, name in enumerate(sorted(states, key=str)):
+        col = frame[name]
+        if _is_number_column(col) and not ptypes.is_complex_dtype(col):
+            mantissa, exponent = _round_significant(as_float(col), KEY_DIGITS)
+            columns[f"m{k}"], columns[f"e{k}"] = mantissa, exponent
+        else:
+            columns[f"s{k}"] = col.astype(str).to_numpy()
+    rest = pd.DataFrame(columns)
     row_hash = pd.util.hash_pandas_object(rest, index=False).to_numpy(dtype=np.uint64)
-    mixed = row_hash * (np.uint64(2) * (periods.astype(np.uint64) & np.uint64(0xFFFF)) + np.uint64(1))
     starts = np.flatnonzero(np.r_[True, unit_codes[1:] != unit_codes[:-1]])
+    first = np.repeat(periods[starts], np.diff(np.r_[starts, unit_codes.size]))
+    relative = (periods - first).astype(np.uint64)
+    mixed = row_hash * (np.uint64(2) * (relative & np.uint64(0xFFFF)) + np.uint64(1))
     return np.add.reduceat(mixed, starts)
 
 

@@ -258,6 +258,8 @@ def estimate(
     if nuisances is not None:
         splits = 1
     thetas, covs, influences, decomps, plugins = [], [], [], [], []
+    routes: list[str] = []
+    route_notes: list[str] = []
     n_fits = 0
     n_clipped_moment_rows = 0
     clipped: dict[Any, int] = {}
@@ -324,6 +326,12 @@ def estimate(
             if debias:
                 theta, info = solve_orthogonal(system, theta)
             iterations += info.iterations
+        routes.append(info.route if debias and not static else "plug-in")
+        route_notes.append(info.note)
+        if info.route != "newton" and debias:
+            warnings.warn(
+                f"split {split + 1}: {info.note}.", OrthoCCPWarning, stacklevel=2
+            )
         # Clipping counts of the CCPs the final moment uses (the model's after the steps).
         for k, v in nuis.clipped.items():
             clipped[k] = clipped.get(k, 0) + v
@@ -424,6 +432,8 @@ def estimate(
         moments=moments,
         diagnostics=diagnostics,
         fallback=dict(plan.reasons) if plan is not None else {},
+        solve_routes=tuple(routes),
+        solve_notes=tuple(route_notes),
         version=__version__,
     )
     if cov == "clustered" and panel.n_units >= 2:

@@ -84,7 +84,7 @@ def render_report(
     truth : mapping, optional
         Parameter -> true value (simulated data only): adds a coverage table.
     """
-    base = comparison.results[comparison.baseline]
+    base = comparison.results.get(comparison.baseline) or next(iter(comparison.results.values()))
     parts = [
         "<!DOCTYPE html><html><head><meta charset='utf-8'>",
         f"<title>{html.escape(title)}</title>",
@@ -101,6 +101,11 @@ def render_report(
         _table(comparison.to_frame()),
         f"<pre>{html.escape(comparison.summary())}</pre>",
     ]
+    for label, why in comparison.failed.items():
+        parts.append(
+            f"<h2>First stage: {html.escape(label)} (failed)</h2><p>This first stage gave no "
+            f"estimate: {html.escape(why)}</p>"
+        )
     if truth is not None:
         parts.append("<h2>Estimates against the truth (simulated data)</h2>")
         parts.append(_table(truth_table(comparison, truth)))

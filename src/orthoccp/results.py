@@ -84,6 +84,27 @@ class RowAccounting:
         return "; ".join(parts) + "."
 
 
+_ROUTE_TEXT = {
+    "newton": "damped Newton on the debiased moment",
+    "root": "Powell hybrid root-finder (damped Newton failed)",
+    "one_step": "one-step estimator from the plug-in solution (no root near it)",
+    "plug-in": "plug-in pseudo-likelihood maximum",
+}
+
+
+def describe_routes(routes: tuple[str, ...]) -> str:
+    """``"damped Newton ..."`` or, over several splits, the count of each route."""
+    if not routes:
+        return "not recorded"
+    kinds = sorted(set(routes), key=routes.index)
+    if len(kinds) == 1:
+        text = _ROUTE_TEXT.get(kinds[0], kinds[0])
+        return text if len(routes) == 1 else f"{text} (all {len(routes)} splits)"
+    return "; ".join(
+        f"{_ROUTE_TEXT.get(k, k)} in {routes.count(k)} of {len(routes)} splits" for k in kinds
+    )
+
+
 def _num(x: float) -> float | None:
     x = float(x)
     return x if math.isfinite(x) else None
@@ -108,6 +129,10 @@ class Results:
     influence : numpy.ndarray
         Per-unit influence terms (n_units x p); ``cov`` is their outer-product sum times the
         small-sample factor. ``influence_units`` holds the matching unit labels.
+    solve_routes, solve_notes : tuple of str
+        Per split, how the second stage was solved (``"newton"``, ``"root"``, ``"one_step"``,
+        or ``"plug-in"`` when not debiased; see :func:`orthoccp.solver.solve_orthogonal`) and
+        why a fallback route was taken.
     """
 
     params: pd.Series
@@ -139,7 +164,14 @@ class Results:
     moments: str = "standard"
     diagnostics: Any = field(default=None, repr=False)
     fallback: dict[str, str] = field(default_factory=dict)
+    solve_routes: tuple[str, ...] = ()
+    solve_notes: tuple[str, ...] = ()
     version: str = ""
+
+    @property
+    def solution(self) -> str:
+        """One line on how the second stage was solved (all splits)."""
+        return describe_routes(self.solve_routes)
 
     # ----------------------------------------------------------------- statistics
     @cached_property
@@ -237,6 +269,11 @@ class Results:
                 lines.append(f"  {name}: {why}")
         elif self.debiased:
             lines.append("moments: standard (pseudo-likelihood score with the full correction)")
+        if self.solve_routes:
+            lines.append(f"solution: {self.solution}")
+            for k, note in enumerate(self.solve_notes):
+                if note:
+                    lines.append(f"  split {k + 1}: {note}")
         stepped = "model-implied" in self.nuisance_source
         if self.plugin_params is not None and (self.debiased or stepped):
             label = ("plug-in estimates (the learner's first stage, before the model-implied "
@@ -312,6 +349,8 @@ class Results:
             "debiased": self.debiased,
             "moments": self.moments,
             "moments_fallback": dict(self.fallback),
+            "solution": {"routes": list(self.solve_routes), "notes": list(self.solve_notes),
+                         "summary": self.solution},
             "model": {k: (v if k != "anchor" else str(v)) for k, v in self.model.items()},
             "n_units": self.n_units,
             "n_rows": self.accounting.n_rows,

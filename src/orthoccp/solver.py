@@ -5,9 +5,15 @@
 * :func:`solve_orthogonal` starts there and solves :math:`\\sum_i \\psi_i(\\theta) = 0` by damped
   Newton steps that use the Jacobian :math:`G` of :math:`\\sum m` alone
   (:math:`E[\\partial\\phi/\\partial\\theta] = 0` at the truth), backtracking on
-  :math:`\\lVert G_0^{-1}\\bar\\psi\\rVert` and stopping on the step size.
+  :math:`\\lVert G_0^{-1}\\bar\\psi\\rVert` and stopping on the step size. When the damped
+  Newton solve fails it does not stop: a Powell hybrid root-finder on the same scaled moment
+  is tried, and where :math:`\\sum\\psi` has no root near the plug-in solution the one-step
+  estimator :math:`\\hat\\theta_1 = \\hat\\theta_{plug} - \\hat G^{-1}\\bar\\psi(\\hat\\theta_{plug})`
+  is returned (Newey & McFadden 1994, Handbook of Econometrics vol. 4, §3.4). Which route was
+  taken, and why, is recorded in :class:`SolveInfo`.
 
-Failures raise :class:`~orthoccp.EstimationError` with the condition number and the last step.
+A singular or ill-conditioned :math:`G` (no estimate exists) raises
+:class:`~orthoccp.EstimationError` with the condition number and the last step.
 """
 
 from __future__ import annotations
@@ -15,24 +21,54 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import optimize
 
+from ._arrays import group_sums
 from ._errors import EstimationError
 from .moments import MomentSystem
 
-__all__ = ["SolveInfo", "solve_plugin", "solve_orthogonal"]
+__all__ = ["ROUTES", "SolveInfo", "solve_plugin", "solve_orthogonal"]
 
 _MAX_COND = 1e12
 
 
+ROUTES = ("newton", "root", "one_step")
+"""How :func:`solve_orthogonal` found its answer: damped Newton, the Powell hybrid root-finder,
+or the one-step estimator from the plug-in solution."""
+
+NEAR_SE = 1.0
+"""A root of the fallback root-finder is accepted when every parameter lies within this many
+standard errors of the one-step estimate (both have the debiased estimator's first-order
+distribution, so a root farther away is not the one the theory describes)."""
+
+
 @dataclass(frozen=True)
 class SolveInfo:
-    """How a solve ended."""
+    """How a solve ended.
+
+    Attributes
+    ----------
+    route : {"newton", "root", "one_step"}
+        Which solution is returned (see :func:`solve_orthogonal`).
+    note : str
+        Why a fallback route was taken (empty for ``"newton"``).
+    """
 
     iterations: int
     converged: bool
     last_step: float
     condition: float
     moment_norm: float
+    route: str = "newton"
+    note: str = ""
+
+
+class _SolveFailed(Exception):
+    """Damped Newton stopped without a root (caught by :func:`solve_orthogonal`)."""
+
+    def __init__(self, message: str, iterations: int) -> None:
+        super().__init__(message)
+        self.iterations = iterations
 
 
 def _checked_inverse(G: np.ndarray, what: str, step: float = float("nan")) -> np.ndarray:
@@ -124,23 +160,106 @@ def solve_orthogonal(
     *,
     tol: float = 1e-9,
     max_iter: int = 100,
+    fallback: bool = True,
 ) -> tuple[np.ndarray, SolveInfo]:
-    """Solve :math:`\\sum_i \\psi_i(\\theta) = 0` by damped Newton steps from ``start``.
+    r"""Solve :math:`\sum_i \psi_i(\theta) = 0` from the plug-in solution ``start``.
 
-    The direction uses the Jacobian of :math:`\\sum\\psi` (central differences); where that
-    is ill-conditioned it falls back to :math:`G`, the Jacobian of :math:`\\sum m`, which has
-    the same limit because :math:`E[\\partial\\phi/\\partial\\theta] = 0` at the truth. Steps are
-    halved until :math:`\\lVert G_0^{-1}\\bar\\psi\\rVert` decreases; the solve stops when the step,
-    on the parameter scale, is below ``tol * (1 + max|theta|)``.
+    Parameters
+    ----------
+    system : MomentSystem
+        The moment system (anything with ``moment``, ``jacobian``, ``units``).
+    start : numpy.ndarray
+        The plug-in solution :math:`\hat\theta_{plug}`.
+    tol : float, default=1e-9
+        Newton stops when the step is below ``tol * (1 + max|theta|)``.
+    max_iter : int, default=100
+        Newton iterations.
+    fallback : bool, default=True
+        When the damped Newton solve fails, try the root-finder and then the one-step
+        estimator instead of raising.
+
+    Returns
+    -------
+    theta : numpy.ndarray
+    info : SolveInfo
+        ``info.route`` says which of the three routes gave ``theta`` and ``info.note`` why.
+
+    Notes
+    -----
+    1. **Damped Newton.** The direction uses the Jacobian of :math:`\sum\psi` (central
+       differences); where that is ill-conditioned it uses :math:`G`, the Jacobian of
+       :math:`\sum m`, which has the same limit because :math:`E[\partial\phi/\partial\theta]
+       = 0` at the truth. Steps are halved until :math:`\lVert G_0^{-1}\bar\psi\rVert`
+       decreases.
+    2. **Root-finder** (when 1 fails): Powell's hybrid method (``scipy.optimize.root``,
+       ``method="hybr"``) on :math:`G_0^{-1}\sum\psi`, from the plug-in solution. Its root is
+       accepted when it lies within ``NEAR_SE`` standard errors of the one-step estimate.
+    3. **One-step** (when 2 finds no root near the plug-in solution):
+
+       .. math::
+
+           \hat\theta_1 = \hat\theta_{plug} - G(\hat\theta_{plug})^{-1}
+           \sum_i \psi_i(\hat\theta_{plug}).
+
+       Because :math:`\psi` is orthogonal, :math:`\hat\theta_1` has the debiased
+       estimator's first-order distribution when the plug-in solution is within
+       :math:`o_p(n^{-1/4})` of :math:`\theta_0` and :math:`G` is consistent, the rate
+       conditions the debiased estimator already needs.
+
+    A singular or ill-conditioned :math:`G` at the plug-in solution raises
+    :class:`~orthoccp.EstimationError`: then no estimate exists.
+
+    References
+    ----------
+    Newey & McFadden (1994), "Large sample estimation and hypothesis testing", Handbook of
+    Econometrics vol. 4, §3.4 (one-step estimators); Powell (1970), "A hybrid method for
+    nonlinear equations" (MINPACK ``hybrd``).
     """
-    theta = np.array(start, dtype=np.float64)
-    G0inv = _checked_inverse(system.jacobian(theta), "orthogonal solve")
+    theta0 = np.array(start, dtype=np.float64)
+    G0 = system.jacobian(theta0)
+    G0inv = _checked_inverse(G0, "orthogonal solve")
+    try:
+        return _damped_newton(system, theta0, G0inv, tol=tol, max_iter=max_iter)
+    except _SolveFailed as exc:
+        if not fallback:
+            raise EstimationError(str(exc)) from None
+        newton_failure, used = str(exc), exc.iterations
+    one = theta0 - G0inv @ system.moment(theta0, debias=True).sum(axis=0)
+    cond = float(np.linalg.cond(G0))
+    root, root_note = _hybrid_root(system, theta0, G0inv, tol=tol)
+    if root is not None:
+        se = _sandwich_se(system, one)
+        gap = float(np.max(np.abs(root - one) / se)) if np.all(se > 0) else float("inf")
+        if gap <= NEAR_SE:
+            merit = float(np.linalg.norm(G0inv @ system.moment(root, debias=True).sum(axis=0)))
+            return root, SolveInfo(
+                used, True, float("nan"), cond, merit, route="root",
+                note=f"damped Newton failed ({newton_failure}); the Powell hybrid root-finder "
+                     f"solved the moment equations ({gap:.2f} s.e. from the one-step estimate)",
+            )
+        root_note = (f"its root lies {gap:.2f} s.e. from the one-step estimate (more than "
+                     f"{NEAR_SE:g}), so it is not the root near the plug-in solution")
+    merit = float(np.linalg.norm(G0inv @ system.moment(one, debias=True).sum(axis=0)))
+    return one, SolveInfo(
+        used, False, float(np.abs(one - theta0).max()), cond, merit, route="one_step",
+        note=f"damped Newton failed ({newton_failure}); root-finder: {root_note}; the one-step "
+             f"estimator from the plug-in solution is used",
+    )
+
+
+def _damped_newton(
+    system: MomentSystem, theta: np.ndarray, G0inv: np.ndarray, *, tol: float, max_iter: int
+) -> tuple[np.ndarray, SolveInfo]:
+    """Step 1 of :func:`solve_orthogonal`; raises :class:`_SolveFailed` when it stops short."""
     psi = system.moment(theta, debias=True).sum(axis=0)
     merit = float(np.linalg.norm(G0inv @ psi))
     step_size = float("inf")
     for it in range(1, max_iter + 1):
         G = system.jacobian(theta)
-        _checked_inverse(G, "orthogonal solve", step_size)
+        try:
+            _checked_inverse(G, "orthogonal solve", step_size)
+        except EstimationError as exc:
+            raise _SolveFailed(str(exc), it) from None
         Jpsi = psi_jacobian(system, theta)
         directions = []
         if np.all(np.isfinite(Jpsi)) and np.linalg.cond(Jpsi) < _MAX_COND:
@@ -167,15 +286,43 @@ def solve_orthogonal(
             if min(float(np.abs(d).max()) for d in directions) < 1e3 * scale:
                 # Round-off floor: the remaining step is far below any standard error.
                 return theta, SolveInfo(it, True, full, float(np.linalg.cond(G)), merit)
-            raise EstimationError(
-                f"orthogonal solve: no damped step reduces the moment norm at iteration {it} "
-                f"(moment norm {merit:.3g}, last full step {full:.3g}, condition number of G "
-                f"{np.linalg.cond(G):.3g}, of the moment Jacobian {np.linalg.cond(Jpsi):.3g})."
+            raise _SolveFailed(
+                f"no damped step reduces the moment norm at iteration {it}: moment norm "
+                f"{merit:.3g}, last full step {full:.3g}, condition number of G "
+                f"{np.linalg.cond(G):.3g}, of the moment Jacobian {np.linalg.cond(Jpsi):.3g}",
+                it,
             )
-        step = found
-        step_size = float(np.abs(lam * step).max())
+        step_size = float(np.abs(lam * found).max())
         theta, psi, merit = cand, psi_new, merit_new
-    raise EstimationError(
-        f"orthogonal solve did not converge in {max_iter} iterations (last step {step_size:.3g}, "
-        f"moment norm {merit:.3g}, condition number {np.linalg.cond(system.jacobian(theta)):.3g})."
+    raise _SolveFailed(
+        f"no convergence in {max_iter} iterations: last step {step_size:.3g}, moment norm "
+        f"{merit:.3g}",
+        max_iter,
     )
+
+
+def _hybrid_root(
+    system: MomentSystem, theta0: np.ndarray, G0inv: np.ndarray, *, tol: float
+) -> tuple[np.ndarray | None, str]:
+    r"""Powell's hybrid method on :math:`G_0^{-1}\sum\psi`; ``(None, why)`` when it fails."""
+
+    def scaled(theta: np.ndarray) -> np.ndarray:
+        value = G0inv @ system.moment(theta, debias=True).sum(axis=0)
+        return value if np.all(np.isfinite(value)) else np.full_like(value, 1e10)
+
+    with np.errstate(all="ignore"):
+        sol = optimize.root(scaled, theta0, method="hybr", options={"xtol": 1e-12, "maxfev": 400})
+    x = np.asarray(sol.x, dtype=np.float64)
+    resid = float(np.abs(scaled(x)).max()) if np.all(np.isfinite(x)) else float("inf")
+    if resid > max(1e3 * tol, 1e-7) * (1.0 + float(np.abs(x).max())):
+        return None, f"no root found (Powell hybrid: {sol.message.strip().rstrip('.')})"
+    return x, ""
+
+
+def _sandwich_se(system: MomentSystem, theta: np.ndarray) -> np.ndarray:
+    """Unit-clustered sandwich standard errors at ``theta`` (for the nearness rule only)."""
+    Ginv = np.linalg.inv(system.jacobian(theta))
+    units = np.unique(system.units, return_inverse=True)[1]
+    s = group_sums(units, system.moment(theta, debias=True), int(units.max()) + 1)
+    influence = s @ Ginv.T
+    return np.sqrt(np.diag(influence.T @ influence))

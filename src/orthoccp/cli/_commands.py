@@ -233,6 +233,7 @@ def _cmd_compare(args: argparse.Namespace) -> int:
             }
             for label, test in cmp.tests.items()
         },
+        "failed": dict(cmp.failed),
     }
     texts = {"--json": lambda: _dumps(doc), "--latex": lambda: cmp.to_latex() + "\n",
              "--html": cmp._repr_html_}

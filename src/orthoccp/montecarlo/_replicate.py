@@ -75,9 +75,9 @@ def _fit_one(
     est_seed: int,
     learners: tuple[Any, Any],
     oracle: Any,
-) -> tuple[dict[str, tuple[float, float, float, float]] | None, str, str, int, float]:
+) -> tuple[dict[str, tuple[float, float, float, float]] | None, str, str, int, float, str]:
     """Run one estimator; returns (per parameter (est, se, lo, hi) or None, moments, error,
-    number of orthoccp warnings, seconds)."""
+    number of orthoccp warnings, seconds, solution route(s))."""
     clf, reg = learners
     corrected = name in _CORRECTED
     options: dict[str, Any] = {"folds": settings.folds, "seed": est_seed, "learner": clf,
@@ -98,7 +98,7 @@ def _fit_one(
             n_warn = sum(issubclass(w.category, OrthoCCPWarning) for w in caught)
             moments = settings.moments if corrected and settings.moments else ""
             text = " ".join(f"{type(exc).__name__}: {exc}".split())
-            return None, moments, text, n_warn, seconds
+            return None, moments, text, n_warn, seconds, "failed"
     seconds = time.perf_counter() - t0
     n_warn = sum(issubclass(w.category, OrthoCCPWarning) for w in caught)
     ci = res.conf_int(settings.level)
@@ -111,7 +111,7 @@ def _fit_one(
         )
         for p in res.params.index
     }
-    return values, str(res.moments), "", n_warn, seconds
+    return values, str(res.moments), "", n_warn, seconds, ",".join(res.solve_routes)
 
 
 def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, Any]]:
@@ -161,7 +161,7 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
     records: list[dict[str, Any]] = []
     nan = float("nan")
     for name in settings.estimators:
-        values, moments, error, n_warn, seconds = _fit_one(
+        values, moments, error, n_warn, seconds, solution = _fit_one(
             name, panel, model, settings, est_seed=est_seed, learners=learners, oracle=oracle
         )
         for param, truth in sim.truth.items():
@@ -185,6 +185,7 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
                     "failed": values is None,
                     "error": error,
                     "warnings": n_warn,
+                    "solution": solution,
                 }
             )
     return records

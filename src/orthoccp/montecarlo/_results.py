@@ -34,7 +34,7 @@ def _replications_frame(records: Iterable[Mapping[str, Any]]) -> pd.DataFrame:
         frame[col] = frame[col].astype(np.int64)
     frame["covers"] = frame["covers"].astype("boolean")
     frame["failed"] = frame["failed"].astype(bool)
-    for col in ("estimator", "parameter", "moments", "error"):
+    for col in ("estimator", "parameter", "moments", "error", "solution"):
         frame[col] = frame[col].fillna("").astype(str)
     rank = {e: i for i, e in enumerate(ESTIMATORS)}
     # Parameters keep the order in which they were recorded (the scenario's).
@@ -70,6 +70,7 @@ def _summarise(
             mean_se = float(se.mean()) if k else nan
             cov = float(covers.mean()) if k else nan
             used = sorted({m for m in ok["moments"] if m})
+            fell_back = ok["solution"].str.contains("root|one_step", regex=True).to_numpy()
             rows.append(
                 {
                     "estimator": name,
@@ -92,6 +93,9 @@ def _summarise(
                     "warned": int((cell["warnings"] > 0).sum()),
                     "moments": "+".join(used),
                     "level": float(level),
+                    "fallbacks": int(fell_back.sum()),
+                    "fallback_coverage": (float(covers[fell_back].mean()) if fell_back.any()
+                                          else nan),
                 }
             )
     return pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
@@ -182,7 +186,10 @@ class MonteCarloResults:
         are right); ``rmse``; ``coverage`` = share of intervals containing :math:`\\theta`
         with ``coverage_mcse`` :math:`= \\sqrt{c(1-c)/n}`; ``mean_ci_length``.
         ``median_seconds`` is over all attempts, failed ones included; ``failures`` counts
-        replications whose estimate failed and ``warned`` those with an orthoccp warning.
+        replications whose estimate failed and ``warned`` those with an orthoccp warning;
+        ``fallbacks`` counts estimates from a fallback solve (the root-finder or the one-step
+        estimator, see :func:`orthoccp.solver.solve_orthogonal`) and ``fallback_coverage`` is
+        their coverage alone (NaN when there are none).
         """
         return _summarise(
             self.replications,

@@ -41,6 +41,7 @@ REPLICATION_COLUMNS: tuple[str, ...] = (
     "failed",
     "error",
     "warnings",
+    "solution",
 )
 """Columns of :attr:`MonteCarloResults.replications`."""
 
@@ -65,6 +66,8 @@ SUMMARY_COLUMNS: tuple[str, ...] = (
     "warned",
     "moments",
     "level",
+    "fallbacks",
+    "fallback_coverage",
 )
 """Columns of :attr:`MonteCarloResults.summary`."""
 
