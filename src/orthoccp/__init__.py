@@ -20,6 +20,7 @@ from .data import Panel
 from .diagnostics import Diagnostics
 from .discrete import DiscreteResults, bin_states, check_anchor_probability, estimate_discrete
 from .estimate import estimate
+from .interval_checks import IntervalCheck
 from .learners import learner_names
 from .model import EULER_GAMMA, Model
 from .montecarlo import MonteCarloResults, run_montecarlo
@@ -38,6 +39,7 @@ __all__ = [
     "FoldStability",
     "HansenJ",
     "InputError",
+    "IntervalCheck",
     "Model",
     "MomentResults",
     "MonteCarloResults",

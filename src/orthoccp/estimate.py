@@ -16,13 +16,13 @@ from .anchor import check_anchor_probability
 from .data import Panel
 from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
-from .guards import dominant_units
 from .backends import FeatureRows, resolve_backend
 from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
 from .model import BoundModel, Model
 from .moments import build_moment_system
 from .nuisance import Nuisances, clip_probabilities, crossfit_nuisances, refit_anchor_target
+from .interval_checks import identification_strength, interval_check
 from .results import Results, RowAccounting
 from .solver import solve_orthogonal, solve_plugin
 
@@ -260,6 +260,8 @@ def estimate(
     thetas, covs, influences, decomps, plugins = [], [], [], [], []
     routes: list[str] = []
     route_notes: list[str] = []
+    one_steps: list[np.ndarray] = []
+    identification: np.ndarray | None = None
     n_fits = 0
     n_clipped_moment_rows = 0
     clipped: dict[Any, int] = {}
@@ -327,6 +329,14 @@ def estimate(
                 theta, info = solve_orthogonal(system, theta)
             iterations += info.iterations
         routes.append(info.route if debias and not static else "plug-in")
+        if info.one_step is not None:
+            one_steps.append(info.one_step)
+        if split == 0 and debias and not static:
+            Z = bound.Z[rows]
+            identification = identification_strength(
+                system.X, Z - Z[:, bound.anchor_index : bound.anchor_index + 1, :],
+                system.probabilities(theta),
+            )
         route_notes.append(info.note)
         if info.route != "newton" and debias:
             warnings.warn(
@@ -386,6 +396,16 @@ def estimate(
             stacklevel=2,
         )
 
+    checks = None
+    if debias and not static and len(one_steps) == len(thetas):
+        checks = interval_check(
+            params, estimates=np.vstack(thetas), plugins=np.vstack(plugins),
+            one_steps=np.vstack(one_steps), std_errors=se, influence=infl.to_numpy(),
+            identification=identification,
+        )
+        for reading in checks.readings() if checks.flagged else ():
+            warnings.warn(reading, OrthoCCPWarning, stacklevel=2)
+
     timings["learner_fit_s"] = runner.tally.fit_s
     timings["learner_predict_s"] = runner.tally.predict_s
     timings["total_s"] = time.perf_counter() - t_start
@@ -434,10 +454,9 @@ def estimate(
         fallback=dict(plan.reasons) if plan is not None else {},
         solve_routes=tuple(routes),
         solve_notes=tuple(route_notes),
+        interval_check=checks,
         version=__version__,
     )
-    if cov == "clustered" and panel.n_units >= 2:
-        dominant_units(results, stacklevel=3)
     return results
 
 

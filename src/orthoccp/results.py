@@ -133,6 +133,9 @@ class Results:
         Per split, how the second stage was solved (``"newton"``, ``"root"``, ``"one_step"``,
         or ``"plug-in"`` when not debiased; see :func:`orthoccp.solver.solve_orthogonal`) and
         why a fallback route was taken.
+    interval_check : IntervalCheck or None
+        Signs that a parameter's normal interval may not hold (:mod:`orthoccp.interval_checks`);
+        None for the plug-in estimator.
     """
 
     params: pd.Series
@@ -166,6 +169,7 @@ class Results:
     fallback: dict[str, str] = field(default_factory=dict)
     solve_routes: tuple[str, ...] = ()
     solve_notes: tuple[str, ...] = ()
+    interval_check: Any = field(default=None, repr=False)
     version: str = ""
 
     @property
@@ -287,6 +291,8 @@ class Results:
                 lines.append(
                     f"  {str(name):<16}" + "  ".join(f"{c} {v:6.1%}" for c, v in r.items())
                 )
+        if self.interval_check is not None:
+            lines.extend(self.interval_check.readings())
         if self.diagnostics is not None:
             lines.append("diagnostics (see .diagnostics for the tables):")
             lines.extend(f"  {r}" for r in self.diagnostics.readings())
@@ -351,6 +357,8 @@ class Results:
             "moments_fallback": dict(self.fallback),
             "solution": {"routes": list(self.solve_routes), "notes": list(self.solve_notes),
                          "summary": self.solution},
+            "interval_check": (None if self.interval_check is None
+                               else self.interval_check.to_dict()),
             "model": {k: (v if k != "anchor" else str(v)) for k, v in self.model.items()},
             "n_units": self.n_units,
             "n_rows": self.accounting.n_rows,

@@ -18,7 +18,7 @@ A singular or ill-conditioned :math:`G` (no estimate exists) raises
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy import optimize
@@ -52,6 +52,10 @@ class SolveInfo:
         Which solution is returned (see :func:`solve_orthogonal`).
     note : str
         Why a fallback route was taken (empty for ``"newton"``).
+    one_step : numpy.ndarray or None
+        The one-step estimate from the plug-in solution (set by :func:`solve_orthogonal`
+        whatever the route): its distance to the solution measures how far the moment is from
+        linear between the two (:mod:`orthoccp.interval_checks`).
     """
 
     iterations: int
@@ -61,6 +65,7 @@ class SolveInfo:
     moment_norm: float
     route: str = "newton"
     note: str = ""
+    one_step: np.ndarray | None = field(default=None, repr=False)
 
 
 class _SolveFailed(Exception):
@@ -218,13 +223,14 @@ def solve_orthogonal(
     theta0 = np.array(start, dtype=np.float64)
     G0 = system.jacobian(theta0)
     G0inv = _checked_inverse(G0, "orthogonal solve")
+    one = theta0 - G0inv @ system.moment(theta0, debias=True).sum(axis=0)
     try:
-        return _damped_newton(system, theta0, G0inv, tol=tol, max_iter=max_iter)
+        theta, info = _damped_newton(system, theta0, G0inv, tol=tol, max_iter=max_iter)
+        return theta, replace(info, one_step=one)
     except _SolveFailed as exc:
         if not fallback:
             raise EstimationError(str(exc)) from None
         newton_failure, used = str(exc), exc.iterations
-    one = theta0 - G0inv @ system.moment(theta0, debias=True).sum(axis=0)
     cond = float(np.linalg.cond(G0))
     root, root_note = _hybrid_root(system, theta0, G0inv, tol=tol)
     if root is not None:
@@ -236,6 +242,7 @@ def solve_orthogonal(
                 used, True, float("nan"), cond, merit, route="root",
                 note=f"damped Newton failed ({newton_failure}); the Powell hybrid root-finder "
                      f"solved the moment equations ({gap:.2f} s.e. from the one-step estimate)",
+                one_step=one,
             )
         root_note = (f"its root lies {gap:.2f} s.e. from the one-step estimate (more than "
                      f"{NEAR_SE:g}), so it is not the root near the plug-in solution")
@@ -244,6 +251,7 @@ def solve_orthogonal(
         used, False, float(np.abs(one - theta0).max()), cond, merit, route="one_step",
         note=f"damped Newton failed ({newton_failure}); root-finder: {root_note}; the one-step "
              f"estimator from the plug-in solution is used",
+        one_step=one,
     )
 
 

@@ -75,9 +75,10 @@ def _fit_one(
     est_seed: int,
     learners: tuple[Any, Any],
     oracle: Any,
-) -> tuple[dict[str, tuple[float, float, float, float]] | None, str, str, int, float, str]:
+) -> tuple[dict[str, tuple[float, float, float, float]] | None, str, str, int, float, str,
+           dict[str, dict[str, Any]]]:
     """Run one estimator; returns (per parameter (est, se, lo, hi) or None, moments, error,
-    number of orthoccp warnings, seconds, solution route(s))."""
+    number of orthoccp warnings, seconds, solution route(s), per parameter interval checks)."""
     clf, reg = learners
     corrected = name in _CORRECTED
     options: dict[str, Any] = {"folds": settings.folds, "seed": est_seed, "learner": clf,
@@ -98,7 +99,7 @@ def _fit_one(
             n_warn = sum(issubclass(w.category, OrthoCCPWarning) for w in caught)
             moments = settings.moments if corrected and settings.moments else ""
             text = " ".join(f"{type(exc).__name__}: {exc}".split())
-            return None, moments, text, n_warn, seconds, "failed"
+            return None, moments, text, n_warn, seconds, "failed", {}
     seconds = time.perf_counter() - t0
     n_warn = sum(issubclass(w.category, OrthoCCPWarning) for w in caught)
     ci = res.conf_int(settings.level)
@@ -111,7 +112,13 @@ def _fit_one(
         )
         for p in res.params.index
     }
-    return values, str(res.moments), "", n_warn, seconds, ",".join(res.solve_routes)
+    checks = {} if res.interval_check is None else res.interval_check.to_dict()
+    return values, str(res.moments), "", n_warn, seconds, ",".join(res.solve_routes), checks
+
+
+def _signal(checks: dict[str, dict[str, Any]], param: Any, name: str) -> float:
+    value = checks.get(str(param), {}).get(name)
+    return float("nan") if value is None else float(value)
 
 
 def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, Any]]:
@@ -161,7 +168,7 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
     records: list[dict[str, Any]] = []
     nan = float("nan")
     for name in settings.estimators:
-        values, moments, error, n_warn, seconds, solution = _fit_one(
+        values, moments, error, n_warn, seconds, solution, checks = _fit_one(
             name, panel, model, settings, est_seed=est_seed, learners=learners, oracle=oracle
         )
         for param, truth in sim.truth.items():
@@ -186,6 +193,10 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
                     "error": error,
                     "warnings": n_warn,
                     "solution": solution,
+                    "linearity_gap": _signal(checks, param, "linearity_gap"),
+                    "correction_shift": _signal(checks, param, "correction_shift"),
+                    "effective_units": _signal(checks, param, "effective_units"),
+                    "flagged": bool(checks.get(str(param), {}).get("flagged", False)),
                 }
             )
     return records

@@ -28,12 +28,14 @@ from ._settings import (
 
 def _replications_frame(records: Iterable[Mapping[str, Any]]) -> pd.DataFrame:
     frame = pd.DataFrame(list(records), columns=list(REPLICATION_COLUMNS))
-    for col in ("estimate", "std_error", "ci_lower", "ci_upper", "ci_length", "truth", "seconds"):
+    for col in ("estimate", "std_error", "ci_lower", "ci_upper", "ci_length", "truth", "seconds",
+                "linearity_gap", "correction_shift", "effective_units"):
         frame[col] = pd.to_numeric(frame[col], errors="coerce").astype(float)
     for col in ("rep", "sim_seed", "est_seed", "warnings"):
         frame[col] = frame[col].astype(np.int64)
     frame["covers"] = frame["covers"].astype("boolean")
     frame["failed"] = frame["failed"].astype(bool)
+    frame["flagged"] = frame["flagged"].fillna(False).astype(bool)
     for col in ("estimator", "parameter", "moments", "error", "solution"):
         frame[col] = frame[col].fillna("").astype(str)
     rank = {e: i for i, e in enumerate(ESTIMATORS)}
@@ -71,6 +73,7 @@ def _summarise(
             cov = float(covers.mean()) if k else nan
             used = sorted({m for m in ok["moments"] if m})
             fell_back = ok["solution"].str.contains("root|one_step", regex=True).to_numpy()
+            flagged = ok["flagged"].to_numpy(dtype=bool)
             rows.append(
                 {
                     "estimator": name,
@@ -96,6 +99,9 @@ def _summarise(
                     "fallbacks": int(fell_back.sum()),
                     "fallback_coverage": (float(covers[fell_back].mean()) if fell_back.any()
                                           else nan),
+                    "flagged": int(flagged.sum()),
+                    "unflagged_coverage": (float(covers[~flagged].mean()) if (~flagged).any()
+                                           else nan),
                 }
             )
     return pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
@@ -189,7 +195,9 @@ class MonteCarloResults:
         replications whose estimate failed and ``warned`` those with an orthoccp warning;
         ``fallbacks`` counts estimates from a fallback solve (the root-finder or the one-step
         estimator, see :func:`orthoccp.solver.solve_orthogonal`) and ``fallback_coverage`` is
-        their coverage alone (NaN when there are none).
+        their coverage alone (NaN when there are none); ``flagged`` counts estimates whose
+        interval check (:mod:`orthoccp.interval_checks`) flagged the parameter and
+        ``unflagged_coverage`` is the coverage of the others.
         """
         return _summarise(
             self.replications,

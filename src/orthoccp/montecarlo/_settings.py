@@ -42,6 +42,10 @@ REPLICATION_COLUMNS: tuple[str, ...] = (
     "error",
     "warnings",
     "solution",
+    "linearity_gap",
+    "correction_shift",
+    "effective_units",
+    "flagged",
 )
 """Columns of :attr:`MonteCarloResults.replications`."""
 
@@ -68,6 +72,8 @@ SUMMARY_COLUMNS: tuple[str, ...] = (
     "level",
     "fallbacks",
     "fallback_coverage",
+    "flagged",
+    "unflagged_coverage",
 )
 """Columns of :attr:`MonteCarloResults.summary`."""
 

@@ -1,0 +1,91 @@
+"""Specification of :mod:`orthoccp.interval_checks`: signs that a normal interval may not hold.
+
+The signals are checked against their definitions (hand computations on small arrays); the
+identification share against its closed form for a regressor diluted by a known factor, whose
+Schur complement scales by the square of that factor (a property of the information matrix,
+Newey & McFadden 1994 §3).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import orthoccp as oc
+from orthoccp.interval_checks import (
+    GAP_LIMIT,
+    WEAK_LIMIT,
+    identification_strength,
+    interval_check,
+)
+
+from _support import panel_and_model
+
+
+def _check(**overrides):  # type: ignore[no-untyped-def]
+    args = dict(
+        estimates=np.array([[1.0, 2.0]]),
+        plugins=np.array([[0.0, 2.0]]),
+        one_steps=np.array([[0.9, 2.0]]),
+        std_errors=np.array([0.5, 1.0]),
+        influence=np.array([[1.0, 1.0], [1.0, 1.0], [2.0, 1.0]]),
+    )
+    args.update(overrides)
+    return interval_check(["a", "b"], **args)
+
+
+def test_signals_match_their_definitions() -> None:
+    t = _check().table
+    assert t.loc["a", "linearity_gap"] == pytest.approx(0.1 / 0.5)
+    assert t.loc["a", "correction_shift"] == pytest.approx(1.0 / 0.5)
+    assert t.loc["b", "linearity_gap"] == 0.0
+    # influence column a: squares 1, 1, 4 -> top share 4/6, effective units 36/18 = 2
+    assert t.loc["a", "top_unit_share"] == pytest.approx(4 / 6)
+    assert t.loc["a", "effective_units"] == pytest.approx(2.0)
+    assert t.loc["b", "effective_units"] == pytest.approx(3.0)
+    assert np.isnan(t.loc["a", "split_spread"])  # one split
+    assert not t["flagged"].any()
+
+
+def test_a_large_gap_flags_and_says_why() -> None:
+    check = _check(one_steps=np.array([[1.0 - 0.5 * (GAP_LIMIT + 0.1), 2.0]]))
+    assert check.flagged == ["a"]
+    (reading,) = check.readings()
+    assert "'a'" in reading and "from the one-step estimate" in reading
+
+
+def test_split_spread_needs_several_splits() -> None:
+    est = np.array([[1.0, 2.0], [2.0, 2.0], [1.5, 2.0]])
+    check = _check(estimates=est, plugins=est, one_steps=est)
+    # sd of (1, 2, 1.5) with ddof=1 is 0.5, over se 0.5
+    assert check.table.loc["a", "split_spread"] == pytest.approx(1.0)
+    assert check.flagged == ["a"] and "fold splits" in check.readings()[0]
+
+
+def test_identification_share_of_a_diluted_regressor() -> None:
+    rng = np.random.default_rng(0)
+    n = 2000
+    D = np.zeros((n, 2, 2))
+    D[:, 0, 0] = rng.normal(size=n)
+    D[:, 0, 1] = rng.normal(size=n)
+    lam = np.full((n, 2), 0.5)
+    X = D.copy()
+    X[:, 0, 1] *= 0.05  # (1 - beta) with beta = 0.95
+    share = identification_strength(X, D, lam)
+    np.testing.assert_allclose(share, [1.0, 0.05**2], rtol=1e-10)
+    check = _check(identification=share)
+    assert check.flagged == ["b"] and share[1] < WEAK_LIMIT
+    assert "weakly identified" in check.readings()[0]
+
+
+def test_estimate_carries_the_checks(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    panel, model, _ = panel_and_model(small_ebike)
+    res = oc.estimate(panel, model, learner="lightgbm", folds=3, seed=0)
+    t = res.interval_check.table
+    assert list(t.index) == list(res.params.index)
+    # both parameters enter the flow utility directly: all their information reaches X
+    np.testing.assert_allclose(t["identification"], 1.0)
+    assert res.to_dict()["interval_check"]["wear_cost"]["flagged"] == bool(t.loc["wear_cost", "flagged"])
+    assert any(r.startswith("Interval check:") for r in res.summary().splitlines())
+    naive = oc.estimate(panel, model, learner="logit", folds=3, seed=0, debias=False)
+    assert naive.interval_check is None
