@@ -121,3 +121,13 @@ def test_estimate_records_the_route(small_ebike) -> None:  # type: ignore[no-unt
     assert res.to_dict()["solution"]["routes"] == ["newton", "newton"]
     naive = oc.estimate(panel, model, learner="logit", folds=3, seed=0, debias=False)
     assert naive.solve_routes == ("plug-in",)
+
+
+def test_split_spread_is_reported_with_several_splits(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    panel, model, _ = panel_and_model(small_ebike)
+    res = oc.estimate(panel, model, learner="logit", folds=3, seed=0, splits=3)
+    expected = res.split_params.std(axis=0, ddof=1) / res.std_errors
+    np.testing.assert_allclose(res.split_spread, expected)
+    assert "fold splits: across 3 splits the estimates spread by wear_cost" in res.summary()
+    one = oc.estimate(panel, model, learner="logit", folds=3, seed=0)
+    assert one.split_spread is None and "fold splits:" not in one.summary()

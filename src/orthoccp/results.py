@@ -172,6 +172,15 @@ class Results:
     interval_check: Any = field(default=None, repr=False)
     version: str = ""
 
+    @cached_property
+    def split_spread(self) -> pd.Series | None:
+        """Per parameter, the standard deviation of the per-split estimates over the standard
+        error (``splits`` > 1; None otherwise): how much the fold split moves the answer."""
+        if self.split_params is None or len(self.split_params) < 2:
+            return None
+        sd = self.split_params.std(axis=0, ddof=1)
+        return (sd / self.std_errors).rename("split_spread")
+
     @property
     def solution(self) -> str:
         """One line on how the second stage was solved (all splits)."""
@@ -273,6 +282,13 @@ class Results:
                 lines.append(f"  {name}: {why}")
         elif self.debiased:
             lines.append("moments: standard (pseudo-likelihood score with the full correction)")
+        if self.split_spread is not None:
+            lines.append(
+                f"fold splits: across {self.splits} splits the estimates spread by "
+                + ", ".join(f"{k} {v:.2f}" for k, v in self.split_spread.items())
+                + " standard errors (standard deviation over s.e.; the reported estimate is "
+                "their median and the variance includes the spread)"
+            )
         if self.solve_routes:
             lines.append(f"solution: {self.solution}")
             for k, note in enumerate(self.solve_notes):
