@@ -56,7 +56,7 @@ import pandas as pd
 __all__ = ["IntervalCheck", "interval_check", "identification_strength", "GAP_LIMIT",
            "SPREAD_LIMIT", "WEAK_LIMIT", "SIGNALS"]
 
-GAP_LIMIT = 0.5
+GAP_LIMIT = 2.0
 """Flag when the solution lies more than this many s.e. from the one-step estimate."""
 
 SPREAD_LIMIT = 0.5
