@@ -89,3 +89,10 @@ def test_estimate_carries_the_checks(small_ebike) -> None:  # type: ignore[no-un
     assert any(r.startswith("Interval check:") for r in res.summary().splitlines())
     naive = oc.estimate(panel, model, learner="logit", folds=3, seed=0, debias=False)
     assert naive.interval_check is None
+
+
+def test_a_one_step_fallback_flags_every_parameter() -> None:
+    check = _check(routes=("newton", "one_step"))
+    assert check.flagged == ["a", "b"]
+    assert "no root near the plug-in solution in 1 of 2 split(s)" in check.readings()[0]
+    assert _check(routes=("newton", "root")).flagged == []

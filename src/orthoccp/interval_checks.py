@@ -40,7 +40,9 @@ Monte Carlo (the e-bike headline cell covers 0.965-0.970 with its top 20 units c
 of the variance).
 
 A parameter is *flagged* when ``linearity_gap > GAP_LIMIT``, ``split_spread >
-SPREAD_LIMIT`` or ``identification < WEAK_LIMIT``. The limits are provisional: ``benchmarks/design_family.py`` records every
+SPREAD_LIMIT`` or ``identification < WEAK_LIMIT``; every parameter is flagged when a split's
+debiased moment had no root near the plug-in solution, so that the one-step estimator was
+used (``route == "one_step"``, :func:`orthoccp.solver.solve_orthogonal`). The limits are provisional: ``benchmarks/design_family.py`` records every
 signal per replication so that they can be calibrated against coverage on the design family
 (docs/validation.md states the measured rates).
 """
@@ -124,6 +126,7 @@ def interval_check(
     std_errors: np.ndarray,
     influence: np.ndarray,
     identification: np.ndarray | None = None,
+    routes: Sequence[str] = (),
 ) -> IntervalCheck:
     """Compute the interval checks of one estimate.
 
@@ -140,6 +143,8 @@ def interval_check(
         (n_units, p) per-unit influence terms.
     identification : numpy.ndarray, optional
         (p,) :func:`identification_strength`; NaN when not given.
+    routes : sequence of str, optional
+        Per split, the solve's route (:data:`orthoccp.solver.ROUTES`).
 
     Returns
     -------
@@ -157,9 +162,15 @@ def interval_check(
         n_eff = total**2 / (sq**2).sum(axis=0)
     ident = (np.full(se.shape, np.nan) if identification is None
              else np.asarray(identification, dtype=np.float64))
+    n_one_step = sum(r == "one_step" for r in routes)
     rows = []
     for k, name in enumerate(parameters):
         reasons = []
+        if n_one_step:
+            reasons.append(
+                f"comes from the one-step estimator: the debiased moment had no root near the "
+                f"plug-in solution in {n_one_step} of {len(routes)} split(s)"
+            )
         if ident[k] < WEAK_LIMIT:
             reasons.append(
                 f"is weakly identified: only {ident[k]:.2%} of its flow-utility information "
