@@ -266,7 +266,7 @@ def test_integer_choice_labels(files: dict[str, Path], fast_spec: Path, tmp_path
     doc["model"]["anchor"] = "swap"
     write_spec(tmp_path / "int.toml", doc)
     assert main(["estimate", "--spec", str(tmp_path / "int.toml")]) == 2
-    assert_one_line_error(capsys.readouterr().err, r"model\.anchor: choice 'swap' is not among the integer choices")
+    assert_one_line_error(capsys.readouterr().err, r"model\.anchor: choice 'swap' is not among the choices observed")
 
 
 # --------------------------------------------------------------------------- bad input

@@ -280,7 +280,7 @@ def test_build_panel_and_model() -> None:
 def test_build_panel_names_the_key() -> None:
     doc = base_doc()
     doc["data"]["states"] = ["wear", "nope"]
-    with pytest.raises(SpecError, match=r"data\.states: column 'nope' is not in the data; available columns: bike"):
+    with pytest.raises(SpecError, match=r"data\.states: column 'nope' is not in the data; available columns: 'bike', 'week'"):
         parse_spec(doc).build_panel(small_frame())
     doc = base_doc()
     doc["utility"]["keep"]["wear_cost"] = "tear"
@@ -311,7 +311,7 @@ def test_choice_label_mismatch() -> None:
     doc = base_doc()
     doc["model"]["anchor"] = "swap"
     doc["utility"] = {"0": {"wear_cost": "wear_scaled"}}
-    with pytest.raises(SpecError, match=r"model\.anchor: choice 'swap' is not among the integer choices.*\(0, 1\)"):
+    with pytest.raises(SpecError, match=r"model\.anchor: choice 'swap' is not among the choices observed.*\(0, 1\)"):
         parse_spec(doc).build_model(small_frame(choices=(0, 1)))
     doc["model"]["anchor"] = 1
     doc["utility"] = {"2": {"wear_cost": "wear_scaled"}}
