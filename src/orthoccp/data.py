@@ -18,7 +18,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from ._errors import InputError, OrthoCCPWarning
-from ._labels import plain_label, show_label
+from ._labels import match_label, plain_label, show_label
 
 __all__ = ["Panel"]
 
@@ -581,16 +581,10 @@ class Panel:
     def choice_index(self, label: Hashable) -> int:
         """Position of a choice label in :attr:`choices`.
 
-        Integer-like labels match across int/str spellings (``1`` and ``"1"``) only when
-        the data's labels are of that type.
+        Labels match exactly, or as the same number (``1``, ``1.0`` and ``"1"``), by the
+        package's one label matcher; never by case, whitespace or prefix.
         """
-        for k, c in enumerate(self.choices):
-            if c == label:
-                return k
-        raise InputError(
-            f"choice {label!r} is not observed in column {self.choice!r}; observed choices: "
-            f"{', '.join(map(repr, self.choices))}."
-        )
+        return match_label(label, self.choices, role="choice", column=self.choice)
 
     def column(self, name: str) -> np.ndarray:
         """A numeric data column as float64 (validated: finite values only)."""

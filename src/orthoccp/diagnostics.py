@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from ._labels import plain_label
+from ._labels import plain_label, show_label
 from .model import BoundModel
 from .anchor import AnchorCheck, check_anchor_probability
 from .nuisance import Nuisances
@@ -71,7 +71,7 @@ class Diagnostics:
             gap = (c["observed"] - c["predicted"]).abs()
             worst = c.loc[(gap * np.sqrt(c["rows"])).idxmax()]
             out.append(
-                f"Calibration: the largest gap is in choice {worst['choice']!r}, predicted "
+                f"Calibration: the largest gap is in choice {show_label(worst['choice'])}, predicted "
                 f"{worst['predicted']:.3f} vs observed {worst['observed']:.3f} "
                 f"({int(worst['rows'])} rows)."
             )

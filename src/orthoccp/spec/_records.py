@@ -453,6 +453,10 @@ class Spec:
             frame = data
             self._require_column(frame, "data.choice", self.data.choice)
             tally = frame[self.data.choice].value_counts(dropna=True, sort=False)
+            try:
+                tally = tally.sort_index()  # listed in order, as the panel lists its choices
+            except TypeError:
+                pass
             observed = [plain_label(v) for v in tally.index]
             counts = tally.to_numpy()
         return frame, observed, counts
