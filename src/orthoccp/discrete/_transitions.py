@@ -34,7 +34,7 @@ from scipy import sparse
 
 from .._arrays import group_sums
 from .._errors import InputError, OrthoCCPWarning
-from .._labels import keys_by_label, match_label
+from .._labels import keys_by_label, match_label, show_label
 
 __all__ = ["TransitionMatrices", "estimate_transition_matrices"]
 
@@ -279,7 +279,7 @@ def _frequency(
     for j in range(J):
         if n_j[j] == 0:
             raise InputError(
-                f"choice {choices[j]!r} is never followed by an observed next state; its "
+                f"choice {show_label(choices[j])} is never followed by an observed next state; its "
                 f"transition matrix cannot be estimated by frequencies. Pass the matrices as "
                 f"given (transitions={{choice: matrix, ...}})."
             )
@@ -344,9 +344,10 @@ def _widest_choice(
         return "Narrow increment_range, or check base."
     j = max(spread, key=lambda k: spread[k])
     low, high = int(inc[choice == j].min()), int(inc[choice == j].max())
+    label = show_label(choices[j])
     return (
-        f"After choice {choices[j]!r} the increments run from {low} to {high}: if that choice "
-        f"restarts the state (a replacement, a renewal), pass reset_choices=[{choices[j]!r}] "
+        f"After choice {label} the increments run from {low} to {high}: if that choice "
+        f"restarts the state (a replacement, a renewal), pass reset_choices=[{label}] "
         f"(it restarts at reset_state); otherwise give its base states with base=, or narrow "
         f"increment_range."
     )

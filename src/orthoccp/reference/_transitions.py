@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 
 from .._errors import InputError
-from .._labels import keys_by_label
+from .._labels import keys_by_label, show_label
 
 __all__ = ["TransitionEstimate", "estimate_transitions"]
 
@@ -165,7 +165,7 @@ def _frequency(
         pooled = counts[j].sum(axis=0)
         if pooled.sum() == 0:
             raise InputError(
-                f"choice {choices[j]!r} is never followed by an observed next state; its "
+                f"choice {show_label(choices[j])} is never followed by an observed next state; its "
                 f"transition matrix cannot be estimated by frequencies. Pass it as a given "
                 f"matrix (transitions={{...}})."
             )
