@@ -11,6 +11,7 @@ import re
 import shlex
 import subprocess
 import sys
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -266,7 +267,29 @@ def test_integer_choice_labels(files: dict[str, Path], fast_spec: Path, tmp_path
     doc["model"]["anchor"] = "swap"
     write_spec(tmp_path / "int.toml", doc)
     assert main(["estimate", "--spec", str(tmp_path / "int.toml")]) == 2
-    assert_one_line_error(capsys.readouterr().err, r"model\.anchor: choice 'swap' is not among the integer choices")
+    assert_one_line_error(capsys.readouterr().err, r"model\.anchor: choice 'swap' is not among the choices observed")
+
+
+def test_empty_utility_table_matches_the_api(files: dict[str, Path], fast_spec: Path, tmp_path: Path) -> None:
+    """A choice without parameters written as an empty [utility.keep] table: the CLI gives
+    the API's estimates with utility={"keep": {}, ...}."""
+    doc = tomllib.loads(fast_spec.read_text())
+    utility = {"keep": {}, "swap": {"swap_cost": "1", "wear_cost": "wear_scaled"}}
+    doc["utility"] = utility
+    doc["data"]["path"] = str(files["data"])
+    write_spec(tmp_path / "empty.toml", doc)
+    assert "[utility.keep]\n\n" in (tmp_path / "empty.toml").read_text()
+    out = tmp_path / "empty.json"
+    assert main(["estimate", "--spec", str(tmp_path / "empty.toml"), "--json", str(out)]) == 0
+    got = {p["name"]: p["estimate"] for p in strict_json(out.read_text())["params"]}
+    spec = read_spec(tmp_path / "empty.toml")
+    panel = spec.build_panel(spec.load_data())
+    model = oc.Model(anchor="swap", kind="renewal", discount=doc["model"]["discount"], utility=utility,
+                     persistent=doc["model"].get("persistent", ()))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        api = oc.estimate(panel, model, **spec.estimate_options())
+    assert got == pytest.approx(api.params.to_dict(), rel=1e-12)
 
 
 # --------------------------------------------------------------------------- bad input

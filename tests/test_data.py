@@ -39,6 +39,22 @@ def test_categorical_states_become_indicators() -> None:
     np.testing.assert_array_equal(p.features[:, 1] + p.features[:, 2], 1.0)
 
 
+def test_features_name_their_state_exactly() -> None:
+    df = _frame().assign(**{"road_x": 1.0, "x=1": 2.0})
+    p = oc.Panel(df, unit="id", period="t", choice="a", states=["x", "road", "road_x", "x=1"])
+    assert p.feature_states == ("x", "road", "road", "road_x", "x=1")  # x is numeric: no clash
+    bound = oc.Model(anchor="swap", kind="renewal", discount=0.9, persistent=["road"],
+                     utility={"keep": {"c": "x"}, "swap": {"s": "1"}}).bind(p)
+    from orthoccp.instruments import persistent_feature_columns
+
+    assert persistent_feature_columns(bound).tolist() == [1, 2]
+    # A state named like an indicator column of a categorical state is refused.
+    with pytest.raises(oc.InputError, match=r"state 'road=hill' is named like an indicator column "
+                                            r"of the categorical state 'road'"):
+        oc.Panel(df.assign(**{"road=hill": 0.5}), unit="id", period="t", choice="a",
+                 states=["road", "road=hill"])
+
+
 def test_integer_choice_labels() -> None:
     df = _frame().assign(a=lambda d: (d["a"] == "swap").astype(int))
     p = oc.Panel(df, unit="id", period="t", choice="a", states=["x"])

@@ -184,7 +184,7 @@ def test_static_logit_matches_greene_and_statsmodels() -> None:
     df = d.assign(unit=np.arange(len(d)), period=0, grade=d["GRADE"].astype(int))
     panel = oc.Panel(df, unit="unit", period="period", choice="grade", states=["GPA", "TUCE", "PSI"])
     res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic",
-                            utility={1: {"const": "1", "GPA": "GPA", "TUCE": "TUCE", "PSI": "PSI"}})
+                            utility={0: {}, 1: {"const": "1", "GPA": "GPA", "TUCE": "TUCE", "PSI": "PSI"}})
     published = {"const": -13.021, "GPA": 2.826, "TUCE": 0.095, "PSI": 2.379}
     for k, v in published.items():
         assert res.params[k] == pytest.approx(v, abs=5e-4)
@@ -201,7 +201,7 @@ def test_static_multinomial_matches_statsmodels_mnlogit() -> None:
     cols = ["logpopul", "selfLR", "age", "educ", "income"]
     df = d.assign(unit=np.arange(len(d)), period=0, pid=d["PID"].astype(int))
     panel = oc.Panel(df, unit="unit", period="period", choice="pid", states=cols)
-    utility = {j: {f"const_{j}": "1", **{f"{c}_{j}": c for c in cols}} for j in range(1, 7)}
+    utility = {0: {}, **{j: {f"const_{j}": "1", **{f"{c}_{j}": c for c in cols}} for j in range(1, 7)}}
     res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic",
                             utility=utility)
     fit = sm.MNLogit(d["PID"], sm.add_constant(d[cols])).fit(
@@ -479,7 +479,8 @@ def _bad_calls(panel: oc.Panel) -> list:
         (dict(base, smoothing=-1.0), "smoothing must be"),
         (dict(base, n_states=10), "integer codes 0..9"),
         (dict(base, utility={"keep": {"c": "1"}, "replace": {"c": "1"}}), "not all identified"),
-        (dict(base, utility={"stop": {"c": "1"}}), "not one of the choices"),
+        (dict(base, utility={**u, "stop": {"c": "1"}}), "utility choice 'stop' is not among the choices observed"),
+        (dict(base, utility={"keep": u["keep"]}), r"observed choice\(s\) 'replace' \(\d+ rows\).*not declared"),
         (dict(base, initial_ccp=np.ones((175, 2))), "initial_ccp must be"),
         (dict(base, transitions="increments", increment_range=(1, 0)), "smallest <= largest"),
     ]
@@ -495,7 +496,7 @@ def test_regressor_that_varies_within_a_state_is_refused(inventory_panel: oc.Pan
     frame = inventory_panel.frame.assign(noise=np.arange(inventory_panel.n_rows, dtype=float))
     panel = oc.Panel(frame, unit="shop", period="period", choice="order", states=["stock"])
     with pytest.raises(oc.InputError, match="varies within a state"):
-        estimate_discrete(panel, utility={"large": {"c": "1"}, "small": {"n": "noise"}},
+        estimate_discrete(panel, utility={"large": {"c": "1"}, "small": {"n": "noise"}, "none": {}},
                           discount=0.9)
 
 

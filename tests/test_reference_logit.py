@@ -30,7 +30,7 @@ def _fit(d: pd.DataFrame, **kw: object) -> oc.Results:
     panel = oc.Panel(d, unit="student", period="t", choice="grade", states=["GPA", "TUCE", "PSI"])
     model = oc.Model(
         anchor=0, kind="renewal", discount=0.0,
-        utility={1: {"const": "1", "GPA": "GPA", "TUCE": "TUCE", "PSI": "PSI"}},
+        utility={0: {}, 1: {"const": "1", "GPA": "GPA", "TUCE": "TUCE", "PSI": "PSI"}},
     )
     return oc.estimate(panel, model, **kw)  # type: ignore[arg-type]
 
@@ -74,7 +74,7 @@ def test_multinomial_matches_statsmodels_mnlogit() -> None:
     d["logpop"] = d["logpopul"]
     cols = ["logpop", "selfLR", "age", "educ"]
     panel = oc.Panel(d, unit="voter", period="t", choice="party", states=cols)
-    utility = {j: {f"{c}_{j}": c for c in cols} | {f"const_{j}": "1"} for j in (1, 2)}
+    utility = {0: {}} | {j: {f"{c}_{j}": c for c in cols} | {f"const_{j}": "1"} for j in (1, 2)}
     model = oc.Model(anchor=0, kind="renewal", discount=0.0, utility=utility)
     res = oc.estimate(panel, model, small_sample=False)
     X = sm.add_constant(d[cols])

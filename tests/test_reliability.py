@@ -16,6 +16,7 @@ import re
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from decimal import Decimal
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
@@ -106,6 +107,18 @@ def _units(k: int) -> Callable[[pd.DataFrame], pd.DataFrame]:
     return lambda d: d[d["bike"] < k].reset_index(drop=True)
 
 
+def _respell(label: str, spelling: str, *, units: int = 0, rows: int = 0) -> Callable[[pd.DataFrame], pd.DataFrame]:
+    """``label`` written as ``spelling`` in the first ``units`` units, or in its first ``rows`` rows."""
+    def edit(d: pd.DataFrame) -> pd.DataFrame:
+        hit = (d["action"] == label) & (d["bike"] < units if units else True)
+        if rows:
+            hit &= hit.cumsum() <= rows
+        d.loc[hit, "action"] = spelling
+        return d
+
+    return edit
+
+
 def _swap_in_one_unit(d: pd.DataFrame) -> pd.DataFrame:
     d["action"] = "keep"
     d.loc[1, "action"] = "swap"
@@ -131,6 +144,7 @@ class Case:
     doc: Callable[[dict[str, Any]], None] | None = None
     cli_match: str | None = None
     api: bool = True
+    call: str = "estimate"  # or "fold_stability" (API only)
 
 
 def _doc_from(case: Case) -> dict[str, Any]:
@@ -176,7 +190,7 @@ BAD: dict[str, Case] = {
     ),
     # choices
     "utility choice never observed": Case(
-        r"utility choice 'stop' is not among the observed choices",
+        r"utility choice 'stop' is not among the choices observed",
         model={"utility": {**UTILITY, "stop": {"stop_cost": "1"}}},
         cli_match=r"utility\.stop: choice 'stop' is not among the choices",
     ),
@@ -184,7 +198,7 @@ BAD: dict[str, Case] = {
         r"choice\(s\) 'swap' never occur in the training rows of fold", frame=_swap_in_one_unit
     ),
     "anchor never chosen": Case(
-        r"anchor 'swap' is not among the observed choices.*'fix', 'keep'",
+        r"anchor 'swap' is not among the choices observed.*'fix', 'keep'",
         frame=lambda d: d.assign(action=d["action"].replace({"swap": "fix"})),
         cli_match=r"model\.anchor: choice 'swap' is not among the choices",
     ),
@@ -323,6 +337,81 @@ BAD: dict[str, Case] = {
         r"choice column 'action' mixes label types",
         frame=lambda d: d.assign(action=d["action"].astype(object).where(d["action"] == "keep", 1)), cli=False,
     ),
+    # labels: every observed choice declared, matched exactly (issue 21, items 1 and 3)
+    "choice label with a trailing space": Case(
+        r"column 'action' spells a choice two ways: 'keep' \(\d+ rows\) and 'keep ' \(\d+ rows\)",
+        frame=_respell("keep", "keep ", units=20),
+    ),
+    "choice label with a trailing space, 5 rows": Case(
+        r"column 'action' spells a choice two ways: 'keep' \(\d+ rows\) and 'keep ' \(5 rows\)",
+        frame=_respell("keep", "keep ", rows=5),
+    ),
+    "choice label differing by case": Case(
+        r"spells a choice two ways: 'swap' \(\d+ rows\) and 'Swap' \(\d+ rows\)",
+        frame=_respell("swap", "Swap", units=20),
+    ),
+    "observed choice not in the utility": Case(
+        r"observed choice\(s\) 'fix' \(5 rows\) in column 'action' are not declared.*'fix': \{\}",
+        frame=_respell("keep", "fix", rows=5),
+        cli_match=r"utility: observed choice\(s\) 'fix' \(5 rows\).*add an empty table \[utility\.fix\]",
+    ),
+    "choice without parameters left out": Case(
+        r"observed choice\(s\) 'keep' \(\d+ rows\) in column 'action' are not declared",
+        model={"utility": {"swap": {"swap_cost": "1", "wear_cost": "wear_scaled"}}},
+    ),
+    "two keys for the same choice": Case(
+        r"two keys for the same choice: utility choice 0 and '0' both name 0",
+        frame=lambda d: d.assign(action=(d["action"] == "swap").astype(int)),
+        model={"anchor": 1, "utility": {0: {"wear_cost": "wear_scaled"}, "0": {}, 1: {"swap_cost": "1"}}},
+        doc=lambda doc: doc.update(model={**doc["model"], "anchor": 1}, utility={
+            "0": {"wear_cost": "wear_scaled"}, "0.0": {}, "1": {"swap_cost": "1"}}),
+        cli_match=r"two keys for the same choice: \[utility\.0\] and \[utility\.\"0\.0\"\] both name 0",
+    ),
+    "state named like an indicator column": Case(
+        r"state 'x0=hi' is named like an indicator column of the categorical state 'x0'",
+        frame=lambda d: d.assign(x0=np.where(d["x0"] > 0, "hi", "lo"), **{"x0=hi": d["x1"]}),
+        panel={"states": [*STATES, "x0=hi"]}, model={"persistent": ["x0"]},
+    ),
+    "data column named like the constant": Case(
+        r"utility\['swap'\]\['swap_cost'\]: the data have a column named '1'.*rename that column",
+        frame=lambda d: d.assign(**{"1": d["x1"]}),
+    ),
+    "labels print as plain values": Case(
+        r"row\(s\) choose the terminal anchor 'swap' but the unit has later rows \(e\.g\. bike=\d+, week=\d+\)",
+        model={"kind": "terminal"},
+    ),
+    # messages that name the real cause (issue 21, item 9)
+    "state near 1e300": Case(
+        r"state column 'x1' holds values as large as 1e\+300, too large for the learners",
+        frame=lambda d: d.assign(x1=np.sign(d["x1"]) * 1e300),
+    ),
+    "utility column scaled by 1e200": Case(
+        r"utility column\(s\) 'wear_scaled' of parameter 'wear_cost' have an extreme scale",
+        frame=lambda d: d.assign(wear_scaled=d["wear_scaled"] * 1e200),
+    ),
+    "utility column scaled by 1e-200": Case(
+        r"utility column\(s\) 'wear_scaled' of parameter 'wear_cost' have an extreme scale",
+        frame=lambda d: d.assign(wear_scaled=d["wear_scaled"] * 1e-200),
+    ),
+    "fold_stability, nested scheme with 2 folds": Case(
+        r"scheme='nested' needs folds >= 3", options={"folds": 2, "scheme": "nested"},
+        call="fold_stability", cli=False,
+    ),
+    "header with a leading space": Case(
+        r"period column 'week' is not in the data; available columns: 'bike', ' week'.*The data "
+        r"have ' week', which differs from 'week' only by case or surrounding whitespace",
+        frame=lambda d: d.rename(columns={"week": " week"}),
+        cli_match=r"data\.period: column 'week' is not in the data; available columns: 'bike', ' week'",
+    ),
+    "utility column not in the data": Case(
+        r"utility column 'mileage' is not in the data; available columns: 'bike', 'week'",
+        model={"utility": {"keep": {"wear_cost": "mileage"}, "swap": {"swap_cost": "1"}}},
+        cli_match=r"utility\.keep\.wear_cost: column 'mileage' is not in the data; available columns: 'bike'",
+    ),
+    "renewed state declared persistent": Case(
+        r"persistent state 'wear' is reset by the renewal .*Remove 'wear' from persistent",
+        model={"persistent": ["wear"]},
+    ),
     "no rows": Case(r"data has no rows", frame=lambda d: d.iloc[0:0]),
     "every row dropped": Case(
         r"missing='drop' dropped all 360 rows", frame=lambda d: d.assign(x0=np.nan), panel={"missing": "drop"}
@@ -342,7 +431,7 @@ def _api_call(case: Case) -> None:
         warnings.simplefilter("ignore")
         panel = oc.Panel(frame, **panel_kw)
         model = oc.Model(**model_kw)
-        oc.estimate(panel, model, **options)
+        getattr(oc, case.call)(panel, model, **options)
 
 
 API_CASES = [(k, c) for k, c in BAD.items() if c.api]
@@ -406,6 +495,87 @@ def test_unreadable_spec_files(text: str, fragment: str, tmp_path: Path, capsys:
     base().to_csv(tmp_path / "panel.csv", index=False)
     assert main(["estimate", str(tmp_path / "panel.csv"), "--spec", str(spec)]) == 2
     assert_error_line(capsys.readouterr().err, fragment)
+
+
+# --------------------------------------------------------------------------- unusual inputs that run
+def _fit_params(frame: pd.DataFrame, **model: Any) -> pd.Series:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        panel = oc.Panel(frame, unit="bike", period="week", choice="action", states=STATES)
+        spec: dict[str, Any] = dict(anchor="swap", kind="renewal", discount=0.95, utility=UTILITY)
+        spec.update(model)
+        return oc.estimate(panel, oc.Model(**spec), learner="logit", folds=3, seed=0).params
+
+
+def _as_objects(column: str, convert: Callable[[Any], Any]) -> Callable[[pd.DataFrame], pd.DataFrame]:
+    return lambda d: d.assign(**{column: pd.Series([convert(v) for v in d[column]], dtype=object)})
+
+
+@pytest.mark.parametrize(
+    ("column", "convert"),
+    [("x2", lambda v: bool(v > 0)), ("x1", lambda v: Decimal(repr(v)))],
+    ids=["booleans as objects", "Decimal"],
+)
+def test_object_columns_of_numbers_are_numbers(column: str, convert: Callable[[Any], Any]) -> None:
+    """An object column of True/False is 0/1, one of Decimals their floats: the same features
+    as the numeric column, and the estimation runs."""
+    numeric = base().assign(**{column: [float(convert(v)) for v in base()[column]]})
+    objects = numeric.assign(**{column: pd.Series([convert(v) for v in base()[column]], dtype=object)})
+    kw: dict[str, Any] = dict(unit="bike", period="week", choice="action", states=STATES)
+    got, want = oc.Panel(objects, **kw), oc.Panel(numeric, **kw)
+    assert got.feature_names == want.feature_names
+    np.testing.assert_array_equal(got.features, want.features)
+    assert np.isfinite(_fit_params(objects)).all()
+
+
+def test_numeric_labels_match_across_types() -> None:
+    """Float labels 0.0/1.0: integer and text keys give the estimate of exact float keys."""
+    frame = base().assign(action=(base()["action"] == "swap").astype(float))
+    exact = _fit_params(frame, anchor=1.0, utility={0.0: UTILITY["keep"], 1.0: UTILITY["swap"]})
+    other = _fit_params(frame, anchor=1, utility={0: UTILITY["keep"], "1": UTILITY["swap"]})
+    pd.testing.assert_series_equal(other, exact, check_exact=True)
+
+
+def test_spec_with_byte_order_mark_and_integer_anchor_runs(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """A spec saved with a UTF-8 byte-order mark, with anchor = 1 and [utility.1] for the float
+    labels 0.0/1.0, gives the JSON of the plain spec that spells the labels "0.0" and "1.0"."""
+    frame = base().assign(action=(base()["action"] == "swap").astype(float))
+    frame.to_csv(tmp_path / "panel.csv", index=False)
+    doc = base_doc()
+    doc["model"]["anchor"] = "1.0"
+    doc["utility"] = {"0.0": UTILITY["keep"], "1.0": UTILITY["swap"]}
+    write_spec(tmp_path / "plain.toml", doc)
+    doc["model"]["anchor"] = 1
+    doc["utility"] = {"0": UTILITY["keep"], "1": UTILITY["swap"]}
+    write_spec(tmp_path / "bom.toml", doc)
+    (tmp_path / "bom.toml").write_bytes(b"\xef\xbb\xbf" + (tmp_path / "bom.toml").read_bytes())
+    runs = {}
+    for name in ("plain", "bom"):
+        out = tmp_path / f"{name}.json"
+        argv = ["estimate", str(tmp_path / "panel.csv"), "--spec", str(tmp_path / f"{name}.toml"), "--json", str(out)]
+        assert main(argv) == 0
+        runs[name] = json.loads(out.read_text())["params"]
+    assert "Traceback" not in capsys.readouterr().err
+    assert runs["bom"] == runs["plain"]
+
+
+def test_discrete_estimator_message_names_what_a_spec_can_do(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """A regressor without a value at unvisited states: the spec can name the state column."""
+    from orthoccp.reference import simulate_bus
+
+    simulate_bus(buses=3, periods=20, seed=1).to_csv(tmp_path / "bus.csv", index=False)
+    write_spec(tmp_path / "bus.toml", {
+        "data": {"unit": "bus", "period": "month", "choice": "action", "states": ["mileage"]},
+        "model": {"discount": 0.975},
+        "utility": {"keep": {"theta11": "neg_mileage_k"}, "replace": {"replace_cost": "1"}},
+        "estimator": {"method": "npl", "n_states": 175, "transitions": "increments",
+                      "reset_choices": ["replace"]},
+    })
+    assert main(["estimate", str(tmp_path / "bus.csv"), "--spec", str(tmp_path / "bus.toml")]) == 2
+    assert_error_line(capsys.readouterr().err,
+                      r"column 'neg_mileage_k' gives no value at the \d+ of 175 states that no row "
+                      r"occupies\. Use a state column itself as the regressor \('mileage'.*"
+                      r"theta11 = \"mileage\" under \[utility\.keep\]")
 
 
 # --------------------------------------------------------------------------- nothing lost silently

@@ -280,7 +280,7 @@ def test_build_panel_and_model() -> None:
 def test_build_panel_names_the_key() -> None:
     doc = base_doc()
     doc["data"]["states"] = ["wear", "nope"]
-    with pytest.raises(SpecError, match=r"data\.states: column 'nope' is not in the data; available columns: bike"):
+    with pytest.raises(SpecError, match=r"data\.states: column 'nope' is not in the data; available columns: 'bike', 'week'"):
         parse_spec(doc).build_panel(small_frame())
     doc = base_doc()
     doc["utility"]["keep"]["wear_cost"] = "tear"
@@ -303,6 +303,32 @@ def test_integer_choice_labels(anchor: int | str) -> None:
     oc.estimate(panel, spec.build_model(panel), **spec.estimate_options())
 
 
+@pytest.mark.parametrize("anchor", [1, "1", "1.0"])
+def test_integer_anchor_matches_float_labels(anchor: int | str) -> None:
+    """The spec and the API share one matcher: anchor = 1 names the float label 1.0."""
+    doc = base_doc()
+    doc["model"]["anchor"] = anchor
+    doc["utility"] = {"0": {"wear_cost": "wear_scaled"}, "1": {"swap_cost": "1"}}
+    frame = small_frame(choices=(0, 1)).assign(action=lambda d: d["action"].astype(float))
+    model = parse_spec(doc).build_model(frame)
+    assert model.anchor == 1.0 and set(model.utility) == {0.0, 1.0}
+
+
+def test_empty_utility_table_declares_a_choice_without_parameters(tmp_path: Path) -> None:
+    doc = base_doc()
+    doc["utility"] = {"keep": {}, "swap": {"swap_cost": "1", "wear_cost": "wear_scaled"}}
+    write_spec(tmp_path / "s.toml", doc)
+    assert "[utility.keep]\n\n[utility.swap]" in (tmp_path / "s.toml").read_text()
+    spec = read_spec(tmp_path / "s.toml")
+    model = spec.build_model(small_frame())
+    assert dict(model.utility) == {"keep": {}, "swap": {"swap_cost": "1", "wear_cost": "wear_scaled"}}
+    # Without the table the observed choice is undeclared: an error that says how to declare it.
+    doc["utility"].pop("keep")
+    with pytest.raises(SpecError, match=r"utility: observed choice\(s\) 'keep' \(\d+ rows\) .*add an "
+                                        r"empty table \[utility\.keep\]"):
+        parse_spec(doc).build_model(small_frame())
+
+
 def test_choice_label_mismatch() -> None:
     doc = base_doc()
     doc["model"]["anchor"] = "replace"
@@ -311,7 +337,7 @@ def test_choice_label_mismatch() -> None:
     doc = base_doc()
     doc["model"]["anchor"] = "swap"
     doc["utility"] = {"0": {"wear_cost": "wear_scaled"}}
-    with pytest.raises(SpecError, match=r"model\.anchor: choice 'swap' is not among the integer choices.*\(0, 1\)"):
+    with pytest.raises(SpecError, match=r"model\.anchor: choice 'swap' is not among the choices observed.*\(0, 1\)"):
         parse_spec(doc).build_model(small_frame(choices=(0, 1)))
     doc["model"]["anchor"] = 1
     doc["utility"] = {"2": {"wear_cost": "wear_scaled"}}

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import functools
 import warnings
+from decimal import Decimal
 from collections.abc import Hashable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
@@ -17,10 +18,14 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from ._errors import InputError, OrthoCCPWarning
+from ._labels import match_label, plain_label, show_label
 
 __all__ = ["Panel"]
 
 MISSING_OPTIONS = ("error", "drop")
+
+# Largest state magnitude the learners take: squares of larger values overflow float64.
+MAX_FEATURE = 1e150
 
 # Periods are compared as exact integers; beyond 2**53 float64 cannot tell t from t + 1.
 _MAX_PERIOD = 2**53
@@ -30,16 +35,31 @@ def _check_column(frame: pd.DataFrame, name: str, role: str) -> None:
     if not isinstance(name, str):
         raise InputError(f"{role} must be a column name (str), got {name!r}.")
     if name not in frame.columns:
-        cols = ", ".join(map(str, list(frame.columns)[:12]))
-        more = " ..." if frame.shape[1] > 12 else ""
         raise InputError(
-            f"{role} column {name!r} is not in the data. Available columns: {cols}{more}."
+            f"{role} column {name!r} is not in the data; {missing_column_hint(name, frame.columns)}"
         )
     n = 1 if frame.columns.is_unique else int((frame.columns == name).sum())
     if n > 1:
         raise InputError(
             f"{role} column {name!r} appears {n} times in the data; give the columns unique names."
         )
+
+
+def missing_column_hint(name: str, columns: Iterable[Any], limit: int = 12) -> str:
+    """The end of a "column is not in the data" message: the available columns, quoted so
+    that surrounding whitespace shows, and the column that differs only by such whitespace
+    or by case, if there is one."""
+    cols = list(columns)
+    shown = ", ".join(repr(plain_label(c)) for c in cols[:limit])
+    more = f", ... ({len(cols) - limit} more)" if len(cols) > limit else ""
+    text = f"available columns: {shown}{more}."
+    near = [c for c in cols if isinstance(c, str) and c != name
+            and c.strip().casefold() == name.strip().casefold()]
+    if near:
+        text += (f" The data have {near[0]!r}, which differs from {name!r} only by case or "
+                 f"surrounding whitespace; rename that column (e.g. strip the header's spaces) "
+                 f"or use its exact name.")
+    return text
 
 
 def _column_names(value: Any, role: str) -> tuple[str, ...]:
@@ -107,22 +127,31 @@ def _drop_missing(
     return frame.loc[~drop], counts
 
 
-def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarray, tuple[str, ...]]:
-    """Numeric feature matrix for the learners; categorical states become indicator columns."""
+def _state_matrix(
+    frame: pd.DataFrame, states: Sequence[str]
+) -> tuple[np.ndarray, tuple[str, ...], tuple[str, ...]]:
+    """Numeric feature matrix for the learners; categorical states become indicator columns.
+
+    Returns the matrix, the feature names (``state`` or ``state=level``) and the state each
+    feature comes from.
+    """
+    _check_indicator_names(frame, states)
     blocks: list[np.ndarray] = []
     names: list[str] = []
+    sources: list[str] = []
     hint = "drop or impute those rows before wrapping the panel, or pass missing='drop'"
     for col in states:
         s = frame[col]
-        if isinstance(s.dtype, pd.CategoricalDtype) or ptypes.is_object_dtype(s) or ptypes.is_string_dtype(s):
+        if _is_categorical(s):
             if not isinstance(s.dtype, pd.CategoricalDtype):
                 # A text column that is really numbers typed as text is a data error.
                 converted = pd.to_numeric(s, errors="coerce")
                 bad = converted.isna() & s.notna()
                 if not bad.any() and s.notna().any():
                     raise InputError(
-                        f"state column {col!r} holds numbers stored as text; convert it with "
-                        f"pd.to_numeric before wrapping the panel."
+                        f"state column {col!r} holds numbers stored as text (dtype {s.dtype}"
+                        f"{_value_types(s)}); convert it with pd.to_numeric before wrapping "
+                        f"the panel."
                     )
                 if converted.notna().mean() > 0.5:
                     example = s[bad].iloc[0]
@@ -145,6 +174,7 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
             for level_code, level in enumerate(cat.categories):
                 blocks.append((cat.codes == level_code).astype(np.float64)[:, None])
                 names.append(f"{col}={level}")
+                sources.append(col)
             continue
         if ptypes.is_complex_dtype(s):
             raise InputError(
@@ -153,6 +183,8 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
             )
         if ptypes.is_bool_dtype(s) or ptypes.is_numeric_dtype(s):
             values = as_float(s)
+        elif (numbers := _object_numbers(s)) is not None:
+            values = numbers
         else:
             raise InputError(
                 f"state column {col!r} has unsupported dtype {s.dtype}; use numbers, "
@@ -161,16 +193,73 @@ def _state_matrix(frame: pd.DataFrame, states: Sequence[str]) -> tuple[np.ndarra
         n_bad = int((~np.isfinite(values)).sum())
         if n_bad:
             raise InputError(f"state column {col!r} has {n_bad} missing or infinite values; {hint}.")
+        largest = float(np.abs(values).max()) if values.size else 0.0
+        if largest > MAX_FEATURE:
+            raise InputError(
+                f"state column {col!r} holds values as large as {largest:.3g}, too large for the "
+                f"learners (their sums of squares overflow beyond about {MAX_FEATURE:.0e}); "
+                f"rescale the column (e.g. divide it by a power of ten or take logs)."
+            )
         blocks.append(values[:, None])
         names.append(col)
+        sources.append(col)
     if not blocks:
-        return np.empty((len(frame), 0)), ()
+        return np.empty((len(frame), 0)), (), ()
     # Column-major, so each state is one contiguous column that the frame can share
     # (_share_state_columns); learners get row-major copies of their rows (backends.take_rows).
     out = np.empty((len(frame), len(blocks)), order="F")
     for i, block in enumerate(blocks):
         out[:, i] = block[:, 0]
-    return out, tuple(names)
+    return out, tuple(names), tuple(sources)
+
+
+def _is_categorical(s: pd.Series) -> bool:
+    """Categorical or text (an object column of numbers, booleans or Decimals is numeric)."""
+    if isinstance(s.dtype, pd.CategoricalDtype):
+        return True
+    return (ptypes.is_object_dtype(s) or ptypes.is_string_dtype(s)) and _object_numbers(s) is None
+
+
+def _value_types(s: pd.Series) -> str:
+    """For a message on an object column: `` holding values of type str, date``."""
+    if not ptypes.is_object_dtype(s):
+        return ""
+    kinds = sorted({type(v).__name__ for v in s.dropna().to_numpy()})
+    if not kinds:
+        return ""
+    more = ", ..." if len(kinds) > 4 else ""
+    return f" holding values of type {', '.join(kinds[:4])}{more}"
+
+
+def _object_numbers(s: pd.Series) -> np.ndarray | None:
+    """An object column whose values are all numbers (booleans as 0/1, ``decimal.Decimal``
+    as float) or missing, as float64 with NaN for missing; None when any value is not."""
+    if not ptypes.is_object_dtype(s):
+        return None
+    values = s.to_numpy()
+    present = ~np.asarray(pd.isna(s), dtype=bool)
+    if not present.any():
+        return None
+    if not all(isinstance(v, (bool, int, float, np.number, np.bool_, Decimal))
+               for v in values[present]):
+        return None
+    out = np.full(values.shape[0], np.nan)
+    out[present] = [float(v) for v in values[present]]
+    return out
+
+
+def _check_indicator_names(frame: pd.DataFrame, states: Sequence[str]) -> None:
+    """A state named like an indicator column of a categorical state (``"x0=hi"`` beside a
+    text state ``"x0"``) would make the feature names ambiguous: refuse it."""
+    categorical = [c for c in states if _is_categorical(frame[c])]
+    for name in states:
+        for c in categorical:
+            if name != c and name.startswith(f"{c}="):
+                raise InputError(
+                    f"state {name!r} is named like an indicator column of the categorical "
+                    f"state {c!r} (its levels become columns {c}=<level>); rename the column "
+                    f"{name!r}, e.g. without '='."
+                )
 
 
 def _share_state_columns(
@@ -274,6 +363,11 @@ class Panel:
         (n_rows, n_features) float64 learner features, read-only. The frame's float64 state
         columns are views of it (the states are held once), so edit ``frame.copy()``, not
         ``frame`` in place.
+    feature_names : tuple of str
+        Name of each feature column: the state, or ``state=level`` for the indicator columns
+        of a categorical state.
+    feature_states : tuple of str
+        The state each feature column comes from (matched exactly, never by name prefix).
 
     Examples
     --------
@@ -300,6 +394,7 @@ class Panel:
     gap_after: np.ndarray = field(init=False, repr=False)
     features: np.ndarray = field(init=False, repr=False)
     feature_names: tuple[str, ...] = field(init=False)
+    feature_states: tuple[str, ...] = field(init=False, repr=False)
     n_input_rows: int = field(init=False, repr=False)
     dropped_rows: dict[str, int] = field(init=False, repr=False)
 
@@ -398,7 +493,7 @@ class Panel:
             first = sorted_frame.loc[dup_mask, [unit, period]].iloc[0]
             raise InputError(
                 f"{int(dup_mask.sum())} rows share a unit and period (e.g. {unit}="
-                f"{_plain(first[unit])!r}, {period}={_plain(first[period])!r}); each unit-period "
+                f"{show_label(first[unit])}, {period}={show_label(first[period])}); each unit-period "
                 f"must appear once."
             )
 
@@ -419,7 +514,7 @@ class Panel:
         next_row = np.where(linked, np.arange(n) + 1, -1)
         gap_after = same_unit_next & ~consecutive
 
-        features, feature_names = _state_matrix(sorted_frame, states)
+        features, feature_names, feature_states = _state_matrix(sorted_frame, states)
         if sorted_frame.columns.is_unique:
             sorted_frame = _share_state_columns(sorted_frame, features, feature_names)
         features.flags.writeable = False
@@ -430,7 +525,7 @@ class Panel:
         object.__setattr__(self, "choice", choice)
         object.__setattr__(self, "states", states)
         object.__setattr__(self, "missing", missing)
-        object.__setattr__(self, "choices", tuple(_plain(c) for c in choices))
+        object.__setattr__(self, "choices", tuple(plain_label(c) for c in choices))
         object.__setattr__(self, "choice_codes", codes.astype(np.int64))
         object.__setattr__(self, "unit_codes", unit_codes.astype(np.int64))
         object.__setattr__(self, "unit_labels", unit_labels)
@@ -439,6 +534,7 @@ class Panel:
         object.__setattr__(self, "gap_after", gap_after)
         object.__setattr__(self, "features", features)
         object.__setattr__(self, "feature_names", feature_names)
+        object.__setattr__(self, "feature_states", feature_states)
         object.__setattr__(self, "n_input_rows", int(n_input))
         object.__setattr__(self, "dropped_rows", dropped)
 
@@ -491,32 +587,34 @@ class Panel:
     def choice_index(self, label: Hashable) -> int:
         """Position of a choice label in :attr:`choices`.
 
-        Integer-like labels match across int/str spellings (``1`` and ``"1"``) only when
-        the data's labels are of that type.
+        Labels match exactly, or as the same number (``1``, ``1.0`` and ``"1"``), by the
+        package's one label matcher; never by case, whitespace or prefix.
         """
-        for k, c in enumerate(self.choices):
-            if c == label:
-                return k
-        raise InputError(
-            f"choice {label!r} is not observed in column {self.choice!r}; observed choices: "
-            f"{', '.join(map(repr, self.choices))}."
-        )
+        return match_label(label, self.choices, role="choice", column=self.choice)
 
     def column(self, name: str) -> np.ndarray:
         """A numeric data column as float64 (validated: finite values only)."""
         if name not in self.frame.columns:
-            raise InputError(f"utility column {name!r} is not in the data.")
+            raise InputError(
+                f"utility column {name!r} is not in the data; "
+                f"{missing_column_hint(name, self.frame.columns)}"
+            )
         s = self.frame[name]
         if isinstance(s, pd.DataFrame):
             raise InputError(
                 f"utility column {name!r} appears {s.shape[1]} times in the data; give the "
                 f"columns unique names."
             )
-        if ptypes.is_complex_dtype(s) or not (ptypes.is_numeric_dtype(s) or ptypes.is_bool_dtype(s)):
+        numbers = _object_numbers(s)
+        if numbers is not None:
+            values = numbers
+        elif ptypes.is_complex_dtype(s) or not (ptypes.is_numeric_dtype(s) or ptypes.is_bool_dtype(s)):
             raise InputError(
-                f"utility column {name!r} must be numeric, got dtype {s.dtype}."
+                f"utility column {name!r} must be numeric, got dtype {s.dtype}"
+                f"{_value_types(s)}; convert it with pd.to_numeric."
             )
-        values = as_float(s)
+        else:
+            values = as_float(s)
         n_bad = int((~np.isfinite(values)).sum())
         if n_bad:
             raise InputError(
@@ -628,7 +726,3 @@ def _unit_keys(
     mixed = row_hash * (np.uint64(2) * (relative & np.uint64(0xFFFF)) + np.uint64(1))
     return np.add.reduceat(mixed, starts)
 
-
-def _plain(value: Any) -> Any:
-    """NumPy scalars to Python scalars, so labels print and serialise cleanly."""
-    return value.item() if isinstance(value, np.generic) else value

@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from ._labels import plain_label, show_label
 from .model import BoundModel
 from .anchor import AnchorCheck, check_anchor_probability
 from .nuisance import Nuisances
@@ -70,7 +71,7 @@ class Diagnostics:
             gap = (c["observed"] - c["predicted"]).abs()
             worst = c.loc[(gap * np.sqrt(c["rows"])).idxmax()]
             out.append(
-                f"Calibration: the largest gap is in choice {worst['choice']!r}, predicted "
+                f"Calibration: the largest gap is in choice {show_label(worst['choice'])}, predicted "
                 f"{worst['predicted']:.3f} vs observed {worst['observed']:.3f} "
                 f"({int(worst['rows'])} rows)."
             )
@@ -90,7 +91,7 @@ class Diagnostics:
         if not self.influential_units.empty:
             top = self.influential_units.sort_values("variance_share", ascending=False).iloc[0]
             out.append(
-                f"Influence: unit {_plain(top['unit'])} carries {top['variance_share']:.1%} of "
+                f"Influence: unit {plain_label(top['unit'])} carries {top['variance_share']:.1%} of "
                 f"the variance of {top['parameter']!r}"
                 + (
                     "; a few units dominate, so the interval rests on them (see "
@@ -236,7 +237,7 @@ def compute_diagnostics(
             share = influence[:, k] ** 2 / total[k] if total[k] > 0 else np.zeros(influence.shape[0])
             for i in np.argsort(-share)[:top]:
                 infl_rows.append(
-                    {"parameter": name, "unit": _plain(influence_units[i]), "variance_share": float(share[i])}
+                    {"parameter": name, "unit": plain_label(influence_units[i]), "variance_share": float(share[i])}
                 )
     anchor = None
     if bound.has_next_stage:
@@ -252,6 +253,3 @@ def compute_diagnostics(
         anchor=anchor,
     )
 
-
-def _plain(value: object) -> object:
-    return value.item() if isinstance(value, np.generic) else value

@@ -9,7 +9,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ._errors import InputError, OrthoCCPWarning
+from ._errors import EstimationError, InputError, OrthoCCPWarning
+from ._labels import show_label
 from ._version import __version__
 from .covariance import check_cov_name, estimate_covariance
 from .anchor import check_anchor_probability
@@ -54,8 +55,9 @@ def account_rows(bound: BoundModel) -> tuple[np.ndarray, np.ndarray, RowAccounti
             i = int(np.flatnonzero(after_exit)[0])
             raise InputError(
                 f"{int(after_exit.sum())} row(s) choose the terminal anchor "
-                f"{panel.choices[R]!r} but the unit has later rows (e.g. {panel.unit}="
-                f"{panel.frame[panel.unit].iloc[i]!r}, {panel.period}={panel.periods[i]}); a "
+                f"{show_label(panel.choices[R])} but the unit has later rows (e.g. {panel.unit}="
+                f"{show_label(panel.frame[panel.unit].iloc[i])}, {panel.period}="
+                f"{show_label(panel.periods[i])}); a "
                 f"terminal choice must be a unit's last row."
             )
         final = panel.periods == panel.periods.max()
@@ -94,6 +96,17 @@ def _check_flags(**flags: Any) -> None:
             raise InputError(
                 f"{name} must be True or False, got {value!r} ({type(value).__name__})."
             )
+
+
+def _check_scheme(scheme: Any, folds: int) -> None:
+    """The cross-fitting scheme, and the folds the nested one needs."""
+    if scheme not in ("plain", "nested"):
+        raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
+    if scheme == "nested" and folds < 3:
+        raise InputError(
+            f"scheme='nested' needs folds >= 3 (it fits the CCP on folds outside each pair), got "
+            f"folds={folds}; use more folds or scheme='plain'."
+        )
 
 
 def _check_options(folds: Any, splits: Any, clip: Any, seed: Any) -> None:
@@ -226,13 +239,7 @@ def estimate(
     _check_flags(debias=debias, small_sample=small_sample)
     check_cov_name(cov)
     runner = resolve_backend(backend, n_jobs)
-    if scheme not in ("plain", "nested"):
-        raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
-    if scheme == "nested" and folds < 3:
-        raise InputError(
-            f"scheme='nested' needs folds >= 3 (it fits the CCP on folds outside each pair), got "
-            f"folds={folds}; use more folds or scheme='plain'."
-        )
+    _check_scheme(scheme, folds)
     if cov == "clustered" and panel.n_units < 2 and model.discount == 0:
         raise InputError(
             f"the data have {panel.n_units} unit; clustered standard errors need at least two "
@@ -314,7 +321,12 @@ def estimate(
             )
             n_fits += int(folds) * int(plan.robust.sum())
         if debias and not static:
-            theta, info = solve_orthogonal(system, theta0)
+            try:
+                theta, info = solve_orthogonal(system, theta0)
+            except EstimationError as exc:
+                if robust:
+                    _raise_if_reset(bound, exc)
+                raise
         iterations += info.iterations
         for _ in range(int(model_ccp_steps)):
             t2 = time.perf_counter()
@@ -524,20 +536,43 @@ def _choose_moments(bound: BoundModel, moments: str | None, debias: bool) -> str
     return moments
 
 
-def _warn_if_not_persistent(bound: BoundModel) -> None:
-    """Warn when a declared persistent state changes right after a renewal."""
+def _changed_after_renewal(bound: BoundModel) -> tuple[dict[str, int], int]:
+    """Per declared persistent state, the renewal rows after which it changes; and the number
+    of renewal rows with a next row."""
     panel = bound.panel
     after = (panel.choice_codes == bound.anchor_index) & (panel.next_row >= 0)
-    if not after.any():
-        return
     i, j = np.flatnonzero(after), panel.next_row[after]
+    out: dict[str, int] = {}
     for col in bound.model.persistent:
         values = panel.frame[col].to_numpy()
-        changed = int((values[i] != values[j]).sum())
+        out[col] = int((values[i] != values[j]).sum())
+    return out, int(i.size)
+
+
+def _raise_if_reset(bound: BoundModel, exc: EstimationError) -> None:
+    """A failed renewal-robust solve with a declared persistent state that the renewal
+    resets: name the state (the real cause) instead of the singular Jacobian."""
+    changed, n = _changed_after_renewal(bound)
+    reset = {col: c for col, c in changed.items() if n and c >= n / 2}
+    if reset:
+        col, c = next(iter(reset.items()))
+        raise InputError(
+            f"persistent state {col!r} is reset by the renewal (it changes right after "
+            f"{c} of {n} renewals), so it cannot be persistent: residualised on it, the "
+            f"renewal-robust moments leave the parameters unidentified (the solve met a "
+            f"singular Jacobian). Remove {col!r} from persistent (declare only the states a "
+            f"renewal carries through) or use moments='standard'."
+        ) from exc
+
+
+def _warn_if_not_persistent(bound: BoundModel) -> None:
+    """Warn when a declared persistent state changes right after a renewal."""
+    changed_after, n = _changed_after_renewal(bound)
+    for col, changed in changed_after.items():
         if changed:
             warnings.warn(
                 f"persistent state {col!r} changes right after a renewal in {changed} of "
-                f"{i.size} renewal rows; the renewal-robust moments assume a renewal does not "
+                f"{n} renewal rows; the renewal-robust moments assume a renewal does not "
                 f"reset it. Remove it from persistent or use moments='standard'.",
                 OrthoCCPWarning,
                 stacklevel=3,

@@ -16,14 +16,12 @@ import numpy as np
 import pandas as pd
 
 from ._errors import InputError, OrthoCCPWarning
+from ._labels import plain_label
 
 __all__ = ["dominant_units"]
 
 _SHOWN = 5  # unit labels named in a warning
 
-
-def _plain(value: Any) -> Any:
-    return value.item() if isinstance(value, np.generic) else value
 
 
 def dominant_units(
@@ -112,7 +110,7 @@ def dominant_units(
                 "n_top": n_top,
                 "share": share,
                 "dominated": bool(share > threshold),
-                "top_units": [_plain(u) for u in labels[order]],
+                "top_units": [plain_label(u) for u in labels[order]],
             }
         )
     table = pd.DataFrame(rows).set_index("parameter")

@@ -54,12 +54,8 @@ class RobustPlan:
 
 def persistent_feature_columns(bound: BoundModel) -> np.ndarray:
     """Indices of the learner features that come from the persistent states."""
-    names = bound.panel.feature_names
-    cols = [
-        i
-        for i, n in enumerate(names)
-        if any(n == c or n.startswith(f"{c}=") for c in bound.model.persistent)
-    ]
+    persistent = set(bound.model.persistent)
+    cols = [i for i, state in enumerate(bound.panel.feature_states) if state in persistent]
     return np.asarray(cols, dtype=np.int64)
 
 

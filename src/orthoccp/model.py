@@ -7,16 +7,17 @@ parameters) and the bookkeeping the moments need.
 
 from __future__ import annotations
 
-from collections.abc import Hashable, Mapping, Sequence
+from collections.abc import Hashable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
 import numpy as np
 
 from ._errors import InputError
+from ._labels import check_declared, declare_in_python, match_keys, match_label, show_label
 from .data import Panel
 
-__all__ = ["Model", "BoundModel", "EULER_GAMMA", "CONSTANT"]
+__all__ = ["Model", "BoundModel", "EULER_GAMMA", "CONSTANT", "check_constant_name"]
 
 EULER_GAMMA = 0.5772156649015329
 """Euler–Mascheroni constant: the mean of a standard type-I extreme-value draw."""
@@ -25,6 +26,9 @@ CONSTANT = "1"
 """Column name that stands for a constant regressor in a utility specification."""
 
 Kind = Literal["renewal", "terminal"]
+
+# Utility columns beyond 1e±100 are refused: their squares overflow or underflow float64.
+_EXTREME_SCALE = 1e100
 
 
 @dataclass(frozen=True)
@@ -42,9 +46,15 @@ class Model:
     discount : float
         Known discount factor :math:`\\beta`, ``0 <= discount < 1``.
     utility : mapping
-        Per choice label, a mapping parameter name -> data column; ``"1"`` is a constant.
-        A parameter may appear under several choices. Choices without parameters may be left
-        out (their flow utility is zero).
+        Per choice label, a mapping parameter name -> data column; ``"1"`` is a constant
+        (so a data column named ``"1"`` must be renamed).
+        A parameter may appear under several choices. Every observed choice must be listed:
+        a choice with zero flow utility as an empty mapping (``"keep": {}``). An observed
+        label the utility does not list is an error (:meth:`bind`), and so are two
+        spellings of one label that differ only by case or surrounding whitespace
+        (``"keep"`` and ``"keep "``), unless both are listed. Labels match exactly, or as
+        the same number (``1``, ``1.0`` and ``"1"`` name one choice; two such keys are an
+        error).
     persistent : sequence of str, default=()
         States a renewal does not reset (used by renewal-robust moments).
 
@@ -70,6 +80,9 @@ class Model:
     ...           utility={"keep": {"wear_cost": "wear"}, "swap": {"swap_cost": "1"}})
     >>> m.parameters
     ('wear_cost', 'swap_cost')
+    >>> Model(anchor="swap", kind="renewal", discount=0.95,
+    ...       utility={"keep": {}, "swap": {"swap_cost": "1"}}).parameters
+    ('swap_cost',)
     """
 
     anchor: Hashable
@@ -140,14 +153,17 @@ class Model:
         }
 
 
-def _match_label(panel: Panel, label: Hashable, role: str) -> int:
-    for k, c in enumerate(panel.choices):
-        if c == label or str(c) == str(label):
-            return k
-    raise InputError(
-        f"{role} {label!r} is not among the observed choices in column {panel.choice!r} "
-        f"({', '.join(map(repr, panel.choices))}); check the label's spelling and type."
-    )
+def check_constant_name(columns: Any, where: str) -> None:
+    """A data column named ``"1"`` cannot be told from the constant ``"1"``: refuse it.
+
+    Called where a utility uses the constant, with the data's columns.
+    """
+    if CONSTANT in columns:
+        raise InputError(
+            f"{where}: the data have a column named {CONSTANT!r}, which the utility cannot tell "
+            f"from the constant {CONSTANT!r}; rename that column (e.g. df.rename(columns="
+            f"{{'1': 'x1'}})) and use the new name where you mean the column."
+        )
 
 
 @dataclass(frozen=True, eq=False)
@@ -180,19 +196,27 @@ class BoundModel:
         J = len(panel.choices)
         if J < 2:
             raise InputError(
-                f"only one choice ({panel.choices[0]!r}) is observed in column "
+                f"only one choice ({show_label(panel.choices[0])}) is observed in column "
                 f"{panel.choice!r}; a discrete choice model needs at least two."
             )
-        anchor = _match_label(panel, model.anchor, "anchor")
+        counts = np.bincount(panel.choice_codes, minlength=J)
+        anchor = match_label(model.anchor, panel.choices, role="anchor", column=panel.choice,
+                             counts=counts)
+        positions = match_keys(model.utility, panel.choices, role="utility choice",
+                               column=panel.choice, counts=counts)
+        check_declared(positions.values(), panel.choices, counts, column=panel.choice,
+                       fix=declare_in_python)
         params = model.parameters
         p = len(params)
         Z = np.zeros((panel.n_rows, J, p))
         columns: dict[str, np.ndarray] = {}
         for choice, spec in model.utility.items():
-            j = _match_label(panel, choice, f"utility choice")
+            j = positions[choice]
             for name, col in spec.items():
                 k = params.index(name)
                 if col == CONSTANT:
+                    check_constant_name(panel.frame.columns, f"utility[{show_label(choice)}]"
+                                        f"[{name!r}]")
                     Z[:, j, k] = 1.0
                 else:
                     if col not in columns:
@@ -209,7 +233,7 @@ class BoundModel:
         R_spec = {
             name: col
             for choice, spec in model.utility.items()
-            if _match_label(panel, choice, "utility choice") == anchor
+            if positions[choice] == anchor
             for name, col in spec.items()
         }
         for name, col in R_spec.items():
@@ -250,6 +274,22 @@ class BoundModel:
         """z_R data columns at every row (n_rows, n_zR); the ln P_R part is added later."""
         return self.Z[:, self.anchor_index, :][:, self.zR_params]
 
+    def _check_scale(self, Z: np.ndarray) -> None:
+        """Utility columns of extreme scale (beyond 1e±100) break the rank check and the solve
+        (their squares overflow or underflow): name them before anything else."""
+        largest = np.abs(Z).max(axis=(0, 1)) if Z.size else np.zeros(Z.shape[2])
+        extreme = (largest > _EXTREME_SCALE) | ((largest > 0) & (largest < 1 / _EXTREME_SCALE))
+        for k in np.flatnonzero(extreme):
+            name = self.parameters[k]
+            cols = sorted({col for spec in self.model.utility.values() for p, col in spec.items()
+                           if p == name and col != CONSTANT})
+            raise InputError(
+                f"utility column(s) {', '.join(map(repr, cols))} of parameter {name!r} have an "
+                f"extreme scale (largest absolute value {largest[k]:.3g}); the estimation needs "
+                f"values of moderate size. Rescale the column (e.g. to values of order 1; the "
+                f"parameter scales inversely)."
+            )
+
     def _check_identified(self, rows: np.ndarray | None = None) -> None:
         """Each parameter needs variation in z_j - z_R not spanned by the others.
 
@@ -259,6 +299,7 @@ class BoundModel:
         R = self.anchor_index
         Z = self.Z if rows is None else self.Z[rows]
         where = "in all rows" if rows is None else f"in the {Z.shape[0]} moment rows"
+        self._check_scale(Z)
         diffs = [Z[:, j, :] - Z[:, R, :] for j in range(Z.shape[1]) if j != R]
         D = np.vstack(diffs)
         # Terminal models with a constant in u_R: beta * 1 enters X and can identify it.

@@ -12,6 +12,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ._labels import show_label
+
 __all__ = ["Results", "RowAccounting", "NotApplicable", "ASSUMPTIONS"]
 
 ASSUMPTIONS = (
@@ -247,7 +249,7 @@ class Results:
         head = f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}{f'[{pct}% conf. int.]':>24}"
         lines = [
             f"orthoccp {self.version}: {self.method}",
-            f"model: {self.model['kind']}, anchor {self.model['anchor']!r}, discount {self.model['discount']}",
+            f"model: {self.model['kind']}, anchor {show_label(self.model['anchor'])}, discount {self.model['discount']}",
             "=" * len(head),
             head,
             "-" * len(head),
@@ -325,7 +327,7 @@ class Results:
         assumptions = "".join(f"<li>{a}</li>" for a in ASSUMPTIONS)
         return (
             f"<div><p><b>orthoccp</b>: {self.method}; model {self.model['kind']}, anchor "
-            f"{self.model['anchor']!r}, discount {self.model['discount']}</p>{table}"
+            f"{show_label(self.model['anchor'])}, discount {self.model['discount']}</p>{table}"
             f"<p>units {self.n_units}; {self.accounting.describe()}<br>learner {self.learner}; "
             f"{self.folds} folds, {self.splits} split(s), seed {self.seed}</p>"
             f"<p>Coverage holds only under the assumptions:</p><ul>{assumptions}</ul></div>"

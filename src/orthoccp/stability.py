@@ -29,7 +29,7 @@ import pandas as pd
 
 from ._errors import InputError
 from .data import Panel
-from .estimate import _check_options, _choose_moments, estimate
+from .estimate import _check_options, _check_scheme, _choose_moments, estimate
 from .folds import unit_folds
 from .instruments import persistent_feature_columns
 from .learners import resolve_learners
@@ -142,8 +142,7 @@ def fold_stability(
         if key in options:
             raise InputError(f"fold_stability refits the first stage itself; drop {key}=.")
     _check_options(folds, 1, clip, seed)
-    if scheme not in ("plain", "nested"):
-        raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
+    _check_scheme(scheme, folds)
     bound = model.bind(panel)
     if not bound.has_next_stage:
         raise InputError(

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 
 from .._errors import InputError
+from .._labels import show_label
 from ..learners import LearnerPair, _check_methods, _describe, checked_proba, resolve_learners
 from ..backends import take_rows
 from ..nuisance import learner_dtype
@@ -195,7 +196,7 @@ def crossfit(
                 for label, pt in design.points.items():
                     idx = np.flatnonzero((folds == k) & pt.defined & (pt.stratum == s))
                     targets.append((label, pt.X, idx))
-                where = f"fold {k}" + ("" if spec.by is None else f", {spec.by}={stratum!r}")
+                where = f"fold {k}" + ("" if spec.by is None else f", {spec.by}={show_label(stratum)}")
                 preds = _fit_predict(pair, design, y, tr, targets, rng, clip, where)
                 n_fits += 1
                 for (label, _, idx), pred in zip(targets, preds):

@@ -52,6 +52,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .._errors import InputError
+from .._labels import find_label, keys_by_label, show_label, show_labels
 from ..learners import LearnerPair, checked_proba
 from ._crossfit import FittedNuisance, evaluate_target
 from ._dictionary import build_dictionary
@@ -313,25 +314,27 @@ def _model_weights(
         point = points[lab]
         assert isinstance(point, Mapping)
         value = point[by]
-        s = design.strata.index(value)
-        if value not in probs:
+        s = find_label(value, design.strata, role=f"{by} value")
+        assert s is not None, "counterfactual strata are checked when the points are resolved"
+        key = keys_by_label(probs, [value], role="by_probability key")[0]
+        if key is None:
             raise InputError(
                 f"Nuisance {spec.name!r}: by_probability returned no probability for "
-                f"{spec.by}={value!r} (read at {lab!r}); it returned keys "
-                f"{', '.join(map(repr, probs))}."
+                f"{spec.by}={show_label(value)} (read at {lab!r}); it returned keys "
+                f"{show_labels(probs)}."
             )
-        pi = np.asarray(probs[value], dtype=np.float64).reshape(-1)
+        pi = np.asarray(probs[key], dtype=np.float64).reshape(-1)
         if pi.shape[0] != rows.n_rows:
             raise InputError(
-                f"Nuisance {spec.name!r}: by_probability[{value!r}] has {pi.shape[0]} values; "
+                f"Nuisance {spec.name!r}: by_probability[{show_label(value)}] has {pi.shape[0]} values; "
                 f"expected one per row ({rows.n_rows})."
             )
         on = fit.train & (design.stratum == s)
         bad = on & ~(np.isfinite(pi) & (pi > 0) & (pi <= 1))
         if bad.any():
             raise InputError(
-                f"Nuisance {spec.name!r}: by_probability[{value!r}] must be a probability in "
-                f"(0, 1] on the rows with {spec.by}={value!r}; it is not on {int(bad.sum())} "
+                f"Nuisance {spec.name!r}: by_probability[{show_label(value)}] must be a probability in "
+                f"(0, 1] on the rows with {spec.by}={show_label(value)}; it is not on {int(bad.sum())} "
                 f"of them (e.g. {pi[bad][:3].tolist()}) at theta={np.round(theta, 6).tolist()}."
             )
         alpha[on] += D[lab][on] / pi[on][:, None]

@@ -24,6 +24,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from .._errors import InputError
+from .._labels import find_label, show_label, show_labels
 from ..data import Panel, _state_matrix
 
 __all__ = ["Nuisance", "Rows", "Point", "ResolvedPoint"]
@@ -277,7 +278,7 @@ def bind_nuisance(spec: Nuisance, panel: Panel, rows: Rows) -> NuisanceDesign:
             raise InputError(
                 f"Nuisance {spec.name!r}: column {col!r} is not in the data."
             )
-    X, names = _state_matrix(panel.frame, spec.features)
+    X, names, _ = _state_matrix(panel.frame, spec.features)
     n = panel.n_rows
     if spec.by is None:
         strata: tuple[Hashable, ...] = (None,)
@@ -309,13 +310,14 @@ def bind_nuisance(spec: Nuisance, panel: Panel, rows: Rows) -> NuisanceDesign:
             st = stratum.copy()
             for col, value in point.items():
                 if col == spec.by:
-                    if value not in strata:
+                    hit = find_label(value, strata, role=f"at[{label!r}][{col!r}]")
+                    if hit is None:
                         raise InputError(
-                            f"Nuisance {spec.name!r}: at[{label!r}] sets {col!r} to {value!r}, "
-                            f"which never occurs in the data (values: "
-                            f"{', '.join(map(repr, strata))})."
+                            f"Nuisance {spec.name!r}: at[{label!r}] sets {col!r} to "
+                            f"{show_label(value)}, which never occurs in the data (values: "
+                            f"{show_labels(strata)})."
                         )
-                    st = np.full(n, strata.index(value), dtype=np.int64)
+                    st = np.full(n, hit, dtype=np.int64)
                 else:
                     if col not in names:
                         raise InputError(

@@ -232,7 +232,8 @@ def estimate_discrete(
     utility : mapping
         Choice label -> {parameter: regressor}; a regressor is ``"1"``, a data column that
         is a function of the state, or an array of S values (see
-        :func:`~orthoccp.discrete.utility_design`). Choices left out have zero utility.
+        :func:`~orthoccp.discrete.utility_design`). Every observed choice is listed, a choice
+        with zero utility as an empty mapping.
     discount : float
         Known :math:`\\beta \\in [0, 1)`.
     estimator : {"npl", "pml"}, default="npl"

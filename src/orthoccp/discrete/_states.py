@@ -19,8 +19,9 @@ import pandas as pd
 
 from .._arrays import label_index
 from .._errors import InputError
+from .._labels import check_declared, declare_in_python, match_keys, plain_label, show_label
 from ..data import Panel, as_float
-from ..model import CONSTANT
+from ..model import CONSTANT, check_constant_name
 
 __all__ = ["StateSpace", "bin_states", "state_space", "utility_design"]
 
@@ -129,7 +130,8 @@ def utility_design(
         Choice label -> {parameter: regressor}. A regressor is ``"1"`` (a constant), the
         name of a data column that is a function of the state (one value per state), or an
         array of S values (one per state, needed for states no row occupies unless the
-        column is itself a state column). Choices left out have zero flow utility.
+        column is itself a state column). Every observed choice must be listed, a choice
+        with zero flow utility as an empty mapping (see :class:`~orthoccp.Model`).
     choices : sequence
         Choice labels in the order of the J axis.
 
@@ -158,20 +160,16 @@ def utility_design(
     S, J = space.n_states, len(choices)
     Z = np.zeros((S, J, len(names)))
     observed = space.observed
+    counts = np.bincount(panel.choice_codes, minlength=J)
+    positions = match_keys(utility, choices, role="utility choice", column=panel.choice,
+                           counts=counts)
+    check_declared(positions.values(), choices, counts, column=panel.choice,
+                   fix=declare_in_python)
     for label, spec in utility.items():
-        j = _position(label, choices)
+        j = positions[label]
         for name, reg in spec.items():
             Z[:, j, names.index(name)] = _regressor(panel, space, reg, label, name, observed)
     return Z, tuple(names)
-
-
-def _position(label: Hashable, choices: Sequence[Hashable]) -> int:
-    for k, c in enumerate(choices):
-        if c == label or str(c) == str(label):
-            return k
-    raise InputError(
-        f"utility choice {label!r} is not one of the choices ({', '.join(map(repr, choices))})."
-    )
 
 
 def _regressor(
@@ -183,9 +181,10 @@ def _regressor(
     observed: np.ndarray,
 ) -> np.ndarray:
     S = space.n_states
-    where = f"utility[{label!r}][{name!r}]"
+    where = f"utility[{show_label(label)}][{name!r}]"
     if isinstance(reg, str):
         if reg == CONSTANT:
+            check_constant_name(panel.frame.columns, where)
             return np.ones(S)
         if reg in space.values.columns and pd.api.types.is_numeric_dtype(space.values[reg]):
             return space.values[reg].to_numpy(dtype=np.float64)
@@ -201,9 +200,13 @@ def _regressor(
                 f"or bin it with bin_states()."
             )
         if not observed.all():
+            states = " or ".join(repr(c) for c in space.values.columns)
             raise InputError(
                 f"{where}: column {reg!r} gives no value at the {int((~observed).sum())} of "
-                f"{S} states that no row occupies; pass an array of {S} values (one per state)."
+                f"{S} states that no row occupies. Use a state column itself as the regressor "
+                f"({states}, defined at every state; in a spec file: {name} = "
+                f"\"{space.values.columns[0]}\" under [utility.{plain_label(label)}]), or, from "
+                f"Python, pass an array of {S} values (one per state)."
             )
         return mean
     arr = np.asarray(reg, dtype=np.float64)

@@ -34,6 +34,7 @@ from scipy import sparse
 
 from .._arrays import group_sums
 from .._errors import InputError, OrthoCCPWarning
+from .._labels import keys_by_label, match_label, show_label
 
 __all__ = ["TransitionMatrices", "estimate_transition_matrices"]
 
@@ -142,15 +143,7 @@ class TransitionMatrices:
 
 
 def _choice_positions(labels: Sequence[Hashable], choices: Sequence[Hashable], role: str) -> np.ndarray:
-    out = []
-    for lab in labels:
-        hit = [k for k, c in enumerate(choices) if c == lab or str(c) == str(lab)]
-        if not hit:
-            raise InputError(
-                f"{role} {lab!r} is not one of the choices ({', '.join(map(repr, choices))})."
-            )
-        out.append(hit[0])
-    return np.asarray(out, dtype=np.int64)
+    return np.asarray([match_label(lab, choices, role=role) for lab in labels], dtype=np.int64)
 
 
 def estimate_transition_matrices(
@@ -247,8 +240,7 @@ def estimate_transition_matrices(
 
 def _given(method: Mapping[Any, Any], S: int, choices: tuple[Hashable, ...]) -> TransitionMatrices:
     mats = []
-    for c in choices:
-        key = next((k for k in method if k == c or str(k) == str(c)), None)
+    for c, key in zip(choices, keys_by_label(method, choices, role="transitions key")):
         if key is None:
             raise InputError(
                 f"transitions has no matrix for choice {c!r}; give one (S, S) matrix per choice "
@@ -287,7 +279,7 @@ def _frequency(
     for j in range(J):
         if n_j[j] == 0:
             raise InputError(
-                f"choice {choices[j]!r} is never followed by an observed next state; its "
+                f"choice {show_label(choices[j])} is never followed by an observed next state; its "
                 f"transition matrix cannot be estimated by frequencies. Pass the matrices as "
                 f"given (transitions={{choice: matrix, ...}})."
             )
@@ -326,8 +318,7 @@ def _bases(
         raise InputError(f"reset_state must be a state in 0..{S - 1}, got {reset_state!r}.")
     out = np.empty((len(choices), S), dtype=np.int64)
     given = dict(base or {})
-    for j, c in enumerate(choices):
-        key = next((k for k in given if k == c or str(k) == str(c)), None)
+    for j, (c, key) in enumerate(zip(choices, keys_by_label(given, choices, role="base key"))):
         if key is not None:
             b = np.asarray(given.pop(key))
             if b.shape != (S,) or np.any(b != np.round(b)) or b.min() < 0 or b.max() > S - 1:
@@ -353,9 +344,10 @@ def _widest_choice(
         return "Narrow increment_range, or check base."
     j = max(spread, key=lambda k: spread[k])
     low, high = int(inc[choice == j].min()), int(inc[choice == j].max())
+    label = show_label(choices[j])
     return (
-        f"After choice {choices[j]!r} the increments run from {low} to {high}: if that choice "
-        f"restarts the state (a replacement, a renewal), pass reset_choices=[{choices[j]!r}] "
+        f"After choice {label} the increments run from {low} to {high}: if that choice "
+        f"restarts the state (a replacement, a renewal), pass reset_choices=[{label}] "
         f"(it restarts at reset_state); otherwise give its base states with base=, or narrow "
         f"increment_range."
     )

@@ -23,6 +23,7 @@ from scipy import optimize, stats
 from scipy.linalg import lu_factor, lu_solve
 
 from .._errors import EstimationError, InputError
+from .._labels import find_label, match_keys, match_label, show_label, show_labels
 from ._bellman import BellmanSolution, _newton_matrix, blas_limit, solve_bellman
 from ._transitions import TransitionEstimate, estimate_transitions
 
@@ -284,15 +285,6 @@ class NFXPResults:
         return "\n".join(lines)
 
 
-def _choice_index(label: Hashable, choices: tuple[Hashable, ...], role: str) -> int:
-    for k, c in enumerate(choices):
-        if c == label or str(c) == str(label):
-            return k
-    raise InputError(
-        f"{role} {label!r} is not one of choices ({', '.join(map(repr, choices))})."
-    )
-
-
 def _state_codes(values: pd.Series, name: str) -> np.ndarray:
     if values.isna().any():
         raise InputError(f"state column {name!r} has {int(values.isna().sum())} missing values.")
@@ -326,8 +318,9 @@ def _design(
         raise InputError("utility declares no parameters.")
     Z = np.zeros((S, len(choices), len(names)))
     seen = np.bincount(s, minlength=S) > 0
+    positions = match_keys(utility, choices, role="utility choice")
     for label, spec in utility.items():
-        j = _choice_index(label, choices, "utility choice")
+        j = positions[label]
         for name, reg in spec.items():
             k = names.index(name)
             if isinstance(reg, str):
@@ -544,13 +537,19 @@ def nfxp_estimate(
     if frame.duplicated([unit, period]).any():
         raise InputError("some unit-period pairs appear more than once.")
     s = _state_codes(frame[state], state)
-    labels = frame[choice].to_numpy()
-    a = np.full(len(frame), -1, dtype=np.int64)
-    for j, c in enumerate(choices):
-        a[(labels == c) | (frame[choice].astype(str).to_numpy() == str(c))] = j
+    codes, observed = pd.factorize(frame[choice])
+    to_choice = np.empty(len(observed) + 1, dtype=np.int64)
+    to_choice[-1] = -1  # a missing label (code -1)
+    for k, label in enumerate(observed):
+        hit = find_label(label, choices, role="observed choice")
+        to_choice[k] = -1 if hit is None else hit
+    a = to_choice[codes]
     if (a < 0).any():
-        bad = labels[a < 0][0]
-        raise InputError(f"choice {bad!r} in column {choice!r} is not one of choices {choices!r}.")
+        bad = frame[choice].to_numpy()[a < 0][0]
+        raise InputError(
+            f"choice {show_label(bad)} in column {choice!r} is not one of choices "
+            f"({show_labels(choices)})."
+        )
     per = pd.to_numeric(frame[period], errors="coerce").to_numpy(dtype=np.float64)
     if np.isnan(per).any():
         raise InputError(f"period column {period!r} must be numeric.")
@@ -561,7 +560,7 @@ def nfxp_estimate(
 
     S = _n_states(n_states, utility, transitions, int(s.max()))
     J = len(choices)
-    anchor_j = None if anchor is None else _choice_index(anchor, choices, "anchor")
+    anchor_j = None if anchor is None else match_label(anchor, choices, role="anchor")
     Z, names = _design(frame, s, utility, choices, S, state)
     counts = np.zeros((S, J))
     np.add.at(counts, (s, a), 1.0)

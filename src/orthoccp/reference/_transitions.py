@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from .._errors import InputError
+from .._labels import keys_by_label, show_label
 
 __all__ = ["TransitionEstimate", "estimate_transitions"]
 
@@ -127,8 +128,7 @@ def _given(
     method: Mapping[Any, Any], S: int, choices: tuple[Hashable, ...]
 ) -> TransitionEstimate:
     mats = np.empty((len(choices), S, S))
-    for j, c in enumerate(choices):
-        key = next((k for k in method if k == c or str(k) == str(c)), None)
+    for j, (c, key) in enumerate(zip(choices, keys_by_label(method, choices, role="transitions key"))):
         if key is None:
             raise InputError(
                 f"transitions has no matrix for choice {c!r}; give one (S, S) matrix per choice "
@@ -165,7 +165,7 @@ def _frequency(
         pooled = counts[j].sum(axis=0)
         if pooled.sum() == 0:
             raise InputError(
-                f"choice {choices[j]!r} is never followed by an observed next state; its "
+                f"choice {show_label(choices[j])} is never followed by an observed next state; its "
                 f"transition matrix cannot be estimated by frequencies. Pass it as a given "
                 f"matrix (transitions={{...}})."
             )

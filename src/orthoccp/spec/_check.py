@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -63,12 +63,6 @@ def _show(value: Any) -> str:
     if len(text) > 60:
         text = text[:57] + "..."
     return f"{text} ({_type_name(value)})"
-
-
-def _list_columns(columns: Iterable[Any], limit: int = 12) -> str:
-    cols = [str(c) for c in columns]
-    more = f", ... ({len(cols) - limit} more)" if len(cols) > limit else ""
-    return ", ".join(cols[:limit]) + more
 
 
 class _Checker:

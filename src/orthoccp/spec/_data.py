@@ -5,9 +5,7 @@ from __future__ import annotations
 import importlib.util
 import os
 from pathlib import Path
-from typing import Any
 
-import numpy as np
 import pandas as pd
 
 from .._errors import InputError
@@ -131,7 +129,3 @@ def write_data(frame: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
         frame.to_csv(p, index=False)
     return p
 
-
-def _plain(value: Any) -> Any:
-    """NumPy scalars to Python scalars."""
-    return value.item() if isinstance(value, np.generic) else value

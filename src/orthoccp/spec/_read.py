@@ -289,7 +289,8 @@ def read_spec(path: str | os.PathLike[str]) -> Spec:
     Parameters
     ----------
     path : path-like
-        The spec file. A relative ``data.path`` inside it is resolved against its folder.
+        The spec file (UTF-8; a leading byte-order mark is ignored). A relative
+        ``data.path`` inside it is resolved against its folder.
 
     Returns
     -------
@@ -308,8 +309,10 @@ def read_spec(path: str | os.PathLike[str]) -> Spec:
             raise SpecError(f"spec file {str(p)!r} is a folder, not a TOML file.", key=None)
         raise FileNotFoundError(2, "spec file not found", str(p))
     try:
-        with p.open("rb") as fh:
-            document = tomllib.load(fh)
+        raw = p.read_bytes()
+        # A UTF-8 byte-order mark (written by some Windows editors) is not TOML: drop it.
+        text = raw.removeprefix(b"\xef\xbb\xbf").decode("utf-8")
+        document = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SpecError(f"{p}: not valid TOML: {exc}.") from exc
     except UnicodeDecodeError as exc:

@@ -14,11 +14,12 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from .._errors import InputError
-from ..data import Panel
+from .._labels import check_declared, match_label, plain_label, show_label
+from ..data import Panel, missing_column_hint
 from ..learners import learner_names
 from ..model import CONSTANT, Model
-from ._check import SpecError, _Checker, _list_columns, _where
-from ._data import _plain, read_data
+from ._check import SpecError, _Checker, _where
+from ._data import read_data
 from ._toml import _relative_path, _toml_key
 
 
@@ -367,8 +368,9 @@ class Spec:
         """The :class:`~orthoccp.Model`, with choice labels matched to the data's labels.
 
         TOML table keys are always strings, so ``[utility.1]`` and ``anchor = 1`` (or
-        ``"1"``) are matched to the integer label ``1`` when the data's choice column holds
-        integers; string labels are matched as written.
+        ``"1"``) match the numeric label ``1`` or ``1.0``; text labels match exactly (the
+        package's one label matcher). Every observed choice needs a ``[utility.<choice>]``
+        table (empty for a choice without parameters).
 
         Parameters
         ----------
@@ -391,8 +393,8 @@ class Spec:
                 f"orthogonal estimator.",
                 key="model",
             )
-        _, observed, integer_labels = self._observed(data)
-        anchor = self._match_choice("model.anchor", self.model.anchor, observed, integer_labels)
+        _, observed, counts = self._observed(data)
+        anchor = observed[self._match_choice("model.anchor", self.model.anchor, observed, counts)]
         utility = self._matched_utility(data)
         return Model(
             anchor=anchor,
@@ -430,9 +432,9 @@ class Spec:
             if value is not None:
                 out[key] = value
         if est.reset_choices is not None:
-            _, observed, integer_labels = self._observed(data)
+            _, observed, counts = self._observed(data)
             out["reset_choices"] = tuple(
-                self._match_choice("estimator.reset_choices", c, observed, integer_labels)
+                observed[self._match_choice("estimator.reset_choices", c, observed, counts)]
                 for c in est.reset_choices
             )
         for key, value in (("seed", self.first_stage.seed), ("cov", self.inference.cov),
@@ -441,60 +443,64 @@ class Spec:
                 out[key] = value
         return out
 
-    def _observed(self, data: pd.DataFrame | Panel) -> tuple[pd.DataFrame, list[Any], bool]:
-        """The frame, the observed choice labels, and whether they are integers."""
+    def _observed(self, data: pd.DataFrame | Panel) -> tuple[pd.DataFrame, list[Any], np.ndarray]:
+        """The frame, the observed choice labels and their row counts."""
         if isinstance(data, Panel):
             frame = data.frame
             observed = list(data.choices)
-            integer_labels = all(isinstance(c, int) and not isinstance(c, bool) for c in observed)
+            counts = np.bincount(data.choice_codes, minlength=len(observed))
         else:
             frame = data
             self._require_column(frame, "data.choice", self.data.choice)
-            col = frame[self.data.choice]
-            integer_labels = ptypes.is_integer_dtype(col) and not ptypes.is_bool_dtype(col)
-            observed = [_plain(v) for v in pd.unique(col.dropna())]
-        return frame, observed, integer_labels
+            tally = frame[self.data.choice].value_counts(dropna=True, sort=False)
+            try:
+                tally = tally.sort_index()  # listed in order, as the panel lists its choices
+            except TypeError:
+                pass
+            observed = [plain_label(v) for v in tally.index]
+            counts = tally.to_numpy()
+        return frame, observed, counts
 
     def _matched_utility(self, data: pd.DataFrame | Panel) -> dict[Hashable, dict[str, str]]:
-        frame, observed, integer_labels = self._observed(data)
+        frame, observed, counts = self._observed(data)
         utility: dict[Hashable, dict[str, str]] = {}
+        claimed: dict[int, str] = {}
         for label, params in self.utility.items():
             key = f"utility.{_toml_key(label)}"
-            matched = self._match_choice(key, label, observed, integer_labels)
+            k = self._match_choice(key, label, observed, counts)
+            if k in claimed:
+                raise SpecError(
+                    f"{_where(self.source)}{key}: two keys for the same choice: [{claimed[k]}] "
+                    f"and [{key}] both name {show_label(observed[k])}; keep one of them.",
+                    key=key,
+                )
+            claimed[k] = key
             for name, column in params.items():
                 if column != CONSTANT:
                     self._require_column(frame, f"{key}.{_toml_key(name)}", column)
-            utility[matched] = dict(params)
+            utility[observed[k]] = dict(params)
+        try:
+            check_declared(claimed, observed, counts, column=self.data.choice,
+                           fix=lambda label: f"add an empty table [utility.{_toml_key(label)}]")
+        except InputError as exc:
+            raise SpecError(f"{_where(self.source)}utility: {exc}", key="utility") from None
         return utility
 
     def _require_column(self, frame: pd.DataFrame, key: str, name: str) -> None:
         if name not in frame.columns:
             raise SpecError(
-                f"{_where(self.source)}{key}: column {name!r} is not in the data; available "
-                f"columns: {_list_columns(frame.columns)}.",
+                f"{_where(self.source)}{key}: column {name!r} is not in the data; "
+                f"{missing_column_hint(name, frame.columns)}",
                 key=key,
             )
 
-    def _match_choice(
-        self, key: str, label: str | int, observed: Sequence[Any], integer_labels: bool
-    ) -> Any:
-        if integer_labels:
-            try:
-                wanted: Any = int(str(label).strip())
-            except ValueError:
-                wanted = None
-            if wanted is not None and wanted in observed:
-                return wanted
-        for value in observed:
-            if str(value) == str(label):
-                return value
-        shown = ", ".join(repr(v) for v in sorted(observed, key=str))
-        kind = "integer " if integer_labels else ""
-        raise SpecError(
-            f"{_where(self.source)}{key}: choice {label!r} is not among the {kind}choices "
-            f"observed in column {self.data.choice!r} ({shown}).",
-            key=key,
-        )
+    def _match_choice(self, key: str, label: str | int, observed: Sequence[Any],
+                      counts: np.ndarray) -> int:
+        try:
+            return match_label(label, observed, role="choice", column=self.data.choice,
+                               counts=counts)
+        except InputError as exc:
+            raise SpecError(f"{_where(self.source)}{key}: {exc}", key=key) from None
 
     # ------------------------------------------------------------------ output
     def to_dict(self, *, relative_to: str | os.PathLike[str] | None = None) -> dict[str, Any]:
