@@ -96,3 +96,15 @@ def test_a_one_step_fallback_flags_every_parameter() -> None:
     assert check.flagged == ["a", "b"]
     assert "no root near the plug-in solution in 1 of 2 split(s)" in check.readings()[0]
     assert _check(routes=("newton", "root")).flagged == []
+
+
+def test_a_parameter_that_moves_with_a_weak_one_is_flagged() -> None:
+    ident = np.array([1.0, 0.001])
+    se = np.array([0.5, 1.0])
+    for r, flagged in ((0.6, ["a", "b"]), (0.1, ["b"])):
+        cov = np.array([[0.25, r * 0.5], [r * 0.5, 1.0]])
+        check = _check(identification=ident, cov=cov, std_errors=se)
+        assert check.flagged == flagged
+    assert "moves with the weakly identified 'b' (correlation +0.60)" in _check(
+        identification=ident, std_errors=se, cov=np.array([[0.25, 0.3], [0.3, 1.0]])
+    ).table.loc["a", "reason"]

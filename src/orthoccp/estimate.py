@@ -413,7 +413,7 @@ def estimate(
         checks = interval_check(
             params, estimates=np.vstack(thetas), plugins=np.vstack(plugins),
             one_steps=np.vstack(one_steps), std_errors=se, influence=infl.to_numpy(),
-            identification=identification, routes=routes,
+            identification=identification, routes=routes, cov=V,
         )
         for reading in checks.readings() if checks.flagged else ():
             warnings.warn(reading, OrthoCCPWarning, stacklevel=2)
