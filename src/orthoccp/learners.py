@@ -72,28 +72,41 @@ def _lightgbm_smooth() -> tuple[Any, Any]:
     return LGBMClassifier(**smooth), LGBMRegressor(**_lgbm_common())
 
 
-def _logit() -> tuple[Any, Any]:
-    from sklearn.linear_model import LinearRegression, LogisticRegression
+def _standardised(est: Any) -> Any:
+    """``est`` behind a :class:`~sklearn.preprocessing.StandardScaler` (a two-step pipeline).
+
+    Linear learners see every feature with mean 0 and variance 1, so the scale of a state
+    (revenue in dollars, an int64 identifier near 5e18) cannot push the other features below
+    the solvers' numerical cut-offs: without it, a state around 5e9 left the least-squares
+    continuation regressions rank-deficient and moved the estimates by several standard
+    errors. Rescaling a state leaves the fits unchanged (``tests/test_learners.py``). Sample
+    weights go to the last step (``nuisance._fit_weighted``); the scaler is unweighted, which
+    changes nothing but the rounding, as a linear fit is invariant to an affine map of a
+    feature.
+    """
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
 
+    return make_pipeline(StandardScaler(), est)
+
+
+def _logit() -> tuple[Any, Any]:
+    from sklearn.linear_model import LinearRegression, LogisticRegression
+
     return (
-        make_pipeline(StandardScaler(), LogisticRegression(C=1e6, max_iter=5000)),
-        LinearRegression(),
+        _standardised(LogisticRegression(C=1e6, max_iter=5000)),
+        _standardised(LinearRegression()),
     )
 
 
 def _lasso_logit() -> tuple[Any, Any]:
     from sklearn.linear_model import LassoCV, LogisticRegression
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
 
     return (
-        make_pipeline(
-            StandardScaler(),
-            LogisticRegression(l1_ratio=1.0, C=0.5, solver="saga", max_iter=2000, tol=1e-3),
+        _standardised(
+            LogisticRegression(l1_ratio=1.0, C=0.5, solver="saga", max_iter=2000, tol=1e-3)
         ),
-        make_pipeline(StandardScaler(), LassoCV(cv=3)),
+        _standardised(LassoCV(cv=3)),
     )
 
 
