@@ -18,6 +18,7 @@ from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
 from .guards import dominant_units
 from .backends import FeatureRows, resolve_backend
+from .checks import warn_if_not_persistent, warn_if_not_reset
 from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
 from .model import BoundModel, Model
@@ -254,7 +255,8 @@ def estimate(
     fcols = persistent_feature_columns(bound) if robust else None
     plan = plan_robust(bound) if robust else None
     if robust:
-        _warn_if_not_persistent(bound)
+        warn_if_not_persistent(bound)
+    warn_if_not_reset(bound)
     if nuisances is not None:
         splits = 1
     thetas, covs, influences, decomps, plugins = [], [], [], [], []
@@ -493,23 +495,3 @@ def _choose_moments(bound: BoundModel, moments: str | None, debias: bool) -> str
         if not debias:
             raise InputError("moments='renewal_robust' is a debiased moment; use debias=True.")
     return moments
-
-
-def _warn_if_not_persistent(bound: BoundModel) -> None:
-    """Warn when a declared persistent state changes right after a renewal."""
-    panel = bound.panel
-    after = (panel.choice_codes == bound.anchor_index) & (panel.next_row >= 0)
-    if not after.any():
-        return
-    i, j = np.flatnonzero(after), panel.next_row[after]
-    for col in bound.model.persistent:
-        values = panel.frame[col].to_numpy()
-        changed = int((values[i] != values[j]).sum())
-        if changed:
-            warnings.warn(
-                f"persistent state {col!r} changes right after a renewal in {changed} of "
-                f"{i.size} renewal rows; the renewal-robust moments assume a renewal does not "
-                f"reset it. Remove it from persistent or use moments='standard'.",
-                OrthoCCPWarning,
-                stacklevel=3,
-            )

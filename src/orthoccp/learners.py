@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from sklearn.base import clone
+from sklearn.base import clone, is_classifier
 
 from ._errors import InputError
 
@@ -234,6 +234,14 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
     else:
         _check_methods(regressor, "regressor", ("fit", "predict", "get_params"),
                        "it must be a scikit-learn-style regressor")
+        if is_classifier(regressor):
+            raise InputError(
+                f"regressor {_describe(regressor)} is a classifier; the regressor must be a "
+                f"regressor with fit/predict for continuous targets (the continuation "
+                f"regressions predict ln P_R and utility columns), e.g. "
+                f"regressor=LinearRegression() or regressor='lightgbm'. Pass a classifier "
+                f"as learner=."
+            )
         reg = regressor
         reg_name = _describe(regressor)
     return LearnerPair(classifier=clf, regressor=reg, name=name, regressor_name=reg_name)
