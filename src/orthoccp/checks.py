@@ -45,7 +45,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from ._arrays import group_sums
 from ._errors import OrthoCCPWarning
+from .data import Panel
 from .instruments import persistent_feature_columns
 from .model import BoundModel
 
@@ -68,9 +70,9 @@ def _plain(value: object) -> object:
     return value.item() if isinstance(value, np.generic) else value
 
 
-def _changes_within_units(panel: object, values: np.ndarray) -> np.ndarray:
+def _changes_within_units(panel: Panel, values: np.ndarray) -> np.ndarray:
     """Rows whose value differs from the unit's previous row (any period gap)."""
-    codes = panel.unit_codes  # type: ignore[attr-defined]
+    codes = panel.unit_codes
     changed = np.zeros(values.shape[0], dtype=bool)
     same = codes[1:] == codes[:-1]
     differ = values[1:] != values[:-1]
@@ -221,8 +223,7 @@ def renewal_reset_test(bound: BoundModel) -> ResetTest | None:
     for j, name in enumerate(names):
         if sd_y[j] == 0:
             continue  # the renewal sets it to one value: nothing can depend on the past
-        s = np.zeros((n_groups, h.shape[1]))
-        np.add.at(s, groups, d[:, j : j + 1] * h)
+        s = group_sums(groups, d[:, j : j + 1] * h, n_groups)
         mean = s.mean(axis=0)
         cov = np.cov(s, rowvar=False, bias=False).reshape(h.shape[1], h.shape[1]) / n_groups
         rank = np.linalg.matrix_rank(cov)
