@@ -472,59 +472,35 @@ def _no_work(*args: Any, **kwargs: Any) -> Any:
 
 # (arguments after the files are written, the error the command must print). In the arguments,
 # {data}, {spec} and {tmp} name the data file, the spec file and the test's folder.
+EST = ["estimate", "{data}", "--spec", "{spec}"]
+MC = ["montecarlo", "ebike", "--reps", "2", "--out", "{tmp}/a.json"]
 OUTPUT_CASES: dict[str, tuple[list[str], str]] = {
-    "estimate --json is a folder": (
-        ["estimate", "{data}", "--spec", "{spec}", "--json", "{tmp}"],
-        r"--json '.*' is a folder; give a file name inside it",
-    ),
-    "estimate --latex a system file that refuses writes": (
-        ["estimate", "{data}", "--spec", "{spec}", "--latex", "/proc/version"],
-        r"--latex '/proc/version' cannot be written \(.+\); choose another path",
-    ),
-    "estimate --json below a file": (
-        ["estimate", "{data}", "--spec", "{spec}", "--json", "{data}/res.json"],
-        r"--json '.*res\.json' cannot be created: '.*panel\.csv' is a file, not a folder",
-    ),
-    "estimate --json over the data file": (
-        ["estimate", "{data}", "--spec", "{spec}", "--json", "{data}"],
-        r"--json '.*panel\.csv' is the same file as the input data file",
-    ),
-    "estimate --json over the spec file": (
-        ["estimate", "{data}", "--spec", "{spec}", "--json", "{spec}"],
-        r"--json '.*panel\.toml' is the same file as the input --spec",
-    ),
-    "estimate --json and --latex on one file": (
-        ["estimate", "{data}", "--spec", "{spec}", "--json", "{tmp}/out.txt", "--latex", "{tmp}/out.txt"],
-        r"--latex '.*out\.txt' is the same file as --json '.*out\.txt'; one would overwrite the other",
-    ),
-    "compare --html is a folder": (
-        ["compare", "{data}", "--spec", "{spec}", "--html", "{tmp}"],
-        r"--html '.*' is a folder",
-    ),
-    "report --out a folder named .html": (
-        ["report", "{data}", "--spec", "{spec}", "--out", "{tmp}/sub.html"],
-        r"--out '.*sub\.html' is a folder",
-    ),
-    "montecarlo --replications over the summary CSV": (
-        ["montecarlo", "ebike", "--reps", "2", "--out", "{tmp}/a.json", "--replications", "{tmp}/a.csv"],
-        r"--replications '.*a\.csv' is the same file as the summary CSV written beside --out",
-    ),
-    "montecarlo --plot over --out": (
-        ["montecarlo", "ebike", "--reps", "2", "--out", "{tmp}/a.json", "--plot", "{tmp}/a.json"],
-        r"--plot '.*a\.json' is the same file as --out",
-    ),
-    "montecarlo --reps beyond the ceiling": (
-        ["montecarlo", "ebike", "--reps", "10000000", "--out", "{tmp}/a.json"],
-        r"--reps 10,000,000 exceeds the ceiling of 100,000 replications per run",
-    ),
-    "simulate --out below a file": (
-        ["simulate", "ebike", "--out", "{data}/sim.csv"],
-        r"--out '.*sim\.csv' cannot be created: '.*panel\.csv' is a file, not a folder",
-    ),
-    "a .csv.gz data file that is not gzip": (
-        ["estimate", "{tmp}/plain.csv.gz", "--spec", "{spec}"],
-        r"could not read CSV file '.*plain\.csv\.gz': .*is the file really compressed that way",
-    ),
+    "estimate --json is a folder": ([*EST, "--json", "{tmp}"],
+                                    r"--json '.*' is a folder; give a file name inside it"),
+    "estimate --latex a system file that refuses writes": ([*EST, "--latex", "/proc/version"],
+                                    r"--latex '/proc/version' cannot be written \(.+\); choose another path"),
+    "estimate --json below a file": ([*EST, "--json", "{data}/res.json"],
+                                    r"--json '.*res\.json' cannot be created: '.*panel\.csv' is a file, not a folder"),
+    "estimate --json over the data file": ([*EST, "--json", "{data}"],
+                                    r"--json '.*panel\.csv' is the same file as the input data file"),
+    "estimate --json over the spec file": ([*EST, "--json", "{spec}"],
+                                    r"--json '.*panel\.toml' is the same file as the input --spec"),
+    "estimate --json and --latex on one file": ([*EST, "--json", "{tmp}/out.txt", "--latex", "{tmp}/out.txt"],
+                                    r"--latex '.*out\.txt' is the same file as --json '.*out\.txt'; one would overwrite the other"),
+    "compare --html is a folder": (["compare", *EST[1:], "--html", "{tmp}"],
+                                    r"--html '.*' is a folder"),
+    "report --out a folder named .html": (["report", *EST[1:], "--out", "{tmp}/sub.html"],
+                                    r"--out '.*sub\.html' is a folder"),
+    "montecarlo --replications over the summary CSV": ([*MC, "--replications", "{tmp}/a.csv"],
+                                    r"--replications '.*a\.csv' is the same file as the summary CSV written beside --out"),
+    "montecarlo --plot over --out": ([*MC, "--plot", "{tmp}/a.json"],
+                                    r"--plot '.*a\.json' is the same file as --out"),
+    "montecarlo --reps beyond the ceiling": (["montecarlo", "ebike", "--reps", "10000000", "--out", "{tmp}/a.json"],
+                                    r"--reps 10,000,000 exceeds the ceiling of 100,000 replications per run"),
+    "simulate --out below a file": (["simulate", "ebike", "--out", "{data}/sim.csv"],
+                                    r"--out '.*sim\.csv' cannot be created: '.*panel\.csv' is a file, not a folder"),
+    "a .csv.gz data file that is not gzip": (["estimate", "{tmp}/plain.csv.gz", "--spec", "{spec}"],
+                                    r"could not read CSV file '.*plain\.csv\.gz': .*is the file really compressed that way"),
 }
 
 
