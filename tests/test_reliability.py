@@ -487,6 +487,8 @@ OUTPUT_CASES: dict[str, tuple[list[str], str]] = {
                                     r"--json '.*panel\.toml' is the same file as the input --spec"),
     "estimate --json and --latex on one file": ([*EST, "--json", "{tmp}/out.txt", "--latex", "{tmp}/out.txt"],
                                     r"--latex '.*out\.txt' is the same file as --json '.*out\.txt'; one would overwrite the other"),
+    "estimate --json and --latex both on stdout": ([*EST, "--json", "-", "--latex", "-"],
+                                    r"--json - and --latex - both write to stdout"),
     "compare --html is a folder": (["compare", *EST[1:], "--html", "{tmp}"],
                                     r"--html '.*' is a folder"),
     "report --out a folder named .html": (["report", *EST[1:], "--out", "{tmp}/sub.html"],

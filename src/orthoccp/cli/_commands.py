@@ -143,6 +143,11 @@ def _read_inputs(
 
 def _cmd_estimate(args: argparse.Namespace) -> int:
     progress = _Progress()
+    if args.json == "-" and args.latex == "-":
+        raise oc.InputError(
+            "--json - and --latex - both write to stdout, where the JSON document must stand "
+            "alone; write one of them to a file."
+        )
     json_path = _output_path("--json", args.json)
     latex_path = _output_path("--latex", args.latex)
     check_outputs({"--json": json_path, "--latex": latex_path})  # before reading anything
