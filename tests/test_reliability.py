@@ -145,6 +145,7 @@ class Case:
     cli_match: str | None = None
     api: bool = True
     call: str = "estimate"  # or "fold_stability" (API only)
+    after: Callable[[oc.Results], Any] | None = None  # a call on the results (API only)
 
 
 def _doc_from(case: Case) -> dict[str, Any]:
@@ -419,6 +420,56 @@ BAD: dict[str, Case] = {
 }
 
 
+def _identifier_state(d: pd.DataFrame) -> pd.DataFrame:
+    """Three copies of the panel (1,080 rows), with a text state that differs in every row."""
+    d = pd.concat([d.assign(bike=d["bike"] + 1000 * k) for k in range(3)], ignore_index=True)
+    return d.assign(x0=[f"r{i:04d}" for i in range(len(d))])
+
+
+def _classifier() -> Any:
+    from sklearn.linear_model import LogisticRegression
+
+    return LogisticRegression()
+
+
+# Issue 21 (round two), items 7, 8: sizes, option types, calls on the results.
+BAD |= {
+    "persistent None": Case(
+        r"persistent must be a list of state names \(e\.g\. persistent=\['x0'\]; \[\] for none\), "
+        r"got NoneType None", model={"persistent": None}, cli=False,  # TOML has no null
+    ),
+    "persistent a number": Case(
+        r"persistent must be a list of state names .*got int 5", model={"persistent": 5},
+        cli_match=r"model\.persistent must be an array of strings, got 5 \(integer\)",
+    ),
+    "persistent holding a number": Case(
+        r"persistent must list state names as strings, got 5 \(int\)", model={"persistent": ["x0", 5]},
+        cli_match=r"model\.persistent must be an array of non-empty strings; element 5",
+    ),
+    "classifier as the regressor": Case(
+        r"regressor LogisticRegression is a classifier; the regressor must be a regressor with "
+        r"fit/predict for continuous targets", options={"regressor": _classifier()}, cli=False,
+    ),
+    "text state with a value per row": Case(
+        r"state column 'x0' has 1,080 distinct text or categorical values, which would become "
+        r"1,080 indicator columns \(the limit is 1,000\)", frame=_identifier_state,
+    ),
+    "conf_int level as text": Case(
+        r"level must be a number in \(0, 1\) such as 0\.95, got '0\.9' \(str\)",
+        after=lambda res: res.conf_int(level="0.9"), cli=False,
+    ),
+    "conf_int level None": Case(
+        r"level must be a number in \(0, 1\) such as 0\.95, got None \(NoneType\)",
+        after=lambda res: res.conf_int(level=None), cli=False,
+    ),
+    "summary level 95": Case(r"level must be a number in \(0, 1\)", after=lambda res: res.summary(95), cli=False),
+    "write_report to a folder": Case(
+        r"path '\.' is a folder; give a file name inside it", after=lambda res: oc.write_report(res, "."),
+        cli=False,
+    ),
+}
+
+
 def _api_call(case: Case) -> None:
     frame = case.frame(base())
     panel_kw = dict(unit="bike", period="week", choice="action", states=list(STATES))
@@ -431,7 +482,9 @@ def _api_call(case: Case) -> None:
         warnings.simplefilter("ignore")
         panel = oc.Panel(frame, **panel_kw)
         model = oc.Model(**model_kw)
-        getattr(oc, case.call)(panel, model, **options)
+        res = getattr(oc, case.call)(panel, model, **options)
+    if case.after is not None:
+        case.after(res)
 
 
 API_CASES = [(k, c) for k, c in BAD.items() if c.api]
@@ -576,6 +629,143 @@ def test_discrete_estimator_message_names_what_a_spec_can_do(tmp_path: Path, cap
                       r"column 'neg_mileage_k' gives no value at the \d+ of 175 states that no row "
                       r"occupies\. Use a state column itself as the regressor \('mileage'.*"
                       r"theta11 = \"mileage\" under \[utility\.keep\]")
+
+
+# --------------------------------------------------------------------------- outputs before the work
+class _WorkStarted(Exception):
+    """Raised by the stand-ins of the estimators: the command started work before failing."""
+
+
+def _no_work(*args: Any, **kwargs: Any) -> Any:
+    raise _WorkStarted("the estimation started before the outputs were checked")
+
+
+# (arguments after the files are written, the error the command must print). In the arguments,
+# {data}, {spec} and {tmp} name the data file, the spec file and the test's folder.
+EST = ["estimate", "{data}", "--spec", "{spec}"]
+MC = ["montecarlo", "ebike", "--reps", "2", "--out", "{tmp}/a.json"]
+OUTPUT_CASES: dict[str, tuple[list[str], str]] = {
+    "estimate --json is a folder": ([*EST, "--json", "{tmp}"],
+                                    r"--json '.*' is a folder; give a file name inside it"),
+    "estimate --latex a system file that refuses writes": ([*EST, "--latex", "/proc/version"],
+                                    r"--latex '/proc/version' cannot be written \(.+\); choose another path"),
+    "estimate --json below a file": ([*EST, "--json", "{data}/res.json"],
+                                    r"--json '.*res\.json' cannot be created: '.*panel\.csv' is a file, not a folder"),
+    "estimate --json over the data file": ([*EST, "--json", "{data}"],
+                                    r"--json '.*panel\.csv' is the same file as the input data file"),
+    "estimate --json over the spec file": ([*EST, "--json", "{spec}"],
+                                    r"--json '.*panel\.toml' is the same file as the input --spec"),
+    "estimate --json and --latex on one file": ([*EST, "--json", "{tmp}/out.txt", "--latex", "{tmp}/out.txt"],
+                                    r"--latex '.*out\.txt' is the same file as --json '.*out\.txt'; one would overwrite the other"),
+    "estimate --json and --latex both on stdout": ([*EST, "--json", "-", "--latex", "-"],
+                                    r"--json - and --latex - both write to stdout"),
+    "compare --html is a folder": (["compare", *EST[1:], "--html", "{tmp}"],
+                                    r"--html '.*' is a folder"),
+    "report --out a folder named .html": (["report", *EST[1:], "--out", "{tmp}/sub.html"],
+                                    r"--out '.*sub\.html' is a folder"),
+    "montecarlo --replications over the summary CSV": ([*MC, "--replications", "{tmp}/a.csv"],
+                                    r"--replications '.*a\.csv' is the same file as the summary CSV written beside --out"),
+    "montecarlo --plot over --out": ([*MC, "--plot", "{tmp}/a.json"],
+                                    r"--plot '.*a\.json' is the same file as --out"),
+    "montecarlo --reps beyond the ceiling": (["montecarlo", "ebike", "--reps", "10000000", "--out", "{tmp}/a.json"],
+                                    r"--reps 10,000,000 exceeds the ceiling of 100,000 replications per run"),
+    "simulate --out below a file": (["simulate", "ebike", "--out", "{data}/sim.csv"],
+                                    r"--out '.*sim\.csv' cannot be created: '.*panel\.csv' is a file, not a folder"),
+    "a .csv.gz data file that is not gzip": (["estimate", "{tmp}/plain.csv.gz", "--spec", "{spec}"],
+                                    r"could not read CSV file '.*plain\.csv\.gz': .*is the file really compressed that way"),
+}
+
+
+@pytest.mark.parametrize(("argv", "fragment"), list(OUTPUT_CASES.values()), ids=list(OUTPUT_CASES))
+def test_outputs_checked_before_any_work(
+    argv: list[str], fragment: str, tmp_path: Path, capsys: pytest.CaptureFixture[str],
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """Issue 21, items 5 and 6: a bad output path fails before any estimation, naming the path."""
+    import orthoccp.montecarlo
+    import orthoccp.simulate
+
+    if "/proc/version" in argv and not Path("/proc/version").is_file():
+        pytest.skip("no /proc/version on this system")
+    for module, name in ((oc, "estimate"), (oc, "compare"), (oc, "estimate_discrete"),
+                         (orthoccp.montecarlo, "run_montecarlo"), (orthoccp.simulate, "simulate")):
+        monkeypatch.setattr(module, name, _no_work)
+    data, spec = tmp_path / "panel.csv", tmp_path / "panel.toml"
+    base().to_csv(data, index=False)
+    base().to_csv(tmp_path / "plain.csv.gz", index=False, compression=None)
+    write_spec(spec, base_doc())
+    (tmp_path / "sub.html").mkdir()
+    names = {"data": str(data), "spec": str(spec), "tmp": str(tmp_path)}
+    assert main([a.format(**names) for a in argv]) == 2
+    captured = capsys.readouterr()
+    assert_error_line(captured.err, fragment)
+    assert not (tmp_path / "a.json").exists() and not (tmp_path / "out.txt").exists()
+
+
+def test_io_errors_while_writing_name_the_file(tmp_path: Path) -> None:
+    """An OSError without a file name (a device that refuses writes: errno 5) gets the path."""
+    from orthoccp._outputs import writing
+
+    target = tmp_path / "res.json"
+    with pytest.raises(OSError) as info:
+        with writing(target):
+            raise OSError(5, "Input/output error")
+    assert info.value.errno == 5 and info.value.filename == str(target)
+    assert "could not write the file (Input/output error)" in str(info.value)
+    with pytest.raises(oc.InputError, match=r"could not write '.*res\.json': Not a gzipped file"):
+        with writing(target):
+            raise OSError("Not a gzipped file")
+
+
+def test_ctrl_c_while_the_command_starts(monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+    """Issue 21, item 8: Ctrl-C while the package is imported exits 130 with one line."""
+    import importlib
+
+    import orthoccp_entry
+
+    def interrupted(name: str) -> Any:
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(importlib, "import_module", interrupted)
+    assert orthoccp_entry.main(["--version"]) == 130
+    assert capsys.readouterr().err == "orthoccp: interrupted\n"
+
+
+def test_ctrl_c_in_a_running_command_process(tmp_path: Path) -> None:
+    """A real SIGINT 0.3 s after start (usually during the imports): exit 130, no traceback."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    if not hasattr(signal, "SIGINT") or sys.platform == "win32":
+        pytest.skip("POSIX signals only")
+    argv = ["montecarlo", "ebike", "--reps", "50", "--units", "200", "--out", "mc.json"]
+    code = f"import sys, orthoccp_entry; sys.exit(orthoccp_entry.main({argv!r}))"
+    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, cwd=tmp_path)
+    time.sleep(0.3)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err and err.strip().splitlines()[-1] == "orthoccp: interrupted"
+
+
+def test_many_indicator_columns_warn_with_the_column_and_count() -> None:
+    """Issue 21, item 7: above 50 indicator columns a text state warns (error above 1,000)."""
+    frame = base().assign(x0=lambda d: [f"s{i % 60}" for i in range(len(d))])
+    with pytest.warns(oc.OrthoCCPWarning, match=r"state column 'x0' becomes 60 indicator columns, one "
+                                                 r"per distinct value \(more than 50\)"):
+        oc.Panel(frame, unit="bike", period="week", choice="action", states=STATES)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        oc.Panel(base().assign(x0=lambda d: [f"s{i % 50}" for i in range(len(d))]),
+                 unit="bike", period="week", choice="action", states=STATES)
+
+
+def test_montecarlo_reps_ceiling_in_the_api() -> None:
+    with pytest.raises(oc.InputError, match=r"reps 10,000,000 exceeds the ceiling of 100,000"):
+        oc.run_montecarlo("ebike", reps=10_000_000, units=60, periods=4)
 
 
 # --------------------------------------------------------------------------- nothing lost silently

@@ -18,6 +18,7 @@ from .data import Panel
 from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
 from .backends import FeatureRows, resolve_backend
+from .checks import warn_if_not_persistent, warn_if_not_reset
 from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
 from .model import BoundModel, Model
@@ -261,7 +262,8 @@ def estimate(
     fcols = persistent_feature_columns(bound) if robust else None
     plan = plan_robust(bound) if robust else None
     if robust:
-        _warn_if_not_persistent(bound)
+        warn_if_not_persistent(bound)
+    warn_if_not_reset(bound)
     if nuisances is not None:
         splits = 1
     thetas, covs, influences, decomps, plugins = [], [], [], [], []
@@ -563,17 +565,3 @@ def _raise_if_reset(bound: BoundModel, exc: EstimationError) -> None:
             f"singular Jacobian). Remove {col!r} from persistent (declare only the states a "
             f"renewal carries through) or use moments='standard'."
         ) from exc
-
-
-def _warn_if_not_persistent(bound: BoundModel) -> None:
-    """Warn when a declared persistent state changes right after a renewal."""
-    changed_after, n = _changed_after_renewal(bound)
-    for col, changed in changed_after.items():
-        if changed:
-            warnings.warn(
-                f"persistent state {col!r} changes right after a renewal in {changed} of "
-                f"{n} renewal rows; the renewal-robust moments assume a renewal does not "
-                f"reset it. Remove it from persistent or use moments='standard'.",
-                OrthoCCPWarning,
-                stacklevel=3,
-            )

@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 
 from ._errors import InputError
+from ._outputs import writing
 from .compare import Comparison
 from .results import Results
 
@@ -38,7 +39,8 @@ def _save(fig: Any, path: str | Path | None) -> Any:
         p = Path(path)
         if p.suffix.lower() not in (".png", ".svg", ".pdf"):
             raise InputError(f"figure path {str(p)!r} must end in .png, .svg or .pdf.")
-        fig.savefig(p, dpi=200, bbox_inches="tight")
+        with writing(p):
+            fig.savefig(p, dpi=200, bbox_inches="tight")
     return fig
 
 

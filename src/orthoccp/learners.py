@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from sklearn.base import clone
+from sklearn.base import clone, is_classifier
 
 from ._errors import InputError
 
@@ -72,28 +72,41 @@ def _lightgbm_smooth() -> tuple[Any, Any]:
     return LGBMClassifier(**smooth), LGBMRegressor(**_lgbm_common())
 
 
-def _logit() -> tuple[Any, Any]:
-    from sklearn.linear_model import LinearRegression, LogisticRegression
+def _standardised(est: Any) -> Any:
+    """``est`` behind a :class:`~sklearn.preprocessing.StandardScaler` (a two-step pipeline).
+
+    Linear learners see every feature with mean 0 and variance 1, so the scale of a state
+    (revenue in dollars, an int64 identifier near 5e18) cannot push the other features below
+    the solvers' numerical cut-offs: without it, a state around 5e9 left the least-squares
+    continuation regressions rank-deficient and moved the estimates by several standard
+    errors. Rescaling a state leaves the fits unchanged (``tests/test_learners.py``). Sample
+    weights go to the last step (``nuisance._fit_weighted``); the scaler is unweighted, which
+    changes nothing but the rounding, as a linear fit is invariant to an affine map of a
+    feature.
+    """
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
 
+    return make_pipeline(StandardScaler(), est)
+
+
+def _logit() -> tuple[Any, Any]:
+    from sklearn.linear_model import LinearRegression, LogisticRegression
+
     return (
-        make_pipeline(StandardScaler(), LogisticRegression(C=1e6, max_iter=5000)),
-        LinearRegression(),
+        _standardised(LogisticRegression(C=1e6, max_iter=5000)),
+        _standardised(LinearRegression()),
     )
 
 
 def _lasso_logit() -> tuple[Any, Any]:
     from sklearn.linear_model import LassoCV, LogisticRegression
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
 
     return (
-        make_pipeline(
-            StandardScaler(),
-            LogisticRegression(l1_ratio=1.0, C=0.5, solver="saga", max_iter=2000, tol=1e-3),
+        _standardised(
+            LogisticRegression(l1_ratio=1.0, C=0.5, solver="saga", max_iter=2000, tol=1e-3)
         ),
-        make_pipeline(StandardScaler(), LassoCV(cv=3)),
+        _standardised(LassoCV(cv=3)),
     )
 
 
@@ -221,6 +234,14 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
     else:
         _check_methods(regressor, "regressor", ("fit", "predict", "get_params"),
                        "it must be a scikit-learn-style regressor")
+        if is_classifier(regressor):
+            raise InputError(
+                f"regressor {_describe(regressor)} is a classifier; the regressor must be a "
+                f"regressor with fit/predict for continuous targets (the continuation "
+                f"regressions predict ln P_R and utility columns), e.g. "
+                f"regressor=LinearRegression() or regressor='lightgbm'. Pass a classifier "
+                f"as learner=."
+            )
         reg = regressor
         reg_name = _describe(regressor)
     return LearnerPair(classifier=clf, regressor=reg, name=name, regressor_name=reg_name)

@@ -18,6 +18,7 @@ import pandas as pd
 from ._errors import InputError
 from .data import Panel
 from .spec import data_format
+from .spec._data import read_csv_named
 
 __all__ = ["read_columns", "read_panel", "release_arrow_memory"]
 
@@ -30,10 +31,7 @@ def _file_columns(path: Path, fmt: str) -> list[str]:
             return list(pq.read_schema(path).names)
         except (OSError, ValueError) as exc:  # pyarrow's errors derive from these
             raise InputError(f"could not read Parquet file {str(path)!r}: {exc}") from exc
-    try:
-        return [str(c) for c in pd.read_csv(path, nrows=0).columns]
-    except (pd.errors.EmptyDataError, pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise InputError(f"could not read the header of CSV file {str(path)!r}: {exc}") from exc
+    return [str(c) for c in read_csv_named(path, nrows=0).columns]
 
 
 def read_columns(path: str | os.PathLike[str], columns: Sequence[str]) -> pd.DataFrame:
@@ -79,7 +77,7 @@ def read_columns(path: str | os.PathLike[str], columns: Sequence[str]) -> pd.Dat
         frame = table.to_pandas(self_destruct=True, split_blocks=True)
         del table
     else:
-        frame = pd.read_csv(p, usecols=wanted)
+        frame = read_csv_named(p, usecols=wanted)
     return frame[wanted]
 
 

@@ -123,10 +123,7 @@ class Model:
                     )
         if not self.parameters:
             raise InputError("utility declares no parameters.")
-        persistent = self.persistent
-        if isinstance(persistent, str):
-            persistent = (persistent,)
-        object.__setattr__(self, "persistent", tuple(persistent))
+        object.__setattr__(self, "persistent", _persistent_names(self.persistent))
 
     @property
     def parameters(self) -> tuple[str, ...]:
@@ -164,6 +161,24 @@ def check_constant_name(columns: Any, where: str) -> None:
             f"from the constant {CONSTANT!r}; rename that column (e.g. df.rename(columns="
             f"{{'1': 'x1'}})) and use the new name where you mean the column."
         )
+
+
+def _persistent_names(value: Any) -> tuple[str, ...]:
+    """``persistent=`` as a tuple of state names (a single name is accepted too)."""
+    if isinstance(value, str):
+        return (value,)
+    if value is None or isinstance(value, Mapping) or not isinstance(value, (Sequence, set, frozenset)):
+        raise InputError(
+            f"persistent must be a list of state names (e.g. persistent=['x0']; [] for none), "
+            f"got {type(value).__name__} {value!r}."
+        )
+    bad = [v for v in value if not isinstance(v, str) or not v]
+    if bad:
+        raise InputError(
+            f"persistent must list state names as strings, got {bad[0]!r} "
+            f"({type(bad[0]).__name__}) in {list(value)!r}."
+        )
+    return tuple(value)
 
 
 @dataclass(frozen=True, eq=False)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import base64
 import html
 import io
+import os
 from collections.abc import Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -19,6 +20,7 @@ import pandas as pd
 
 from . import figures
 from ._errors import InputError
+from ._outputs import check_output, writing
 from ._version import __version__
 from .compare import Comparison
 from .results import ASSUMPTIONS, Results
@@ -153,11 +155,18 @@ def write_report(
     stability: Mapping[str, FoldStability] | None = None,
     truth: Mapping[str, float] | None = None,
 ) -> Path:
-    """Write :func:`render_report` to ``path`` (a single results object is accepted too)."""
+    """Write :func:`render_report` to ``path`` (a single results object is accepted too).
+
+    ``path`` is checked before the report is drawn (not a folder, writable); an I/O error
+    names it.
+    """
     if isinstance(comparison, Results):
         comparison = Comparison(results={comparison.learner: comparison}, baseline=comparison.learner)
-    p = Path(path)
-    p.write_text(
-        render_report(comparison, title=title, stability=stability, truth=truth), encoding="utf-8"
-    )
+    if not isinstance(path, (str, os.PathLike)):
+        raise InputError(f"path must be a file name such as 'report.html', got {path!r}.")
+    p = check_output(path, option="path")
+    text = render_report(comparison, title=title, stability=stability, truth=truth)
+    with writing(p):
+        p.parent.mkdir(parents=True, exist_ok=True)
+        p.write_text(text, encoding="utf-8")
     return p

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ._errors import InputError
 from ._labels import show_label
 
 __all__ = ["Results", "RowAccounting", "NotApplicable", "ASSUMPTIONS"]
@@ -214,8 +215,12 @@ class Results:
 
     def conf_int(self, level: float = 0.95) -> pd.DataFrame:
         """Normal-approximation confidence intervals with columns ``lower`` and ``upper``."""
-        if not 0 < level < 1:
-            raise ValueError(f"level must be in (0, 1), got {level!r}.")
+        if (isinstance(level, (bool, np.bool_)) or not isinstance(level, (int, float, np.integer, np.floating))
+                or not 0 < level < 1):
+            raise InputError(
+                f"level must be a number in (0, 1) such as 0.95, got {level!r} "
+                f"({type(level).__name__})."
+            )
         z = stats.norm.ppf(0.5 + level / 2)
         return pd.DataFrame(
             {"lower": self.params - z * self.std_errors, "upper": self.params + z * self.std_errors}

@@ -62,8 +62,17 @@ def main(argv: Sequence[str] | None = None) -> int:
     -------
     int
         Exit code: 0 success, 2 usage or input error, 1 estimation failure or unexpected
-        error.
+        error, 130 after Ctrl-C (at any point; the ``orthoccp`` command also catches it
+        while the package is still being imported, see :mod:`orthoccp_entry`).
     """
+    try:
+        return _main(argv)
+    except KeyboardInterrupt:
+        print(f"{PROG}: interrupted", file=sys.stderr)
+        return 130
+
+
+def _main(argv: Sequence[str] | None) -> int:
     args_list = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
     try:

@@ -12,6 +12,7 @@ import pandas as pd
 
 import orthoccp as oc
 
+from .._outputs import check_outputs
 from ..spec import (
     Spec,
     SpecError,
@@ -109,8 +110,14 @@ def _read_spec(args: argparse.Namespace, progress: _Progress, **overrides: Any) 
     return spec.with_options(folds=args.folds, seed=args.seed, **overrides)
 
 
-def _load_panel(args: argparse.Namespace, spec: Spec, progress: _Progress) -> tuple[Path, oc.Panel]:
+def _load_panel(
+    args: argparse.Namespace, spec: Spec, progress: _Progress,
+    outputs: dict[str, Path | None] | None = None,
+) -> tuple[Path, oc.Panel]:
+    """The data file and its panel; ``outputs`` are checked first (writable, distinct from
+    each other and from the data and spec files), before the data are read."""
     data_path = spec.data_path(args.data)
+    check_outputs(outputs or {}, inputs={"data file": data_path, "--spec": args.spec})
     progress.stage(f"reading the data {data_path}")
     frame = spec.load_data(args.data)
     progress.stage(f"checking {len(frame)} rows against the spec")
@@ -118,27 +125,36 @@ def _load_panel(args: argparse.Namespace, spec: Spec, progress: _Progress) -> tu
 
 
 def _read_inputs(
-    args: argparse.Namespace, progress: _Progress, **overrides: Any
+    args: argparse.Namespace, progress: _Progress, outputs: dict[str, Path | None],
+    **overrides: Any,
 ) -> tuple[Path, oc.Panel, oc.Model, dict[str, Any]]:
-    """Spec (with command-line overrides), data, panel, model and the estimate options."""
+    """Spec (with command-line overrides), data, panel, model and the estimate options;
+    ``outputs`` checked before the data are read (:func:`_load_panel`)."""
     spec = _read_spec(args, progress, **overrides)
     if spec.estimator.discrete:
         raise oc.InputError(
             f"this command runs the orthogonal estimator; the spec selects estimator.method = "
             f"{spec.estimator.method!r}. Use 'orthoccp estimate' for it."
         )
-    data_path, panel = _load_panel(args, spec, progress)
+    data_path, panel = _load_panel(args, spec, progress, outputs)
     model = spec.build_model(panel)
     return data_path, panel, model, spec.estimate_options()
 
 
 def _cmd_estimate(args: argparse.Namespace) -> int:
     progress = _Progress()
+    if args.json == "-" and args.latex == "-":
+        raise oc.InputError(
+            "--json - and --latex - both write to stdout, where the JSON document must stand "
+            "alone; write one of them to a file."
+        )
     json_path = _output_path("--json", args.json)
     latex_path = _output_path("--latex", args.latex)
+    check_outputs({"--json": json_path, "--latex": latex_path})  # before reading anything
     overrides = dict(learner=args.learner, debias=False if args.naive else None)
     spec = _read_spec(args, progress, **overrides)
-    data_path, panel = _load_panel(args, spec, progress)
+    data_path, panel = _load_panel(args, spec, progress,
+                                   {"--json": json_path, "--latex": latex_path})
     if spec.estimator.discrete:
         progress.stage(f"estimating by {spec.estimator.method.upper()} on the discrete states")
         res: oc.Results = oc.estimate_discrete(
@@ -187,9 +203,10 @@ def _first_stages(args: argparse.Namespace, options: dict[str, Any]) -> dict[str
 
 
 def _run_comparison(
-    args: argparse.Namespace, progress: _Progress
+    args: argparse.Namespace, progress: _Progress, outputs: dict[str, Path | None]
 ) -> tuple[Path, oc.Panel, oc.Model, dict[str, Any], oc.Comparison]:
-    data_path, panel, model, options = _read_inputs(args, progress)
+    check_outputs(outputs)  # before reading anything; again with the inputs below
+    data_path, panel, model, options = _read_inputs(args, progress, outputs)
     if options.pop("debias", True) is False:
         raise oc.InputError(
             "the spec sets inference.debias = false; compare and report run debiased "
@@ -215,7 +232,7 @@ def _cmd_compare(args: argparse.Namespace) -> int:
         "--latex": _output_path("--latex", args.latex),
         "--html": _output_path("--html", args.html),
     }
-    data_path, _, _, _, cmp = _run_comparison(args, progress)
+    data_path, _, _, _, cmp = _run_comparison(args, progress, outputs)
     print(cmp.summary())
     doc = {
         "inputs": {"data": str(data_path), "spec": str(args.spec)},
@@ -253,8 +270,6 @@ def _cmd_report(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.suffix.lower() not in (".html", ".htm"):
         raise oc.InputError(f"--out {args.out!r} must be an .html file name.")
-    if out.is_dir():
-        raise oc.InputError(f"--out {args.out!r} is a folder; give a file name such as report.html.")
     try:
         import matplotlib  # noqa: F401
     except ImportError as exc:
@@ -262,7 +277,7 @@ def _cmd_report(args: argparse.Namespace) -> int:
             "the report's figures need matplotlib, an optional dependency: pip install "
             "'orthoccp[plot]' (or pip install matplotlib)."
         ) from exc
-    _, panel, model, options, cmp = _run_comparison(args, progress)
+    _, panel, model, options, cmp = _run_comparison(args, progress, {"--out": out})
     stability = {}
     if args.stability:
         for label in cmp.results:
@@ -287,9 +302,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     progress = _Progress()
     out = Path(args.out)
     data_format(out, writing=True)
-    if out.is_dir():
-        raise oc.InputError(f"--out {args.out!r} is a folder; give a file name such as panel.csv.")
     spec_path = data_stem(out).with_suffix(".toml")
+    check_outputs({"--out": out, "the spec file written beside --out": spec_path})
     progress.stage(f"simulating {args.scenario!r}: {args.units} units x {args.periods} periods")
     sim = simulate(
         args.scenario,
@@ -449,30 +463,22 @@ def _estimator_list(text: str) -> tuple[str, ...]:
     return names
 
 
-def _file_option(option: str, value: str | None) -> Path | None:
-    """A file-name option (no '-' for stdout), checked before the run."""
-    if value is None:
-        return None
-    p = Path(value)
-    if p.is_dir():
-        raise oc.InputError(f"{option} {value!r} is a folder; give a file name.")
-    return p
-
-
 def _cmd_montecarlo(args: argparse.Namespace) -> int:
     from ..montecarlo import run_montecarlo
+    from ..montecarlo._settings import check_reps
 
+    check_reps(args.reps, name="--reps")
     out = Path(args.out)
     if out.suffix.lower() != ".json":
         raise oc.InputError(
             f"--out {args.out!r} must be a .json file name (the summary CSV is written beside "
             f"it with the extension .csv)."
         )
-    if out.is_dir():
-        raise oc.InputError(f"--out {args.out!r} is a folder; give a file name such as mc.json.")
     csv_path = out.with_suffix(".csv")
-    raw_path = _file_option("--replications", args.replications)
-    plot_path = _file_option("--plot", args.plot)
+    raw_path = None if args.replications is None else Path(args.replications)
+    plot_path = None if args.plot is None else Path(args.plot)
+    check_outputs({"--out": out, "the summary CSV written beside --out": csv_path,
+                   "--replications": raw_path, "--plot": plot_path})
     if plot_path is not None:
         # Fail now rather than after a long run.
         try:

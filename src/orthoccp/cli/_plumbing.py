@@ -18,6 +18,8 @@ import numpy as np
 
 import orthoccp as oc
 
+from .._outputs import writing
+
 PROG = "orthoccp"
 DEMO_SCENARIO = "ebike"
 DEMO_FOLDER = "orthoccp-demo"
@@ -130,18 +132,20 @@ def _display_path(path: Path) -> str:
 
 
 def _output_path(option: str, value: str | None) -> Path | None:
-    """Check an output option before the (possibly long) estimation runs."""
+    """An output option as a path (``None`` for no file or ``-``, stdout).
+
+    The paths are checked together by :func:`orthoccp._outputs.check_outputs` before the
+    (possibly long) estimation runs.
+    """
     if value is None or value == "-":
         return None
-    p = Path(value)
-    if p.is_dir():
-        raise oc.InputError(f"{option} {value!r} is a folder; give a file name.")
-    return p
+    return Path(value)
 
 
 def _write_text(path: Path, text: str) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(text, encoding="utf-8")
+    with writing(path):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(text, encoding="utf-8")
 
 
 # --------------------------------------------------------------------------- JSON

@@ -16,6 +16,7 @@ import pandas as pd
 from scipy import stats
 
 from .._errors import InputError
+from .._outputs import writing
 from .._version import __version__
 from ._settings import (
     ESTIMATOR_LABELS,
@@ -275,9 +276,10 @@ class MonteCarloResults:
         pathlib.Path
         """
         p = Path(path)
-        p.parent.mkdir(parents=True, exist_ok=True)
         text = json.dumps(self.to_dict(replications=replications), indent=1, allow_nan=False)
-        p.write_text(text + "\n", encoding="utf-8")
+        with writing(p):
+            p.parent.mkdir(parents=True, exist_ok=True)
+            p.write_text(text + "\n", encoding="utf-8")
         return p
 
     @classmethod
@@ -311,8 +313,9 @@ class MonteCarloResults:
             raise InputError(f"which must be 'summary' or 'replications', got {which!r}.")
         frame = self.summary if which == "summary" else self.replications
         p = Path(path)
-        p.parent.mkdir(parents=True, exist_ok=True)
-        frame.to_csv(p, index=False)
+        with writing(p):
+            p.parent.mkdir(parents=True, exist_ok=True)
+            frame.to_csv(p, index=False)
         return p
 
     def table(self) -> str:
@@ -425,8 +428,9 @@ class MonteCarloResults:
             fontsize=10,
         )
         p = Path(path)
-        p.parent.mkdir(parents=True, exist_ok=True)
-        fig.savefig(p, dpi=dpi, format="png")
+        with writing(p):
+            p.parent.mkdir(parents=True, exist_ok=True)
+            fig.savefig(p, dpi=dpi, format="png")
         return p
 
     # ----------------------------------------------------------------- combining

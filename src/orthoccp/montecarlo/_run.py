@@ -12,7 +12,13 @@ from typing import Any, TextIO
 from .._errors import InputError
 from ._replicate import run_replication
 from ._results import MonteCarloResults, _replications_frame
-from ._settings import DEFAULT_ESTIMATORS, MonteCarloSettings, _check_settings, _integer
+from ._settings import (
+    DEFAULT_ESTIMATORS,
+    MonteCarloSettings,
+    _check_settings,
+    _integer,
+    check_reps,
+)
 
 
 # --------------------------------------------------------------------------- progress
@@ -189,12 +195,12 @@ def run_montecarlo(
         n_covariates=n_covariates,
         model_ccp_steps=model_ccp_steps,
     )
-    reps = _integer("reps", reps, minimum=1)
+    reps = check_reps(reps)
     first_rep = _integer("first_rep", first_rep, minimum=0)
     workers = _workers(jobs)
     _check_settings(settings)
     t0 = time.perf_counter()
-    indices = list(range(first_rep, first_rep + reps))
+    indices = range(first_rep, first_rep + reps)
     counter = _Counter(len(indices), enabled=progress)
     records: list[dict[str, Any]] = []
     try:

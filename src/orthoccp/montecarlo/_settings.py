@@ -77,6 +77,10 @@ SUMMARY_COLUMNS: tuple[str, ...] = (
 )
 """Columns of :attr:`MonteCarloResults.summary`."""
 
+MAX_REPS = 100_000
+"""Most replications one run takes: at a second each (the fastest design) that is more than a
+day; a longer study runs in parts (``first_rep``) joined by :meth:`MonteCarloResults.concat`."""
+
 _MOMENTS = ("standard", "renewal_robust")
 # Which estimators solve the corrected moment, and which use the simulator's exact nuisances.
 _CORRECTED = frozenset({"debiased", "oracle_debiased"})
@@ -179,6 +183,21 @@ def _integer(name: str, value: object, *, minimum: int) -> int:
     if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < minimum:
         raise InputError(f"{name} must be an integer >= {minimum}, got {value!r}.")
     return int(value)
+
+
+def check_reps(reps: object, *, name: str = "reps") -> int:
+    """``reps`` as an int in 1..:data:`MAX_REPS`, checked before anything is built.
+
+    ``name`` is the option in the message (``"--reps"`` on the command line).
+    """
+    n = _integer(name, reps, minimum=1)
+    if n > MAX_REPS:
+        raise InputError(
+            f"{name} {n:,} exceeds the ceiling of {MAX_REPS:,} replications per run (at a "
+            f"second each, more than a day); use fewer, or run the study in parts "
+            f"(run_montecarlo(first_rep=...)) and join them with MonteCarloResults.concat."
+        )
+    return n
 
 
 def _check_settings(settings: MonteCarloSettings) -> None:

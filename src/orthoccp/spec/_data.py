@@ -93,15 +93,36 @@ def read_data(path: str | os.PathLike[str]) -> pd.DataFrame:
             return pd.read_parquet(p, engine="pyarrow")
         except (OSError, ValueError) as exc:
             raise InputError(f"could not read Parquet file {str(p)!r}: {exc}") from exc
+    return read_csv_named(p)
+
+
+def read_csv_named(path: Path, **options: Any) -> pd.DataFrame:
+    """``pandas.read_csv`` whose every failure is an InputError naming the file.
+
+    Covers an empty file, broken quoting, text that is not UTF-8 and a compressed extension
+    (``.csv.gz``, ``.bz2``, ``.xz``, ``.zip``) on a file that is not compressed that way.
+    """
+    import lzma
+    import zipfile
+    import zlib
+
+    p = str(path)
     try:
-        return pd.read_csv(p)
+        return pd.read_csv(path, **options)
     except pd.errors.EmptyDataError as exc:
-        raise InputError(f"data file {str(p)!r} is empty (no columns to read).") from exc
+        raise InputError(f"data file {p!r} is empty (no columns to read).") from exc
     except pd.errors.ParserError as exc:
-        raise InputError(f"could not parse CSV file {str(p)!r}: {exc}") from exc
+        raise InputError(f"could not parse CSV file {p!r}: {exc}") from exc
     except UnicodeDecodeError as exc:
+        raise InputError(f"could not read CSV file {p!r}: not UTF-8 text ({exc.reason}).") from exc
+    except (EOFError, lzma.LZMAError, zipfile.BadZipFile, zlib.error, OSError) as exc:
+        if isinstance(exc, OSError) and exc.errno is not None:
+            raise InputError(f"could not read CSV file {p!r}: {exc.strerror}.") from exc
+        compressed = Path(p).suffix.lower() in (".gz", ".bz2", ".xz", ".zip")
+        hint = (f" The extension {Path(p).suffix!r} says compressed: is the file really "
+                f"compressed that way? Rename a plain CSV file to .csv." if compressed else "")
         raise InputError(
-            f"could not read CSV file {str(p)!r}: not UTF-8 text ({exc.reason})."
+            f"could not read CSV file {p!r}: {exc or type(exc).__name__}.{hint}"
         ) from exc
 
 
@@ -120,12 +141,15 @@ def write_data(frame: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
     pathlib.Path
         The written file.
     """
+    from .._outputs import writing
+
     p = Path(path)
     fmt = data_format(p, writing=True)
-    p.parent.mkdir(parents=True, exist_ok=True)
-    if fmt == "parquet":
-        frame.to_parquet(p, engine="pyarrow", index=False)
-    else:
-        frame.to_csv(p, index=False)
+    with writing(p):
+        p.parent.mkdir(parents=True, exist_ok=True)
+        if fmt == "parquet":
+            frame.to_parquet(p, engine="pyarrow", index=False)
+        else:
+            frame.to_csv(p, index=False)
     return p
 

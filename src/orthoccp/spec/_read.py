@@ -9,6 +9,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
+from .._outputs import writing
 from ..covariance import covariance_names
 from ..learners import learner_names
 from ._check import (
@@ -346,6 +347,7 @@ def write_spec(
     p = Path(path)
     document = spec.to_dict(relative_to=p.parent) if isinstance(spec, Spec) else spec
     text = dumps_toml(document, header=header)
-    p.parent.mkdir(parents=True, exist_ok=True)
-    p.write_text(text, encoding="utf-8")
+    with writing(p):
+        p.parent.mkdir(parents=True, exist_ok=True)
+        p.write_text(text, encoding="utf-8")
     return p
