@@ -7,7 +7,7 @@ parameters) and the bookkeeping the moments need.
 
 from __future__ import annotations
 
-from collections.abc import Hashable, Mapping
+from collections.abc import Hashable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
