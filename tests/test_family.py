@@ -12,13 +12,8 @@ from _support import assert_bellman_fixed_point, dense, expect, row_flow
 
 import orthoccp as oc
 from orthoccp.simulate import EULER_GAMMA, Simulation, family_design, family_id, simulate
-from orthoccp.simulate._family import (
-    CALIBRATION_TOL,
-    MAX_SOLVED_STATES,
-    _cached_design,
-    _draw,
-    _option,
-)
+from orthoccp.simulate._design import CALIBRATION_TOL, MAX_SOLVED_STATES
+from orthoccp.simulate._family import _cached_design, _draw, _option
 
 SEEDS = tuple(range(1, 11))
 

@@ -16,7 +16,8 @@ share; :meth:`FamilyDesign.simulate` (or :func:`simulate` with an id such as ``"
 its panels.
 """
 
-from ._family import FamilyDesign, family_design, family_id, is_family_id
+from ._design import FamilyDesign
+from ._family import family_design, family_id, is_family_id
 from ._simulation import Simulation, scenario_names, simulate
 from ._solve import EULER_GAMMA
 
