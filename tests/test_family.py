@@ -14,6 +14,7 @@ import orthoccp as oc
 from orthoccp.simulate import EULER_GAMMA, Simulation, family_design, family_id, simulate
 from orthoccp.simulate._design import CALIBRATION_TOL, MAX_SOLVED_STATES
 from orthoccp.simulate._family import _cached_design, _draw, _option
+from orthoccp.simulate._solve import solve
 
 SEEDS = tuple(range(1, 11))
 
@@ -244,14 +245,39 @@ def test_calibration_of_the_anchor_after_a_renewal() -> None:
         family_design(2, kind="renewal", anchor_share=1e-15)
 
 
+@pytest.mark.parametrize(
+    ("seed", "targets"),
+    [
+        (1, {"stay": 0.8, "invest": 0.1, "shrink": 0.06, "exit": 0.04}),
+        (20, {"keep": 0.85, "repair": 0.1, "replace": 0.05}),
+    ],
+)
+def test_calibration_hits_every_choice_share(seed: int, targets: dict) -> None:
+    design = family_design(seed, choice_shares=targets, n_states=10, n_exogenous=0)
+    reached = design.calibration["shares"]
+    for label, share in targets.items():
+        assert abs(reached[label] - share) <= CALIBRATION_TOL, (label, reached[label])
+    # The reached shares are the design's own exact expectation on the calibration sample.
+    exact = design.expected_shares(solve(design.exact_model(design._calibration_covariates())))
+    for label in targets:
+        assert abs(exact[label] - targets[label]) <= CALIBRATION_TOL
+    with pytest.raises(oc.InputError, match="must give a share for each of"):
+        family_design(seed, choice_shares={"keep": 1.0})
+    with pytest.raises(oc.InputError, match="give one share target"):
+        family_design(seed, choice_shares=targets, anchor_share=0.1)
+
+
 # ---------------------------------------------------------------------------
 # Oracle: the exact nuisances recover the truth (METHOD section 7.2)
 # ---------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("seed", [2, 3])
-def test_oracle_within_three_se(seed: int) -> None:
+@pytest.mark.parametrize(("seed", "kind"), [(3, "terminal"), (9, "renewal")])
+def test_oracle_within_three_se(seed: int, kind: str) -> None:
+    # F03: terminal with an exogenous chain and a scrap value; F09: renewal with an exogenous
+    # chain in the utility.
     design = family_design(seed)
+    assert design.kind == kind and design.exo_levels
     sim = design.simulate(units=2000, periods=10, seed=5)
     panel, model = sim.panel(), sim.model()
     assert model.persistent == design.persistent
@@ -260,3 +286,21 @@ def test_oracle_within_three_se(seed: int) -> None:
     z = (res.params - truth) / res.std_errors
     assert np.all(np.abs(z) < 3), z
     assert set(res.params.index) == set(sim.truth)
+
+
+# ---------------------------------------------------------------------------
+# The Monte Carlo harness takes a family id
+# ---------------------------------------------------------------------------
+
+
+def test_montecarlo_replicates_a_family_design() -> None:
+    from orthoccp.montecarlo import run_montecarlo
+
+    design = family_design(4)
+    mc = run_montecarlo("F04", reps=1, units=100, periods=5, learner="logit", folds=3,
+                        estimators=("oracle",))
+    assert mc.truth == dict(design.truth)
+    assert set(mc.summary["parameter"]) == set(design.truth)
+    assert mc.failures["oracle"] == 0
+    with pytest.raises(oc.InputError, match="n_covariates=5 does not apply"):
+        run_montecarlo("F04", reps=1, units=100, periods=5, n_covariates=5)

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import itertools
 import numbers
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 from typing import Any
@@ -241,7 +242,7 @@ class FamilyDesign:
         share = self.calibration.get("achieved")
         target = self.calibration.get("target", "anchor_share")
         rare = "" if share is None else (
-            f", {'anchor share' if target == 'anchor_share' else 'P(anchor) after renewal'} "
+            f", {'P(anchor) after renewal' if target == 'anchor_after_renewal' else 'anchor share'} "
             f"{share:.3f}"
         )
         extra = f", scrap value exp(0.4 {self.resale_source})" if self.kind == "terminal" else ""
@@ -498,19 +499,15 @@ class FamilyDesign:
             )
         if isinstance(value, bool) or not isinstance(value, numbers.Real) or not 0 < value < 1:
             raise InputError(f"{target} must be a share in (0, 1); got {value!r}")
-        X = self._calibration_covariates()
-        transitions = self._transitions(X)
-        cols = self.grid_columns(X)
         sign = 1.0 if self.kind == "renewal" else -1.0
         name = self.anchor_constant
         key = self.anchor if target == "anchor_share" else "anchor_after_renewal"
+        shares = self._calibration_shares()
 
         def reached(c: float) -> float:
             truth = dict(self.truth)
             truth[name] = sign * c
-            model = Model(flow=self._flow(X, truth, cols), transitions=transitions,
-                          discount=self.discount, anchor=len(self.choices) - 1, kind=self.kind)
-            return self.expected_shares(solve(model, tol=1e-10))[key]
+            return shares(truth)[key]
 
         lo, hi = _CAL_BRACKET
         f_lo, f_hi = reached(lo) - value, reached(hi) - value
@@ -531,6 +528,94 @@ class FamilyDesign:
             truth=MappingProxyType(truth),
             calibration=MappingProxyType(
                 {"target": target, "value": float(value), "achieved": float(achieved)}
+            ),
+        )
+
+    def _calibration_shares(self) -> Callable[[Mapping[str, float]], dict[str, float]]:
+        """``truth -> expected_shares`` on the fixed calibration sample."""
+        X = self._calibration_covariates()
+        transitions = self._transitions(X)
+        cols = self.grid_columns(X)
+
+        def shares(truth: Mapping[str, float]) -> dict[str, float]:
+            model = Model(flow=self._flow(X, truth, cols), transitions=transitions,
+                          discount=self.discount, anchor=len(self.choices) - 1, kind=self.kind)
+            return self.expected_shares(solve(model, tol=1e-10))
+
+        return shares
+
+    def calibrate_shares(self, shares: Mapping[str, float], *, max_iter: int = 200
+                         ) -> FamilyDesign:
+        """The design with its choice constants set so that the expected choice shares hit
+        ``shares``.
+
+        Each choice but the first (``keep`` or ``stay``, whose flow has no constant of its own)
+        has one constant that moves its log-odds against the first: its own cost (renewal;
+        ``invest_cost``, ``shrink_gain``), or minus the fixed cost for ``exit``. The constants
+        are updated together by the log-odds gap, ``c_j += ln(target_j / share_j) -
+        ln(target_0 / share_0)``, until every share is within :data:`CALIBRATION_TOL`.
+
+        Parameters
+        ----------
+        shares : mapping
+            Choice label -> target expected share of rows; every choice, summing to one.
+        max_iter : int, default=200
+            Most updates.
+
+        Returns
+        -------
+        FamilyDesign
+            A copy with the calibrated truth; ``calibration`` records the targets, the shares
+            reached (``shares``) and the anchor's (``achieved``).
+
+        Raises
+        ------
+        orthoccp.InputError
+            For missing or unknown choices, shares outside (0, 1) or not summing to one, or
+            targets the iteration does not reach.
+        """
+        if not isinstance(shares, Mapping) or set(shares) != set(self.choices):
+            raise InputError(
+                f"choice_shares must give a share for each of {list(self.choices)}; got "
+                f"{shares!r}."
+            )
+        target: dict[str, float] = {}
+        for label in self.choices:
+            v = shares[label]
+            if isinstance(v, bool) or not isinstance(v, numbers.Real) or not 0 < v < 1:
+                raise InputError(f"choice_shares[{label!r}] must be in (0, 1); got {v!r}")
+            target[label] = float(v)
+        if abs(sum(target.values()) - 1.0) > 1e-9:
+            raise InputError(f"choice_shares must sum to one; they sum to {sum(target.values())}")
+        levers = {label: (f"{label}_cost", 1.0) for label in self.choices[1:]}
+        if self.kind == "terminal":
+            levers = {label: (f"{label}_cost" if label == "invest" else f"{label}_gain", 1.0)
+                      for label in self.choices[1:-1]}
+            levers[self.anchor] = ("fixed_cost", -1.0)
+        expected = self._calibration_shares()
+        truth = dict(self.truth)
+        base = self.choices[0]
+        for _ in range(max_iter):
+            now = expected(truth)
+            gap = max(abs(now[c] - target[c]) for c in self.choices)
+            if gap <= CALIBRATION_TOL:
+                break
+            shift = np.log(target[base] / now[base])
+            for label, (param, sign) in levers.items():
+                step = np.log(target[label] / now[label]) - shift
+                truth[param] += sign * float(np.clip(step, -3.0, 3.0))
+        else:
+            raise InputError(
+                f"choice_shares {target} are out of reach for design {self.id} after "
+                f"{max_iter} updates (last shares {now}); choose shares nearer the design's."
+            )
+        return replace(
+            self,
+            truth=MappingProxyType(truth),
+            calibration=MappingProxyType(
+                {"target": "choice_shares", "value": MappingProxyType(target),
+                 "achieved": float(now[self.anchor]),
+                 "shares": MappingProxyType({c: float(now[c]) for c in self.choices})}
             ),
         )
 

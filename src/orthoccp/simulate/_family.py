@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import numbers
 import re
+from collections.abc import Mapping
 from dataclasses import replace
 from functools import lru_cache
 from types import MappingProxyType
@@ -215,6 +216,7 @@ def family_design(
     discount: float | None = None,
     anchor_share: float | None = None,
     anchor_after_renewal: float | None = None,
+    choice_shares: Mapping[str, float] | None = None,
 ) -> FamilyDesign:
     """A design of the family, drawn from its seed and calibrated.
 
@@ -248,6 +250,9 @@ def family_design(
     anchor_after_renewal : float, optional
         Target mean anchor probability just after a renewal (renewal designs; replaces the
         share target).
+    choice_shares : mapping, optional
+        Target expected share of every choice (label -> share, summing to one); replaces the
+        share target (:meth:`FamilyDesign.calibrate_shares`).
 
     Returns
     -------
@@ -270,7 +275,7 @@ def family_design(
         "kind": kind, "n_choices": n_choices, "units": units, "periods": periods,
         "n_states": n_states, "n_covariates": n_covariates, "n_exogenous": n_exogenous,
         "discount": discount, "anchor_share": anchor_share,
-        "anchor_after_renewal": anchor_after_renewal,
+        "anchor_after_renewal": anchor_after_renewal, "choice_shares": choice_shares,
     }
     if kind is not None and kind not in ("renewal", "terminal"):
         raise InputError(f"kind must be 'renewal' or 'terminal'; got {kind!r}")
@@ -283,22 +288,35 @@ def family_design(
         n_exogenous=_option("n_exogenous", n_exogenous, 0, 2, integer=True),
         discount=_option("discount", discount, 0.0, 0.99, integer=False),
     )
-    if anchor_share is not None and anchor_after_renewal is not None:
-        raise InputError("give anchor_share or anchor_after_renewal, not both.")
+    given = [n for n, v in (("anchor_share", anchor_share),
+                            ("anchor_after_renewal", anchor_after_renewal),
+                            ("choice_shares", choice_shares)) if v is not None]
+    if len(given) > 1:
+        raise InputError(f"give one share target, not {' and '.join(given)}.")
+    if choice_shares is not None and not isinstance(choice_shares, Mapping):
+        raise InputError(
+            f"choice_shares must map each choice label to a share; got {choice_shares!r}."
+        )
+    frozen_shares = None if choice_shares is None else tuple(sorted(
+        (str(k), v) for k, v in dict(choice_shares).items()
+    ))
     tuned = any(v is not None for v in targets.values())
     return _cached_design(seed, kind, tuple(sorted(checked.items())), anchor_share,
-                          anchor_after_renewal, tuned)
+                          anchor_after_renewal, frozen_shares, tuned)
 
 
 @lru_cache(maxsize=64)
 def _cached_design(seed: int, kind: str | None, checked: tuple[tuple[str, Any], ...],
                    anchor_share: float | None, anchor_after_renewal: float | None,
+                   choice_shares: tuple[tuple[str, Any], ...] | None,
                    tuned: bool) -> FamilyDesign:
     base, drawn_share = _draw(seed, kind=kind, **dict(checked))
     if tuned:
         base = replace(base, id=base.id + "*")
     if anchor_after_renewal is not None:
         return base.calibrate(target="anchor_after_renewal", value=anchor_after_renewal)
+    if choice_shares is not None:
+        return base.calibrate_shares(dict(choice_shares))
     return base.calibrate(
         target="anchor_share", value=drawn_share if anchor_share is None else anchor_share
     )
