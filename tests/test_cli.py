@@ -172,6 +172,24 @@ def test_no_command_and_usage_errors(capsys: pytest.CaptureFixture[str]) -> None
 
 
 # --------------------------------------------------------------------------- simulate + estimate
+def test_simulate_takes_a_family_design_id(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from orthoccp.simulate import family_design
+
+    data = tmp_path / "f04.csv"
+    assert main(["simulate", "F04", "--units", "60", "--seed", "2", "--out", str(data)]) == 0
+    out = capsys.readouterr().out
+    design = family_design("F04")
+    assert f"design: {design.description}" in out
+    doc = tomllib.loads(data.with_suffix(".toml").read_text())
+    assert doc["model"]["discount"] == design.discount
+    assert doc["model"]["persistent"] == list(design.persistent)
+    frame = pd.read_csv(data)
+    assert frame[design.unit].nunique() == 60
+    assert frame.groupby(design.unit).size().max() == design.periods  # the design's own T
+    assert main(["simulate", "G4", "--out", str(data)]) == 2
+    assert "or a family design id such as 'F07'" in capsys.readouterr().err
+
+
 def test_simulate_then_estimate_subprocess(tmp_path: Path) -> None:
     data = tmp_path / "out" / "bikes.csv"
     sim = run_cli(

@@ -13,6 +13,8 @@ from hypothesis import strategies as st
 from scipy import stats
 from scipy.special import logsumexp
 
+from _support import assert_bellman_fixed_point, dense, expect, row_flow
+
 from orthoccp.simulate import EULER_GAMMA, Simulation, scenario_names, simulate
 from orthoccp.simulate._scenarios import SCENARIOS, draw_covariates, wear_rate
 from orthoccp.simulate._solve import Model, Transition, bellman, solve
@@ -32,11 +34,6 @@ def medium() -> dict[str, Simulation]:
     return {name: simulate(name, units=2000, periods=12, seed=0) for name in NAMES}
 
 
-def dense(sim: Simulation) -> list[np.ndarray | None]:
-    """Dense per-choice transition matrices, each ``(N, S, S)`` (None for a terminal choice)."""
-    return [None if tr is None else tr.matrix() for tr in sim.solution.model.transitions]
-
-
 def level_flow(sim: Simulation) -> np.ndarray:
     """``z_j(x)'theta`` at every main-state level, built from ``utility`` and ``truth``."""
     scenario = SCENARIOS[sim.scenario]
@@ -46,21 +43,6 @@ def level_flow(sim: Simulation) -> np.ndarray:
         for param, column in sim.utility[label].items():
             flow[:, j] += sim.truth[param] * (1.0 if column == "1" else columns[column])
     return flow
-
-
-def row_flow(sim: Simulation) -> np.ndarray:
-    """``z_j(x)'theta`` at every data row, built from the data columns."""
-    flow = np.zeros((len(sim.data), len(sim.choices)))
-    for j, label in enumerate(sim.choices):
-        for param, column in sim.utility[label].items():
-            regressor = 1.0 if column == "1" else sim.data[column].to_numpy(dtype=float)
-            flow[:, j] += sim.truth[param] * regressor
-    return flow
-
-
-def expect(T: np.ndarray, f: np.ndarray) -> np.ndarray:
-    """Dense ``E[f(x') | x]`` for every unit and state: ``T (N, S, S)``, ``f (N, S)``."""
-    return np.einsum("nst,nt->ns", T, f)
 
 
 # ---------------------------------------------------------------------------
@@ -74,14 +56,8 @@ def test_bellman_fixed_point(small: dict[str, Simulation], name: str) -> None:
     # V = ln sum_j exp(u_j + beta E[V' | x, j]) + gamma_E; checked with dense matrices.
     sim = small[name]
     sol = sim.solution
-    assert sol.change < 1e-12
     np.testing.assert_allclose(sol.model.flow, np.broadcast_to(level_flow(sim), sol.values.shape))
-    v = sol.model.flow.copy()
-    for j, T in enumerate(dense(sim)):
-        if T is not None:
-            v[:, :, j] += sim.discount * expect(T, sol.V)
-    np.testing.assert_allclose(v, sol.values, rtol=0, atol=1e-10)
-    np.testing.assert_allclose(logsumexp(v, axis=2) + EULER_GAMMA, sol.V, rtol=0, atol=1e-10)
+    assert_bellman_fixed_point(sim)
 
 
 @pytest.mark.parametrize("name", NAMES)

@@ -304,7 +304,11 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     data_format(out, writing=True)
     spec_path = data_stem(out).with_suffix(".toml")
     check_outputs({"--out": out, "the spec file written beside --out": spec_path})
-    progress.stage(f"simulating {args.scenario!r}: {args.units} units x {args.periods} periods")
+    size = (
+        f"{'default' if args.units is None else args.units} units x "
+        f"{'default' if args.periods is None else args.periods} periods"
+    )
+    progress.stage(f"simulating {args.scenario!r}: {size}")
     sim = simulate(
         args.scenario,
         units=args.units,
@@ -320,11 +324,14 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     )
     write_spec(spec_path, document, header=_truth_header(sim, command="simulate"))
     truth = ", ".join(f"{k} {v:g}" for k, v in sim.truth.items())
-    print(f"wrote {out} ({len(sim.data)} rows, {args.units} units) and {spec_path}")
+    n_units = int(sim.data[sim.unit].nunique())
+    print(f"wrote {out} ({len(sim.data)} rows, {n_units} units) and {spec_path}")
     print(
         f"scenario {args.scenario!r}: {sim.kind} model, anchor {sim.anchor!r}, discount "
         f"{sim.discount:g}; true parameters: {truth}"
     )
+    if sim.description:
+        print(f"design: {sim.description}")
     print(f"estimate with: {_rerun_command(out, spec_path)}")
     return 0
 
@@ -489,11 +496,20 @@ def _cmd_montecarlo(args: argparse.Namespace) -> int:
                 "'orthoccp[plot]' (or pip install matplotlib), or leave out --plot."
             ) from exc
     moments = None if args.moments == "auto" else args.moments
+    units, periods = args.units, args.periods
+    if units is None or periods is None:
+        from ..simulate import family_design, is_family_id
+
+        design = family_design(args.scenario) if is_family_id(args.scenario) else None
+        if units is None:
+            units = 1000 if design is None else design.units
+        if periods is None:
+            periods = 12 if design is None else design.periods
     mc = run_montecarlo(
         args.scenario,
         reps=args.reps,
-        units=args.units,
-        periods=args.periods,
+        units=units,
+        periods=periods,
         learner=args.learner,
         folds=args.folds,
         seed=args.seed,

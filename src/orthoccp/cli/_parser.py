@@ -50,6 +50,7 @@ _SIMULATE_EPILOG = """\
 examples:
   orthoccp simulate ebike --units 1000 --periods 12 --seed 0 --out panel.csv
   orthoccp simulate producers --units 500 --out data/producers.parquet   # needs pyarrow
+  orthoccp simulate F07 --seed 1 --out f07.csv    # family design F07 at its own N and T
   orthoccp estimate panel.csv --spec panel.toml
 
 Writes the panel (CSV or Parquet, by the extension of --out) and a spec file beside it
@@ -117,6 +118,18 @@ summary CSV (one row per estimator and parameter) beside it with the extension .
 Replication r's seeds depend on --seed and r only, so --jobs does not change the numbers;
 learners run single-threaded in each worker. Failed estimates are counted, not dropped.
 """
+
+
+def _scenario_name(value: str) -> str:
+    """A built-in scenario name or a family design id (``F`` and the design seed)."""
+    from ..simulate import is_family_id, scenario_names
+
+    if value in scenario_names() or is_family_id(value):
+        return value
+    raise argparse.ArgumentTypeError(
+        f"invalid choice: {value!r} (choose from {', '.join(map(repr, scenario_names()))}, or "
+        f"a family design id such as 'F07')"
+    )
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -202,13 +215,24 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=_Formatter,
     )
     simulate.add_argument(
-        "scenario", metavar="SCENARIO", choices=scenarios, help="one of: " + ", ".join(scenarios)
+        "scenario",
+        metavar="SCENARIO",
+        type=_scenario_name,
+        help="one of: " + ", ".join(scenarios) + ", or a family design id such as F07",
     )
     simulate.add_argument(
-        "--units", type=int, default=1000, metavar="N", help="units (default: 1000)"
+        "--units",
+        type=int,
+        default=None,
+        metavar="N",
+        help="units (default: 1000; a family design's own N)",
     )
     simulate.add_argument(
-        "--periods", type=int, default=12, metavar="T", help="periods (default: 12)"
+        "--periods",
+        type=int,
+        default=None,
+        metavar="T",
+        help="periods (default: 12; a family design's own T)",
     )
     simulate.add_argument(
         "--seed",
@@ -355,7 +379,10 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=_Formatter,
     )
     mc.add_argument(
-        "scenario", metavar="SCENARIO", choices=scenarios, help="one of: " + ", ".join(scenarios)
+        "scenario",
+        metavar="SCENARIO",
+        type=_scenario_name,
+        help="one of: " + ", ".join(scenarios) + ", or a family design id such as F07",
     )
     mc.add_argument(
         "--reps", type=int, default=100, metavar="R", help="replications (default: 100)"
@@ -363,12 +390,16 @@ def build_parser() -> argparse.ArgumentParser:
     mc.add_argument(
         "--units",
         type=int,
-        default=1000,
+        default=None,
         metavar="N",
-        help="units per replication (default: 1000)",
+        help="units per replication (default: 1000; a family design's own N)",
     )
     mc.add_argument(
-        "--periods", type=int, default=12, metavar="T", help="periods per unit (default: 12)"
+        "--periods",
+        type=int,
+        default=None,
+        metavar="T",
+        help="periods per unit (default: 12; a family design's own T)",
     )
     mc.add_argument(
         "--learner",

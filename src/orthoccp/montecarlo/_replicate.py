@@ -13,7 +13,6 @@ from ..data import Panel
 from ..estimate import estimate
 from ..learners import resolve_learners
 from ..model import Model
-from ..nuisance import nuisances_from_truth
 from ._settings import _CATCH, _CORRECTED, _EXACT, _SEED_BOUND, MonteCarloSettings
 
 
@@ -147,24 +146,13 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
         seed=sim_seed,
         n_covariates=settings.n_covariates,
     )
-    panel = Panel(
-        sim.data, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states)
-    )
-    model = Model(
-        anchor=sim.anchor,
-        kind=sim.kind,  # type: ignore[arg-type]
-        discount=sim.discount,
-        utility=dict(sim.utility),  # type: ignore[arg-type]
-        persistent=tuple(sim.persistent or ()),
-    )
+    panel = sim.panel()
+    model = sim.model()
     pair = resolve_learners(settings.learner)
     learners = (_single_threaded(pair.classifier), _single_threaded(pair.regressor))
     oracle = None
     if _EXACT.intersection(settings.estimators):
-        order = [list(sim.choices).index(c) for c in panel.choices]
-        oracle = nuisances_from_truth(
-            model.bind(panel), sim.ccp[:, order], sim.continuation[:, order]
-        )
+        oracle = sim.exact_nuisances(panel, model)
     records: list[dict[str, Any]] = []
     nan = float("nan")
     for name in settings.estimators:

@@ -109,7 +109,9 @@ def run_montecarlo(
     Parameters
     ----------
     scenario : str
-        Built-in scenario: ``"ebike"``, ``"ebike3"`` (renewal) or ``"producers"`` (terminal).
+        Built-in scenario: ``"ebike"``, ``"ebike3"`` (renewal) or ``"producers"`` (terminal);
+        or a family design id such as ``"F07"`` (:func:`orthoccp.simulate.family_design`),
+        whose discount and covariates the design fixes (leave ``n_covariates`` out).
     reps : int
         Number of replications.
     units, periods : int

@@ -97,7 +97,8 @@ class MonteCarloSettings:
     Attributes
     ----------
     scenario : str
-        Built-in scenario (:func:`orthoccp.simulate.scenario_names`).
+        Built-in scenario (:func:`orthoccp.simulate.scenario_names`) or family design id
+        (``"F07"``, :func:`orthoccp.simulate.family_design`).
     units, periods : int
         Panel size of every replication.
     learner : str
@@ -202,12 +203,17 @@ def check_reps(reps: object, *, name: str = "reps") -> int:
 
 def _check_settings(settings: MonteCarloSettings) -> None:
     """Reject a configuration that would make every replication fail, before any runs."""
-    from ..simulate import scenario_names, simulate
+    from ..simulate import is_family_id, scenario_names, simulate
 
     names = scenario_names()
-    if not isinstance(settings.scenario, str) or settings.scenario not in names:
+    if not is_family_id(settings.scenario) and (
+        not isinstance(settings.scenario, str) or settings.scenario not in names
+    ):
         valid = ", ".join(repr(n) for n in names)
-        raise InputError(f"unknown scenario {settings.scenario!r}; valid scenarios are {valid}.")
+        raise InputError(
+            f"unknown scenario {settings.scenario!r}; valid scenarios are {valid}, or a family "
+            f"design id such as 'F07'."
+        )
     folds = _integer("folds", settings.folds, minimum=2)
     if folds < 3:
         raise InputError(

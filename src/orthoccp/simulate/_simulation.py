@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 import numbers
+from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -12,6 +13,11 @@ import pandas as pd
 from .._errors import InputError
 from ._scenarios import SCENARIOS, Scenario, draw_covariates
 from ._solve import Solution, solve
+
+if TYPE_CHECKING:
+    from ..data import Panel
+    from ..model import Model as EstimationModel
+    from ..nuisance import Nuisances
 
 __all__ = ["Simulation", "scenario_names", "simulate"]
 
@@ -69,6 +75,12 @@ class Simulation:
         Internal: row -> main-state level.
     covariates : numpy.ndarray
         Internal: covariates of every unit, shape ``(units, n_covariates)``.
+    description : str
+        One-line description of the scenario or family design.
+    grid_columns : Mapping
+        Internal: utility data columns at every unit and solved state, each shaped like
+        ``solution.V``; needed by :meth:`exact_nuisances` for the anchor's non-constant
+        columns (empty for the built-in scenarios, whose anchors have none).
     """
 
     data: pd.DataFrame
@@ -92,6 +104,8 @@ class Simulation:
     unit_index: np.ndarray = field(repr=False)
     state_index: np.ndarray = field(repr=False)
     covariates: np.ndarray = field(repr=False)
+    description: str = ""
+    grid_columns: Mapping[str, np.ndarray] = field(default_factory=dict, repr=False)
 
     def __repr__(self) -> str:
         n_units = int(self.data[self.unit].nunique())
@@ -100,6 +114,74 @@ class Simulation:
             f"units={n_units}, choices={self.choices!r}, anchor={self.anchor!r}, "
             f"kind={self.kind!r}, discount={self.discount!r})"
         )
+
+    def panel(self) -> Panel:
+        """The data as a :class:`orthoccp.Panel` with the simulation's columns.
+
+        Returns
+        -------
+        orthoccp.Panel
+        """
+        from ..data import Panel
+
+        return Panel(self.data, unit=self.unit, period=self.period, choice=self.choice,
+                     states=list(self.states))
+
+    def model(self) -> EstimationModel:
+        """The :class:`orthoccp.Model` to estimate: utility, anchor, kind, discount and the
+        persistent states.
+
+        Returns
+        -------
+        orthoccp.Model
+        """
+        from ..model import Model
+
+        return Model(anchor=self.anchor, kind=self.kind,  # type: ignore[arg-type]
+                     discount=self.discount, utility=dict(self.utility),  # type: ignore[arg-type]
+                     persistent=tuple(self.persistent or ()))
+
+    def exact_nuisances(self, panel: Panel | None = None,
+                        model: EstimationModel | None = None) -> Nuisances:
+        """The exact CCPs and continuation terms as nuisances for ``estimate(nuisances=)``.
+
+        Parameters
+        ----------
+        panel : orthoccp.Panel, optional
+            The panel built from :attr:`data` (:meth:`panel` when omitted); its rows must be
+            the simulation's rows in the same order.
+        model : orthoccp.Model, optional
+            :meth:`model` when omitted.
+
+        Returns
+        -------
+        orthoccp.nuisance.Nuisances
+            In the panel's choice order (:func:`orthoccp.nuisances_from_truth`).
+        """
+        from ..nuisance import nuisances_from_truth
+
+        panel = self.panel() if panel is None else panel
+        model = self.model() if model is None else model
+        bound = model.bind(panel)
+        order = [list(self.choices).index(c) for c in panel.choices]
+        # The continuation target q = (z_R data columns, ln P_R), each E[. | x, j] exactly.
+        anchor_spec = self.utility[self.anchor]
+        targets = []
+        for k in bound.zR_params:
+            column = anchor_spec[bound.parameters[int(k)]]
+            if column not in self.grid_columns:
+                raise InputError(
+                    f"the anchor's utility column {column!r} has no exact values on the "
+                    f"solved grid of scenario {self.scenario!r}; exact nuisances need them."
+                )
+            grid = np.asarray(self.grid_columns[column], dtype=float)
+            expected = np.full(self.ccp.shape, np.nan)
+            for j, tr in enumerate(self.solution.model.transitions):
+                if tr is not None:
+                    expected[:, j] = tr.expect(grid)[self.unit_index, self.state_index]
+            targets.append(expected[:, order])
+        mu = np.stack([*targets, self.continuation[:, order]], axis=2)
+        return nuisances_from_truth(bound, self.ccp[:, order], mu)
 
     def spec(self) -> dict[str, Any]:
         """The model specification as plain Python types.
@@ -186,11 +268,49 @@ def _step(
     return chosen, nxt, alive
 
 
+def _record(
+    rng: np.random.Generator,
+    solution: Solution,
+    state: np.ndarray,
+    *,
+    periods: int,
+    burn_in: int,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Simulate every unit from ``state`` (one solved-state index per unit): ``burn_in``
+    unrecorded periods, then up to ``periods`` recorded ones (a terminal choice ends a unit).
+
+    Returns the rows' unit, period, solved state and choice index, sorted by unit and period.
+    """
+    unit_ids = np.arange(state.shape[0])
+    for _ in range(burn_in):
+        _, state, _ = _step(rng, solution, unit_ids, state)
+    rec_unit, rec_period, rec_state, rec_choice = [], [], [], []
+    active = unit_ids
+    for t in range(periods):
+        chosen, nxt, alive = _step(rng, solution, active, state)
+        rec_unit.append(active)
+        rec_period.append(np.full(active.shape[0], t))
+        rec_state.append(state)
+        rec_choice.append(chosen)
+        active, state = active[alive], nxt[alive]
+        if active.size == 0:
+            break
+    row_unit = np.concatenate(rec_unit)
+    row_period = np.concatenate(rec_period)
+    order = np.lexsort((row_period, row_unit))
+    return (
+        row_unit[order],
+        row_period[order],
+        np.concatenate(rec_state)[order],
+        np.concatenate(rec_choice)[order],
+    )
+
+
 def simulate(
     scenario: str,
     *,
-    units: int = 1000,
-    periods: int = 12,
+    units: int | None = None,
+    periods: int | None = None,
     seed: int = 0,
     discount: float | None = None,
     n_covariates: int | None = None,
@@ -223,14 +343,19 @@ def simulate(
         in the level.  Initial demand is uniform on 5..14; an exiting
         producer has no further rows.
 
+    A family design id such as ``"F07"`` (:func:`orthoccp.simulate.family_design`) draws a
+    panel from that design instead, at the design's size unless ``units`` or ``periods`` are
+    given; the design fixes its discount and covariates.
+
     Parameters
     ----------
     scenario : str
-        Scenario name.
-    units : int, default 1000
-        Number of units.
-    periods : int, default 12
-        Number of recorded periods (a terminal unit may have fewer rows).
+        Scenario name, or a family design id ``"F<seed>"``.
+    units : int, optional
+        Number of units: 1000 for a scenario, the design's for a family design.
+    periods : int, optional
+        Number of recorded periods (a terminal unit may have fewer rows): 12 for a scenario,
+        the design's for a family design.
     seed : int, default 0
         Seed for :func:`numpy.random.default_rng`; the only source of randomness.
     discount : float, optional
@@ -250,12 +375,26 @@ def simulate(
         (a :class:`ValueError`) for an unknown scenario or an option of the
         wrong type or out of range; the message names the option and value.
     """
+    from ._family import family_design, is_family_id
+
+    if is_family_id(scenario):
+        for name, value in (("discount", discount), ("n_covariates", n_covariates)):
+            if value is not None:
+                raise InputError(
+                    f"{name}={value!r} does not apply to the family design {scenario!r}, which "
+                    f"fixes it; leave it out, or build a calibrated variant with "
+                    f"orthoccp.simulate.family_design({scenario!r}, {name}=...)."
+                )
+        return family_design(scenario).simulate(units=units, periods=periods, seed=seed)
     if not isinstance(scenario, str) or scenario not in SCENARIOS:
         valid = ", ".join(repr(name) for name in SCENARIOS)
-        raise InputError(f"unknown scenario {scenario!r}; valid scenarios are {valid}")
+        raise InputError(
+            f"unknown scenario {scenario!r}; valid scenarios are {valid}, or a family design "
+            f"id such as 'F07'"
+        )
     spec: Scenario = SCENARIOS[scenario]
-    units = _count("units", units, minimum=1)
-    periods = _count("periods", periods, minimum=1)
+    units = _count("units", 1000 if units is None else units, minimum=1)
+    periods = _count("periods", 12 if periods is None else periods, minimum=1)
     seed = _count("seed", seed, minimum=0)
     beta = spec.default_discount if discount is None else _discount(discount)
     p = spec.default_covariates if n_covariates is None else n_covariates
@@ -265,29 +404,10 @@ def simulate(
     X = draw_covariates(rng, units, p)
     solution = solve(spec.model(X, beta))
 
-    unit_ids = np.arange(units)
     state = spec.initial(rng, X)
-    for _ in range(spec.burn_in):
-        _, state, _ = _step(rng, solution, unit_ids, state)
-
-    rec_unit, rec_period, rec_state, rec_choice = [], [], [], []
-    active = unit_ids
-    for t in range(periods):
-        chosen, nxt, alive = _step(rng, solution, active, state)
-        rec_unit.append(active)
-        rec_period.append(np.full(active.shape[0], t))
-        rec_state.append(state)
-        rec_choice.append(chosen)
-        active, state = active[alive], nxt[alive]
-        if active.size == 0:
-            break
-
-    row_unit = np.concatenate(rec_unit)
-    row_period = np.concatenate(rec_period)
-    order = np.lexsort((row_period, row_unit))
-    row_unit, row_period = row_unit[order], row_period[order]
-    row_state = np.concatenate(rec_state)[order]
-    row_choice = np.concatenate(rec_choice)[order]
+    row_unit, row_period, row_state, row_choice = _record(
+        rng, solution, state, periods=periods, burn_in=spec.burn_in
+    )
 
     columns: dict[str, Any] = {
         spec.unit: row_unit.astype(np.int64),
@@ -322,4 +442,5 @@ def simulate(
         unit_index=row_unit,
         state_index=row_state,
         covariates=X,
+        description=spec.description,
     )
