@@ -111,7 +111,9 @@ def _number(value: Any) -> float | None:
 
 def summarise(mc: MonteCarloResults) -> list[dict[str, Any]]:
     """Per estimator and parameter: failed solves, bias, SD, bias/SD, mean s.e., SD/mean s.e.,
-    RMSE and coverage (with its Monte Carlo s.e.), as plain JSON values."""
+    RMSE and coverage (with its Monte Carlo s.e.), the fallback solves (root-finder or
+    one-step) and their coverage, and the replications whose interval checks flagged the
+    parameter with the coverage of the others, as plain JSON values."""
     rows = []
     for r in mc.summary.to_dict(orient="records"):
         bias, sd = _number(r["bias"]), _number(r["sd"])
@@ -131,6 +133,10 @@ def summarise(mc: MonteCarloResults) -> list[dict[str, Any]]:
                 "coverage": _number(r["coverage"]),
                 "coverage_mcse": _number(r["coverage_mcse"]),
                 "moments": r["moments"] or "",
+                "fallbacks": int(r["fallbacks"]),
+                "fallback_coverage": _number(r["fallback_coverage"]),
+                "flagged": int(r["flagged"]),
+                "unflagged_coverage": _number(r["unflagged_coverage"]),
             }
         )
     return rows
@@ -220,8 +226,8 @@ def markdown(doc: dict[str, Any]) -> str:
         "moments; plug-in, debiased and oracle (exact nuisances) on the same panels.",
         "",
         "| design | role | N | T | reps | estimator | parameter | truth | failed | bias/SD | "
-        "SD/SE | RMSE | coverage |",
-        "|---|---|---:|---:|---:|---|---|---:|---:|---:|---:|---:|---:|",
+        "SD/SE | RMSE | coverage | fallbacks | flagged | unflagged coverage |",
+        "|---|---|---:|---:|---:|---|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|",
     ]
     for key, e in sorted(doc.get("designs", {}).items()):
         for r in e["summary"]:
@@ -229,7 +235,9 @@ def markdown(doc: dict[str, Any]) -> str:
                 f"| {e['id']} | {e['role']} | {e['units']} | {e['periods']} | {r['reps']} | "
                 f"{r['estimator']} | {r['parameter']} | {r['truth']:.3g} | {r['failures']} | "
                 f"{_fmt(r['bias_over_sd'], '.2f')} | {_fmt(r['sd_over_se'], '.2f')} | "
-                f"{_fmt(r['rmse'], '.3f')} | {_fmt(r['coverage'], '.2f')} |"
+                f"{_fmt(r['rmse'], '.3f')} | {_fmt(r['coverage'], '.2f')} | "
+                f"{r.get('fallbacks', '-')} | {r.get('flagged', '-')} | "
+                f"{_fmt(r.get('unflagged_coverage'), '.2f')} |"
             )
     lines += ["", "Designs:", ""]
     seen = set()
@@ -259,6 +267,9 @@ def parse(argv: Sequence[str] | None = None) -> argparse.Namespace:
     ap.add_argument("--checkpoint", type=int, default=5,
                     help="save after this many replications (default: 5)")
     ap.add_argument("--results", type=Path, default=RESULTS / "design_family.json")
+    ap.add_argument("--resummarise", action="store_true",
+                    help="recompute every stored design's summary from its replications "
+                         "(after a change to the summary), then rewrite the table")
     ap.add_argument("--table-only", action="store_true",
                     help="only rewrite design_family.md from the stored designs")
     a = ap.parse_args(argv)
@@ -279,7 +290,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     path: Path = a.results
     path.parent.mkdir(parents=True, exist_ok=True)
     table = path.with_suffix(".md")
-    if a.table_only:
+    if a.resummarise:
+        with lock(path):
+            doc = load(path)
+            for entry in doc.get("designs", {}).values():
+                entry["summary"] = summarise(MonteCarloResults.from_dict(entry["mc"]))
+            save(path, doc)
+        print(f"wrote {path}")
+    if a.table_only or a.resummarise:
         table.write_text(markdown(load(path)), encoding="utf-8")
         print(f"wrote {table}")
         return 0

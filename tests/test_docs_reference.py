@@ -590,12 +590,12 @@ def test_outside_designs_table_matches_its_json() -> None:
     """The outside designs' table is benchmarks/results/outside_designs.json's."""
     doc = _json("outside_designs.json")
     cells = {(c["design"], c["parameter"]): c for c in doc["cells"]}
-    rows = _validation_table("### Written outside the project: two designs through the command line")
-    assert len(rows) == len(cells) == 6 and doc["failed_runs"] == 0
+    rows = _validation_table("### Written outside the project: four designs through the command line")
+    assert len(rows) == len(cells) == 13 and doc["failed_runs"] == 0
     for row in rows:
         c = cells[(row["design"], row["parameter"])]
         where = f"{row['design']} {row['parameter']}"
-        assert int(row["covered of 10"]) == c["covered"] and c["runs"] == 10, where
+        assert int(row["covered"]) == c["covered"] and int(row["draws"]) == c["runs"], where
         assert int(row["one-step"]) == c["one_step"] and int(row["flagged"]) == c["flagged"], where
         assert row["unflagged covered"] == f"{c['unflagged_covered']} of {c['unflagged']}", where
         for column, key in [("truth", "truth"), ("mean", "mean"), ("SD", "sd"),

@@ -4,7 +4,10 @@ Per design and parameter: runs, failed runs, coverage of the debiased interval, 
 draws over the mean standard error, plug-in mean, one-step fallbacks, and how many estimates
 the interval checks flagged (with the coverage of the unflagged ones).
 
-Usage: python summarize.py OUT_DIR [OUT_DIR ...] [--json PATH]
+Usage: python summarize.py OUT_DIR [OUT_DIR ...] [--cd CSV] [--json PATH]
+
+``--cd`` adds designs C and D from the runner in ``cd/`` (its results CSV, e.g.
+``benchmarks/results/outside_designs_cd.csv``).
 """
 import argparse
 import json
@@ -19,8 +22,19 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("out", nargs="+")
     ap.add_argument("--json", default=os.path.join(HERE, "..", "results", "outside_designs.json"))
+    ap.add_argument("--cd", default=None, help="results CSV of cd/run_all.py")
     args = ap.parse_args()
     d = pd.concat([pd.read_csv(os.path.join(o, "results.csv")) for o in args.out])
+    if args.cd:
+        cd = pd.read_csv(args.cd)
+        d = pd.concat([d, pd.DataFrame({
+            "version": d["version"].iloc[0], "run": cd["design"] + "_s" + cd["seed"].astype(str),
+            "design": cd["design"], "rep": cd["seed"], "kind": "default", "rc": cd["exit_code"],
+            "param": cd["param"], "truth": cd["truth"], "estimate": cd["estimate"],
+            "std_error": cd["std_error"], "covers": cd["covers"].astype(int),
+            "plugin": cd["plugin"], "solution": cd["solution_summary"],
+            "flagged": cd["flagged"].astype(int),
+        })])
     d = d[d["kind"] == "default"]
     est = d[d["param"].notna()]
     cells = []

@@ -93,12 +93,8 @@ class Diagnostics:
             out.append(
                 f"Influence: unit {plain_label(top['unit'])} carries {top['variance_share']:.1%} of "
                 f"the variance of {top['parameter']!r}"
-                + (
-                    "; a few units dominate, so the interval rests on them (see "
-                    ".diagnostics.influential_units)."
-                    if top["variance_share"] > 0.25
-                    else "."
-                )
+                + " (see .diagnostics.influential_units; on its own a large share is no "
+                "warning sign, the interval checks above say when to distrust an interval)."
             )
         if self.anchor is not None:
             out.extend(self.anchor.readings())

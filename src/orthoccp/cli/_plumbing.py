@@ -164,7 +164,8 @@ def _json_safe(value: Any, where: str, nulls: dict[str, str]) -> Any:
         nulls[where] = "NaN: not defined for this fit" if math.isnan(value) else "infinite"
         return None
     if value is None:
-        nulls[where] = "not a finite number in the results (NaN or infinite), written as null"
+        nulls[where] = ("not applicable to this fit (e.g. a split spread with one split), or not "
+                        "a finite number; written as null")
         return None
     if isinstance(value, (str, int, float, bool)):
         return value
