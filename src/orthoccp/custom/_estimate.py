@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from .._errors import EstimationError, InputError, OrthoCCPWarning
+from .._numeric import central_jacobian
 from .._version import __version__
 from ..covariance import check_cov_name, estimate_covariance
 from ..data import Panel
@@ -20,7 +21,7 @@ from ..learners import LearnerPair, resolve_learners
 from ..results import NotApplicable, Results, RowAccounting
 from ._crossfit import FittedNuisance, crossfit
 from ._functions import MomentFunction
-from ._gmm import GMMFit, HansenJ, anderson_step, cluster_sums, numerical_jacobian, two_step_gmm
+from ._gmm import GMMFit, HansenJ, anderson_step, cluster_sums, two_step_gmm
 from ._riesz import RieszFit, check_method, correction_terms, fit_corrections
 from ._spec import Nuisance, Rows, bind_nuisance
 
@@ -390,7 +391,7 @@ def estimate_moments(
     theta = result.theta
     timings["second_stage_s"] = time.perf_counter() - t1
 
-    Gsum = numerical_jacobian(lambda th: mfun(th, nu).sum(axis=0), theta)
+    Gsum = central_jacobian(lambda th: mfun(th, nu).sum(axis=0), theta)
     A = np.eye(p) if result.weight is None else Gsum.T @ result.weight
     components = {"m": mfun(theta, nu) @ A.T}
     components.update({f"phi_{name}": v @ A.T for name, v in phis.items()})
