@@ -26,6 +26,7 @@ from scipy import optimize
 from ._arrays import group_sums
 from ._errors import EstimationError
 from ._numeric import central_jacobian
+from .covariance import clustered_outer
 from .moments import MomentSystem
 
 __all__ = ["ROUTES", "SolveInfo", "solve_plugin", "solve_orthogonal"]
@@ -324,5 +325,4 @@ def _sandwich_se(system: MomentSystem, theta: np.ndarray) -> np.ndarray:
     Ginv = np.linalg.inv(system.jacobian(theta))
     units = np.unique(system.units, return_inverse=True)[1]
     s = group_sums(units, system.moment(theta, debias=True), int(units.max()) + 1)
-    influence = s @ Ginv.T
-    return np.sqrt(np.diag(influence.T @ influence))
+    return np.sqrt(np.diag(clustered_outer(s @ Ginv.T, small_sample=False)[0]))

@@ -14,7 +14,7 @@ import pandas as pd
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._numeric import central_jacobian
 from .._version import __version__
-from ..covariance import check_cov_name, estimate_covariance
+from ..covariance import check_cov_name, cluster_codes, estimate_covariance
 from ..data import Panel
 from ..folds import unit_folds
 from ..learners import LearnerPair, resolve_learners
@@ -316,7 +316,7 @@ def estimate_moments(
     if not use.any():
         raise InputError("the moment is NaN on every row at the start; no row can be a moment row.")
     mfun.use = use
-    units = panel.unit_codes if cov == "clustered" else np.arange(panel.n_rows)
+    units = cluster_codes(cov, panel.unit_codes)
     n_g = int(units.max()) + 1
     if n_g < 2:
         raise InputError("the covariance needs at least two clusters (units).")
@@ -436,7 +436,7 @@ def estimate_moments(
         n_units=panel.n_units, accounting=accounting,
         clipped={f.name: f.clipped for f in fitted if f.design.spec.binary},
         decomposition=ce.decomposition, influence=ce.influence,
-        influence_units=panel.unit_labels[ce.clusters] if cov == "clustered" else ce.clusters,
+        influence_units=ce.cluster_labels(panel.unit_labels),
         timings=timings, n_learner_fits=n_fits, iterations=iterations,
         plugin_params=pd.Series(plug.theta, index=index, name="plug-in"),
         nuisance_source="cross-fitted", moments="user", version=__version__,
