@@ -492,6 +492,21 @@ def test_bad_inputs_raise_clear_errors(bus_panel: oc.Panel) -> None:
             estimate_discrete(bus_panel, **kwargs)
 
 
+def test_one_unit_is_refused_for_clustered_errors() -> None:
+    # One cluster: the score sums to zero at the estimate, so the clustered sandwich is zero
+    # up to rounding (it used to report standard errors near 1e-14); the row sandwich is kept.
+    df = simulate_inventory(units=1, periods=200, seed=7)
+    panel = oc.Panel(df, unit="shop", period="period", choice="order", states=["stock"])
+    common = dict(utility=INVENTORY.utility_spec(), discount=INVENTORY.discount,
+                  n_states=INVENTORY.n_states)
+    with pytest.raises(oc.InputError, match="at least two clusters"):
+        estimate_discrete(panel, **common)
+    res = estimate_discrete(panel, cov="heteroskedastic", **common)
+    assert (res.std_errors > 0.01).all()
+    with pytest.raises(oc.InputError, match="cov 'robust' is unknown"):
+        estimate_discrete(panel, cov="robust", **common)
+
+
 def test_regressor_that_varies_within_a_state_is_refused(inventory_panel: oc.Panel) -> None:
     frame = inventory_panel.frame.assign(noise=np.arange(inventory_panel.n_rows, dtype=float))
     panel = oc.Panel(frame, unit="shop", period="period", choice="order", states=["stock"])

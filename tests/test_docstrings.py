@@ -7,7 +7,7 @@ import importlib
 
 import pytest
 
-MODULES = ["orthoccp.data", "orthoccp.model", "orthoccp.results", "orthoccp.estimate"]
+MODULES = ["orthoccp.data", "orthoccp.model", "orthoccp.results", "orthoccp.estimate", "orthoccp._numeric"]
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -26,6 +26,7 @@ import pandas as pd
 from scipy import stats
 
 from ._errors import EstimationError, InputError, OrthoCCPWarning
+from .covariance import clustered_outer
 from .data import Panel
 from .estimate import estimate
 from .model import Model
@@ -62,10 +63,7 @@ def difference_test(a: Results, b: Results) -> pd.DataFrame:
         ia, ib = ua.get_indexer(common), ub.get_indexer(common)
     else:
         ia = ib = np.arange(len(ua))
-    d_infl = a.influence[ia] - b.influence[ib]
-    n = d_infl.shape[0]
-    factor = n / (n - 1) if a.small_sample else 1.0
-    V = factor * d_infl.T @ d_infl
+    V, _ = clustered_outer(a.influence[ia] - b.influence[ib], small_sample=a.small_sample)
     diff = (a.params - b.params).to_numpy()
     se = np.sqrt(np.diag(V))
     with np.errstate(divide="ignore", invalid="ignore"):

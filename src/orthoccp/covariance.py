@@ -8,12 +8,18 @@
 with clusters g = decision makers (``"clustered"``) or rows (``"heteroskedastic"``), and the
 optional small-sample factor c = n_g/(n_g - 1) (common practice for cluster-robust inference,
 e.g. Cameron & Miller 2015, J. Human Resources 50).
+
+Every estimator's covariance goes through this module: :func:`estimate_covariance` for the
+sandwich (also with independent variance components added, such as the simulation noise of
+forward-simulated values in :mod:`orthoccp.discrete`), and :func:`clustered_outer` for the
+outer product of per-cluster influence terms with the small-sample factor (also used by
+:func:`orthoccp.difference_test`).
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Protocol
 
 import numpy as np
@@ -22,7 +28,14 @@ import pandas as pd
 from ._arrays import group_sums
 from ._errors import InputError
 
-__all__ = ["CovarianceEstimate", "check_cov_name", "covariance_names", "estimate_covariance"]
+__all__ = [
+    "CovarianceEstimate",
+    "check_cov_name",
+    "cluster_codes",
+    "clustered_outer",
+    "covariance_names",
+    "estimate_covariance",
+]
 
 
 @dataclass(frozen=True, eq=False)
@@ -40,7 +53,12 @@ class CovarianceEstimate:
     factor : float
         Small-sample factor c.
     decomposition : pandas.DataFrame
-        Share of each parameter's variance from each moment component and their cross terms.
+        Share of each parameter's variance from each moment component, their cross terms and
+        each added variance component.
+    name : str
+        The covariance's name in the registry.
+    parts : dict
+        Component name -> its (n_clusters, p) influence terms; they add up to ``influence``.
     """
 
     cov: np.ndarray
@@ -49,6 +67,12 @@ class CovarianceEstimate:
     factor: float
     decomposition: pd.DataFrame
     name: str
+    parts: dict[str, np.ndarray] = field(default_factory=dict)
+
+    def cluster_labels(self, unit_labels: np.ndarray) -> np.ndarray:
+        """Label of each influence row: the unit's label when the clusters are the units,
+        else the cluster code (the row number for ``"heteroskedastic"``)."""
+        return unit_labels[self.clusters] if _REGISTRY[self.name].by_unit else self.clusters
 
 
 class _ClusterRule(Protocol):
@@ -63,7 +87,16 @@ def _by_row(units: np.ndarray) -> np.ndarray:
     return np.arange(units.size)
 
 
-_REGISTRY: dict[str, _ClusterRule] = {"clustered": _by_unit, "heteroskedastic": _by_row}
+@dataclass(frozen=True)
+class _Rule:
+    clusters: _ClusterRule
+    by_unit: bool  # the clusters are the units (influence rows carry unit labels)
+
+
+_REGISTRY: dict[str, _Rule] = {
+    "clustered": _Rule(_by_unit, by_unit=True),
+    "heteroskedastic": _Rule(_by_row, by_unit=False),
+}
 
 
 def covariance_names() -> tuple[str, ...]:
@@ -79,6 +112,39 @@ def check_cov_name(name: object) -> None:
         )
 
 
+def cluster_codes(name: str, units: np.ndarray) -> np.ndarray:
+    """Cluster code of each row under the covariance ``name`` (the unit codes, or the rows)."""
+    check_cov_name(name)
+    return _REGISTRY[name].clusters(units)
+
+
+def clustered_outer(influence: np.ndarray, *, small_sample: bool) -> tuple[np.ndarray, float]:
+    """The outer product of per-cluster influence terms, with the small-sample factor.
+
+    Parameters
+    ----------
+    influence : numpy.ndarray
+        (n_g, p) influence terms, one row per cluster.
+    small_sample : bool
+        Multiply by c = n_g/(n_g - 1).
+
+    Returns
+    -------
+    cov : numpy.ndarray
+        :math:`c \\sum_g \\psi_g \\psi_g'`, (p, p).
+    factor : float
+        c (1.0 without the small-sample factor).
+    """
+    n_g = influence.shape[0]
+    if n_g < 2:
+        raise InputError(
+            f"the covariance needs at least two clusters (units), got {n_g}; estimate on data "
+            f"with more units (a one-unit sandwich is zero up to rounding)."
+        )
+    factor = n_g / (n_g - 1) if small_sample else 1.0
+    return factor * influence.T @ influence, factor
+
+
 def _sum_by(codes: np.ndarray, values: np.ndarray) -> np.ndarray:
     uniq, inv = np.unique(codes, return_inverse=True)
     return group_sums(inv, values, uniq.size)
@@ -92,6 +158,7 @@ def estimate_covariance(
     units: np.ndarray,
     parameters: tuple[str, ...],
     small_sample: bool = True,
+    added: Mapping[str, np.ndarray] | None = None,
 ) -> CovarianceEstimate:
     """Sandwich covariance and variance decomposition.
 
@@ -107,23 +174,28 @@ def estimate_covariance(
         Unit code per row.
     small_sample : bool, default=True
         Multiply by n_g/(n_g - 1).
+    added : mapping, optional
+        Name -> (p, p) covariance of an independent source of noise that the sandwich does
+        not contain (e.g. the simulation noise of forward-simulated values), added to it
+        without the small-sample factor and given its own share in the decomposition.
     """
-    check_cov_name(name)
-    clusters = _REGISTRY[name](units)
+    clusters = cluster_codes(name, units)
     Ginv = np.linalg.inv(jacobian)
     pieces = {k: _sum_by(clusters, v) @ -Ginv.T for k, v in components.items()}
     influence = np.sum(np.stack(list(pieces.values())), axis=0)
-    n_g = influence.shape[0]
-    if n_g < 2:
-        raise InputError("the covariance needs at least two clusters (units).")
-    factor = n_g / (n_g - 1) if small_sample else 1.0
-    cov = factor * influence.T @ influence
+    cov, factor = clustered_outer(influence, small_sample=small_sample)
     total = np.diag(cov) / factor
     shares = {}
     for k, v in pieces.items():
         shares[k] = (v**2).sum(axis=0) / total
     if len(pieces) > 1:
         shares["cross"] = 1.0 - sum(shares.values())
+    if added:
+        sandwich = np.diag(cov)
+        cov = cov + sum(added.values())
+        scale = sandwich / np.diag(cov)
+        shares = {k: v * scale for k, v in shares.items()}
+        shares.update({k: np.diag(v) / np.diag(cov) for k, v in added.items()})
     decomposition = pd.DataFrame(shares, index=pd.Index(parameters, name="parameter"))
     uniq = np.unique(clusters)
     return CovarianceEstimate(
@@ -133,4 +205,5 @@ def estimate_covariance(
         factor=factor,
         decomposition=decomposition,
         name=name,
+        parts=pieces,
     )

@@ -25,6 +25,8 @@ from scipy import optimize
 
 from ._arrays import group_sums
 from ._errors import EstimationError
+from ._numeric import central_jacobian
+from .covariance import clustered_outer
 from .moments import MomentSystem
 
 __all__ = ["ROUTES", "SolveInfo", "solve_plugin", "solve_orthogonal"]
@@ -145,18 +147,9 @@ def solve_plugin(
 
 
 def psi_jacobian(system: MomentSystem, theta: np.ndarray) -> np.ndarray:
-    """Jacobian of :math:`\\sum_i \\psi_i` by central differences (p is small)."""
-    p = theta.size
-    J = np.empty((p, p))
-    for k in range(p):
-        h = 1e-6 * (1.0 + abs(theta[k]))
-        e = np.zeros(p)
-        e[k] = h
-        J[:, k] = (
-            system.moment(theta + e, debias=True).sum(axis=0)
-            - system.moment(theta - e, debias=True).sum(axis=0)
-        ) / (2 * h)
-    return J
+    """Jacobian of :math:`\\sum_i \\psi_i` by central differences
+    (:func:`orthoccp._numeric.central_jacobian`; p is small)."""
+    return central_jacobian(lambda th: system.moment(th, debias=True).sum(axis=0), theta)
 
 
 def solve_orthogonal(
@@ -332,5 +325,4 @@ def _sandwich_se(system: MomentSystem, theta: np.ndarray) -> np.ndarray:
     Ginv = np.linalg.inv(system.jacobian(theta))
     units = np.unique(system.units, return_inverse=True)[1]
     s = group_sums(units, system.moment(theta, debias=True), int(units.max()) + 1)
-    influence = s @ Ginv.T
-    return np.sqrt(np.diag(influence.T @ influence))
+    return np.sqrt(np.diag(clustered_outer(s @ Ginv.T, small_sample=False)[0]))

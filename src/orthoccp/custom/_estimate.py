@@ -12,15 +12,16 @@ import numpy as np
 import pandas as pd
 
 from .._errors import EstimationError, InputError, OrthoCCPWarning
+from .._numeric import central_jacobian
 from .._version import __version__
-from ..covariance import check_cov_name, estimate_covariance
+from ..covariance import check_cov_name, cluster_codes, estimate_covariance
 from ..data import Panel
 from ..folds import unit_folds
 from ..learners import LearnerPair, resolve_learners
 from ..results import NotApplicable, Results, RowAccounting
 from ._crossfit import FittedNuisance, crossfit
 from ._functions import MomentFunction
-from ._gmm import GMMFit, HansenJ, anderson_step, cluster_sums, numerical_jacobian, two_step_gmm
+from ._gmm import GMMFit, HansenJ, anderson_step, cluster_sums, two_step_gmm
 from ._riesz import RieszFit, check_method, correction_terms, fit_corrections
 from ._spec import Nuisance, Rows, bind_nuisance
 
@@ -315,7 +316,7 @@ def estimate_moments(
     if not use.any():
         raise InputError("the moment is NaN on every row at the start; no row can be a moment row.")
     mfun.use = use
-    units = panel.unit_codes if cov == "clustered" else np.arange(panel.n_rows)
+    units = cluster_codes(cov, panel.unit_codes)
     n_g = int(units.max()) + 1
     if n_g < 2:
         raise InputError("the covariance needs at least two clusters (units).")
@@ -390,7 +391,7 @@ def estimate_moments(
     theta = result.theta
     timings["second_stage_s"] = time.perf_counter() - t1
 
-    Gsum = numerical_jacobian(lambda th: mfun(th, nu).sum(axis=0), theta)
+    Gsum = central_jacobian(lambda th: mfun(th, nu).sum(axis=0), theta)
     A = np.eye(p) if result.weight is None else Gsum.T @ result.weight
     components = {"m": mfun(theta, nu) @ A.T}
     components.update({f"phi_{name}": v @ A.T for name, v in phis.items()})
@@ -435,7 +436,7 @@ def estimate_moments(
         n_units=panel.n_units, accounting=accounting,
         clipped={f.name: f.clipped for f in fitted if f.design.spec.binary},
         decomposition=ce.decomposition, influence=ce.influence,
-        influence_units=panel.unit_labels[ce.clusters] if cov == "clustered" else ce.clusters,
+        influence_units=ce.cluster_labels(panel.unit_labels),
         timings=timings, n_learner_fits=n_fits, iterations=iterations,
         plugin_params=pd.Series(plug.theta, index=index, name="plug-in"),
         nuisance_source="cross-fitted", moments="user", version=__version__,

@@ -20,8 +20,9 @@ from scipy import optimize, stats
 
 from .._arrays import group_sums
 from .._errors import EstimationError
+from .._numeric import central_jacobian
 
-__all__ = ["HansenJ", "GMMFit", "two_step_gmm", "cluster_sums", "numerical_jacobian", "anderson_step"]
+__all__ = ["HansenJ", "GMMFit", "two_step_gmm", "cluster_sums", "anderson_step"]
 
 
 @dataclass(frozen=True)
@@ -58,17 +59,6 @@ def cluster_sums(values: np.ndarray, units: np.ndarray, n_units: int) -> np.ndar
     return group_sums(units, values, n_units)
 
 
-def numerical_jacobian(f: Callable[[np.ndarray], np.ndarray], theta: np.ndarray) -> np.ndarray:
-    """Central-difference Jacobian of a vector function (p is small)."""
-    cols = []
-    for j in range(theta.size):
-        h = 1e-6 * (1.0 + abs(theta[j]))
-        e = np.zeros(theta.size)
-        e[j] = h
-        cols.append((f(theta + e) - f(theta - e)) / (2 * h))
-    return np.column_stack(cols)
-
-
 def _minimise(
     gbar: Callable[[np.ndarray], np.ndarray], start: np.ndarray, W: np.ndarray, what: str
 ) -> tuple[np.ndarray, int]:
@@ -78,7 +68,7 @@ def _minimise(
         return L.T @ gbar(th)
 
     def jac(th: np.ndarray) -> np.ndarray:
-        return L.T @ numerical_jacobian(gbar, th)
+        return L.T @ central_jacobian(gbar, th)
 
     try:
         sol = optimize.least_squares(resid, start, jac=jac, method="lm", xtol=1e-13, ftol=1e-15,

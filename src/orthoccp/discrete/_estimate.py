@@ -12,9 +12,10 @@ import numpy as np
 import pandas as pd
 from scipy import sparse
 
-from .._arrays import group_sums, label_index
+from .._arrays import label_index
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._version import __version__
+from ..covariance import CovarianceEstimate, check_cov_name, estimate_covariance
 from ..data import Panel
 from ..nuisance import clip_probabilities
 from ..results import RowAccounting
@@ -190,8 +191,7 @@ def _check_options(
         raise InputError(f"tol must be a number in (0, 1), got {tol!r}.")
     if not isinstance(clip, (int, float)) or not 0 < clip < 0.5:
         raise InputError(f"clip must be in (0, 0.5), got {clip!r}.")
-    if cov not in ("clustered", "heteroskedastic"):
-        raise InputError(f"cov must be 'clustered' or 'heteroskedastic', got {cov!r}.")
+    check_cov_name(cov)
 
 
 def estimate_discrete(
@@ -218,7 +218,7 @@ def estimate_discrete(
     n_paths: int = 200,
     horizon: int | None = None,
     seed: int = 0,
-    cov: Literal["clustered", "heteroskedastic"] = "clustered",
+    cov: str = "clustered",
     small_sample: bool = False,
     transition_noise: bool = True,
 ) -> DiscreteResults:
@@ -463,17 +463,6 @@ def _start(start: Mapping[str, float] | None, names: tuple[str, ...]) -> np.ndar
     return np.array([float(start.get(k, 0.0)) for k in names])
 
 
-@dataclass(frozen=True, eq=False)
-class _Covariance:
-    cov: np.ndarray
-    influence: np.ndarray
-    clusters: np.ndarray
-    factor: float
-    decomposition: pd.DataFrame
-    information: np.ndarray
-    parts: dict[str, np.ndarray]
-
-
 def _covariance(
     problem: DiscreteProblem,
     fit: PseudoFit,
@@ -483,17 +472,17 @@ def _covariance(
     cov: str,
     small_sample: bool,
     transition_noise: bool,
-) -> _Covariance:
+) -> CovarianceEstimate:
+    """The sandwich of :func:`orthoccp.covariance.estimate_covariance` with two components,
+    the choices' scores and the transition estimate's effect (each unit's, on its first row),
+    plus the simulation noise of forward-simulated values as an added variance."""
     g, Lam, info = fit.scores, fit.ccp, fit.information
     S, J, p = g.shape
     beta = problem.discount
     n_s = problem.counts.sum(axis=1)
     # (n_rows, p) each row's score; a flat take is much faster than g[state, choice]
     row_scores = np.take(g.reshape(S * J, p), problem.row_state * J + problem.row_choice, axis=0)
-    clusters = problem.row_unit if cov == "clustered" else np.arange(row_scores.shape[0])
-    G = int(clusters.max()) + 1
-    score = group_sums(clusters, row_scores, G)
-    trans = np.zeros((G, p))
+    transitions = np.zeros_like(row_scores)
     if transition_noise and beta > 0 and problem.transitions.method in ("frequency", "increments"):
         inv = last_terms if isinstance(last_terms, InversionTerms) else inversion_terms(
             ccp_used, problem.design, problem.mats, beta)
@@ -505,43 +494,31 @@ def _covariance(
         # point; the starting CCPs for "pml")
         omega = w + beta * ccp_used[:, :, None] * mu[:, None, :]
         per_unit = -beta * problem.transitions.directional(omega, value, problem.n_units)
-        if cov == "clustered":
-            trans = per_unit
-        else:
-            # rows as clusters: attribute each unit's transition effect to its first row
-            first = np.unique(problem.row_unit, return_index=True)[1]
-            trans[first] = per_unit
-    total = score + trans
-    factor = G / (G - 1.0) if small_sample and G > 1 else 1.0
-    Iinv = np.linalg.inv(info)
-    influence = total @ Iinv.T
-    V = factor * influence.T @ influence
-    parts = {"choices": score @ Iinv.T, "transitions": trans @ Iinv.T}
-    sim_var = np.zeros((p, p))
+        # each unit's transition effect on its first row: summed into the unit's cluster, or
+        # that row's own when the rows are the clusters
+        transitions[np.unique(problem.row_unit, return_index=True)[1]] = per_unit
+    added = {}
     if simulated:
         sim = last_terms
+        Iinv = np.linalg.inv(info)
         th1 = np.append(fit.theta, 1.0)
         var_cell = np.einsum("a,sjab,b->sj", th1, sim.mean_cov, th1) * beta**2
         h = n_s[:, None, None] * Lam[:, :, None] * g
-        sim_var = Iinv @ np.einsum("sj,sja,sjb->ab", var_cell, h, h) @ Iinv.T
-        V = V + sim_var
-    diag = np.diag(V)
+        added["simulation"] = Iinv @ np.einsum("sj,sja,sjb->ab", var_cell, h, h) @ Iinv.T
+    # the pseudo-likelihood's Jacobian is minus its information matrix
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ce = estimate_covariance(
+            cov, jacobian=-info, components={"choices": row_scores, "transitions": transitions},
+            units=problem.row_unit, parameters=problem.parameters, small_sample=small_sample,
+            added=added,
+        )
+    diag = np.diag(ce.cov)
     if not np.all(np.isfinite(diag)) or np.any(diag <= 0):
         raise EstimationError(
             "the covariance is not positive definite at the estimate; the parameters are not "
             "identified in this sample."
         )
-    shares: dict[str, np.ndarray] = {
-        k: factor * np.einsum("ga,ga->a", v, v) / diag for k, v in parts.items()
-    }
-    shares["cross"] = 2 * factor * np.einsum("ga,ga->a", parts["choices"], parts["transitions"]) / diag
-    if simulated:
-        shares["simulation"] = np.diag(sim_var) / diag
-    decomposition = pd.DataFrame(np.column_stack(list(shares.values())),
-                                 columns=label_index(shares),
-                                 index=label_index(problem.parameters, "parameter"))
-    return _Covariance(cov=V, influence=influence, clusters=clusters, factor=factor,
-                       decomposition=decomposition, information=info, parts=parts)
+    return ce
 
 
 def _results(
@@ -550,7 +527,7 @@ def _results(
     fit: PseudoFit,
     ccp: np.ndarray,
     last_terms: Any,
-    cv: _Covariance,
+    cv: CovarianceEstimate,
     *,
     estimator: str,
     values: str,
@@ -578,7 +555,6 @@ def _results(
     value = (last_terms.Wz @ fit.theta + last_terms.We) if isinstance(last_terms, InversionTerms) \
         else np.empty(0)
     simulated = values == "simulation"
-    units = panel.unit_labels if cov == "clustered" else np.arange(panel.n_rows)
     return DiscreteResults(
         params=pd.Series(fit.theta, index=index, name="estimate"),
         std_errors=pd.Series(se, index=index, name="std_error"),
@@ -591,7 +567,8 @@ def _results(
         folds=0, splits=1, scheme="none", seed=int(seed), clip=float(clip), cov_type=cov,
         small_sample=bool(small_sample), n_units=panel.n_units, accounting=accounting,
         clipped=clipped, decomposition=cv.decomposition, influence=cv.influence,
-        influence_units=np.asarray(units), timings=timings, n_learner_fits=0,
+        influence_units=np.asarray(cv.cluster_labels(panel.unit_labels)), timings=timings,
+        n_learner_fits=0,
         iterations=len(changes), nuisance_source=("NPL fixed point" if estimator == "npl"
                                                   else "pseudo-likelihood steps"),
         moments="pseudo_likelihood", version=__version__,
@@ -599,6 +576,6 @@ def _results(
         changes=tuple(changes), loglik=fit.loglik, n_states=problem.space.n_states,
         ccp=pd.DataFrame(ccp, columns=label_index(problem.choices)), value=value,
         transitions=problem.transitions, n_paths=int(n_paths) if simulated else 0,
-        horizon=int(horizon) if simulated else 0, information=cv.information,
+        horizon=int(horizon) if simulated else 0, information=fit.information,
         influence_parts=cv.parts,
     )
