@@ -601,3 +601,20 @@ def test_outside_designs_table_matches_its_json() -> None:
         for column, key in [("truth", "truth"), ("mean", "mean"), ("SD", "sd"),
                             ("mean s.e.", "mean_se"), ("plug-in mean", "plugin_mean")]:
             _assert_printed(row[column], c[key], where)
+
+
+def test_outside_split_spread_table_matches_its_json() -> None:
+    """The split-noise table is benchmarks/results/outside_split_spread.json's."""
+    doc = _json("outside_split_spread.json")
+    assert doc["splits"] == 3
+    text = _page("validation.md")
+    text = text[text.index("**Split noise.**"):]
+    rows = _tables(text)[0]
+    for row in rows:
+        values = [r["split_spread"] for r in doc["rows"]
+                  if r["design"] == row["design"] and r["parameter"] == row["parameter"]]
+        where = f"{row['design']} {row['parameter']}"
+        assert int(row["draws"]) == len(values) > 0, where
+        _assert_printed(row["median spread"], float(np.median(values)), where)
+        _assert_printed(row["largest spread"], max(values), where)
+    assert len(rows) == len({(r["design"], r["parameter"]) for r in doc["rows"]})
