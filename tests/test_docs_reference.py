@@ -618,3 +618,23 @@ def test_outside_split_spread_table_matches_its_json() -> None:
         _assert_printed(row["median spread"], float(np.median(values)), where)
         _assert_printed(row["largest spread"], max(values), where)
     assert len(rows) == len({(r["design"], r["parameter"]) for r in doc["rows"]})
+
+
+def test_design_family_screen_matches_its_json() -> None:
+    """The first family screen's table is benchmarks/results/design_family.json's."""
+    designs = _json("design_family.json")["designs"]
+    by_id = {e["id"]: {(r["estimator"], r["parameter"]): r for r in e["summary"]}
+             for e in designs.values()}
+    text = _page("validation.md")
+    rows = _tables(text[text.index("**First screen**"):])[0]
+    assert len(rows) == sum(1 for s in by_id.values() for k in s if k[0] == "debiased")
+    for row in rows:
+        cell = by_id[row["design"]]
+        r, n = cell[("debiased", row["parameter"])], cell[("naive", row["parameter"])]
+        where = f"{row['design']} {row['parameter']}"
+        assert int(row["reps"]) == r["reps"] and r["failures"] == 0, where
+        assert int(row["fallbacks"]) == r["fallbacks"] and int(row["flagged"]) == r["flagged"], where
+        _assert_printed(row["plug-in coverage"], n["coverage"], where)
+        _assert_printed(row["debiased bias / SD"], r["bias_over_sd"], where)
+        _assert_printed(row["SD / s.e."], r["sd_over_se"], where)
+        _assert_printed(row["debiased coverage"], r["coverage"], where)
