@@ -417,8 +417,10 @@ def estimate(
             one_steps=np.vstack(one_steps), std_errors=se, influence=infl.to_numpy(),
             identification=identification, routes=routes, cov=V,
         )
+        which = (f"first stage {pair.name}" if nuisances is None
+                 else "nuisances supplied by the caller")
         for reading in checks.readings() if checks.flagged else ():
-            warnings.warn(reading, OrthoCCPWarning, stacklevel=2)
+            warnings.warn(f"{reading} [{which}, seed {seed}]", OrthoCCPWarning, stacklevel=2)
 
     timings["learner_fit_s"] = runner.tally.fit_s
     timings["learner_predict_s"] = runner.tally.predict_s
