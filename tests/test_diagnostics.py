@@ -75,3 +75,20 @@ def test_rare_anchor_after_renewal_is_read_and_warned() -> None:
     after = (panel.choice_codes == panel.choice_index("replace")) & (panel.next_row >= 0)
     assert chk.n_rows == int(after.sum())
     assert any(r.startswith("Anchor probability at the states right after a renewal") for r in res.diagnostics.readings())
+
+
+def test_diagnostics_travel_in_the_json(small_ebike) -> None:  # type: ignore[no-untyped-def]
+    """Every diagnostic table reaches the JSON record (the command line's --json) row for row."""
+    import json
+
+    import orthoccp as oc
+    from _support import panel_and_model
+
+    panel, model, _ = panel_and_model(small_ebike)
+    res = oc.estimate(panel, model, learner="logit", folds=3, seed=0)
+    doc = json.loads(res.to_json())["diagnostics"]
+    d = res.diagnostics
+    assert doc["readings"] == d.readings()
+    for name in ("ccp_quality", "calibration", "continuation_quality", "influential_units"):
+        assert len(doc[name]) == len(getattr(d, name)), name
+    assert [r["choice"] for r in doc["overlap"]] == [str(c) for c in d.overlap.index]

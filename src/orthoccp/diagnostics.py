@@ -7,6 +7,7 @@ sees at once whether the first stage is good enough to trust the interval.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -53,6 +54,19 @@ class Diagnostics:
     continuation_quality: pd.DataFrame
     influential_units: pd.DataFrame = field(default_factory=pd.DataFrame)
     anchor: AnchorCheck | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain-Python view for JSON: the readings and every table as a list of records
+        (NaN and infinities become ``None``)."""
+        tables = {
+            "overlap": self.overlap.reset_index(),
+            "ccp_quality": self.ccp_quality.reset_index(drop=True),
+            "calibration": self.calibration.reset_index(drop=True),
+            "continuation_quality": self.continuation_quality.reset_index(drop=True),
+            "influential_units": self.influential_units.reset_index(drop=True),
+        }
+        return {"readings": self.readings(),
+                **{name: _records(frame) for name, frame in tables.items()}}
 
     def readings(self) -> list[str]:
         """One plain-language sentence per diagnostic."""
@@ -249,3 +263,19 @@ def compute_diagnostics(
         anchor=anchor,
     )
 
+
+
+def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    """Rows of ``frame`` as JSON-safe dicts: NumPy scalars to Python, non-finite to None."""
+    out = []
+    for row in frame.to_dict(orient="records"):
+        rec: dict[str, Any] = {}
+        for key, value in row.items():
+            value = value.item() if isinstance(value, np.generic) else value
+            if isinstance(value, float) and not np.isfinite(value):
+                value = None
+            elif not isinstance(value, (str, int, float, bool, type(None))):
+                value = str(value)
+            rec[str(key)] = value
+        out.append(rec)
+    return out

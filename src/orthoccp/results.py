@@ -382,6 +382,7 @@ class Results:
                          "summary": self.solution},
             "interval_check": (None if self.interval_check is None
                                else self.interval_check.to_dict()),
+            "diagnostics": None if self.diagnostics is None else self.diagnostics.to_dict(),
             "model": {k: (v if k != "anchor" else str(v)) for k, v in self.model.items()},
             "n_units": self.n_units,
             "n_rows": self.accounting.n_rows,
