@@ -13,6 +13,7 @@ import warnings
 from typing import Any
 
 import pandas as pd
+import numpy as np
 import pytest
 
 import orthoccp as oc
@@ -92,7 +93,8 @@ def _persistent_model(sim: Any) -> oc.Model:
                     utility=sim.utility, persistent=["x0", "x1"])
 
 
-def test_persistent_state_changing_away_from_renewals_warns_with_units() -> None:
+def test_persistent_state_changing_away_from_renewals_does_not_warn() -> None:
+    """An exogenous state moves whatever the choice; METHOD §4b counts it as persistent."""
     sim = simulate("ebike", units=200, periods=8, seed=2, n_covariates=5)
     frame = sim.data.copy()
     # x1 changes in three bikes, in a week that is not right after a swap.
@@ -101,16 +103,39 @@ def test_persistent_state_changing_away_from_renewals_warns_with_units() -> None
     units = sorted(frame.loc[rows, "bike"].tolist())
     frame.loc[frame["bike"].isin(units) & (frame["week"] >= 4), "x1"] += 1.0
     panel = oc.Panel(frame, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states))
+    with warnings.catch_warnings(record=True) as record:
+        warnings.simplefilter("always")
+        oc.estimate(panel, _persistent_model(sim), learner="logit", folds=3, scheme="plain")
+    assert not [w for w in record if "persistent state 'x1'" in str(w.message)]
+
+
+def test_exogenous_state_changing_at_the_same_rate_after_every_choice_does_not_warn() -> None:
+    sim = simulate("ebike", units=300, periods=8, seed=2, n_covariates=5)
+    frame = sim.data.copy()
+    rng = np.random.default_rng(0)
+    # an exogenous two-level chain: flips with probability 0.2 each period, whatever the choice
+    flips = rng.random(len(frame)) < 0.2
+    frame["x1"] = frame.assign(f=flips.astype(int)).groupby(sim.unit)["f"].cumsum() % 2
+    panel = oc.Panel(frame, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states))
+    with warnings.catch_warnings(record=True) as record:
+        warnings.simplefilter("always")
+        oc.estimate(panel, _persistent_model(sim), learner="logit", folds=3, scheme="plain")
+    assert not [w for w in record if "persistent state 'x1'" in str(w.message)]
+
+
+def test_state_reset_by_the_renewal_warns_with_both_rates() -> None:
+    sim = simulate("ebike", units=200, periods=8, seed=2, n_covariates=5)
+    frame = sim.data.copy()
+    after_swap = frame.groupby(sim.unit)[sim.choice].shift(1) == sim.anchor
+    frame.loc[after_swap, "x1"] = 0.0  # the renewal resets x1
+    panel = oc.Panel(frame, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states))
     with pytest.warns(oc.OrthoCCPWarning) as record:
         oc.estimate(panel, _persistent_model(sim), learner="logit", folds=3, scheme="plain")
     texts = [str(w.message) for w in record if "persistent state 'x1'" in str(w.message)]
-    examples = ", ".join(f"bike={u}" for u in units)
-    assert texts == [
-        f"persistent state 'x1' changes within 3 of 200 units (e.g. {examples}), though never "
-        f"right after a renewal. The renewal-robust moments take persistent states as "
-        f"characteristics a renewal does not reset; if it moves with the choices, remove it "
-        f"from persistent or use moments='standard'."
-    ]
+    assert len(texts) == 1
+    assert re.search(r"changes right after a renewal in \d+ of \d+ renewal rows \(\d+\.\d%; e\.g\. "
+                     r"bike=.*\), against \d+ of \d+ rows after the other choices \(\d+\.\d%\): "
+                     r"the renewal appears to reset or move it", texts[0]), texts[0]
 
 
 def test_constant_persistent_states_do_not_warn() -> None:

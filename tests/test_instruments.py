@@ -112,7 +112,7 @@ def test_warns_when_a_persistent_state_changes_after_renewal(small_ebike) -> Non
     df = small_ebike.data.copy()
     df["x0"] = df["x0"] + (df["wear"] == 0) * 0.5  # jumps at the row after a swap
     panel = oc.Panel(df, unit="bike", period="week", choice="action", states=list(small_ebike.states))
-    with pytest.warns(oc.OrthoCCPWarning, match=r"persistent state 'x0' changes within \d+ of 300 units \(e\.g\. bike=.*\); it changes right after a renewal in \d+ of \d+ renewal rows"):
+    with pytest.warns(oc.OrthoCCPWarning, match=r"persistent state 'x0' changes right after a renewal in \d+ of \d+ renewal rows \(.*\), against \d+ of \d+ rows after the other choices"):
         oc.estimate(panel, _robust_model(small_ebike), learner="logit", folds=3)
 
 

@@ -1,7 +1,8 @@
 r"""Checks of the model's assumptions that the data can refute; each warns, naming what it saw.
 
-* :func:`warn_if_not_persistent`: a declared persistent state that changes within a unit,
-  right after a renewal or at any other time.
+* :func:`warn_if_not_persistent`: a declared persistent state that changes right after a
+  renewal more often than after the other choices (exogenous states that change whatever the
+  choice are persistent too).
 * :func:`renewal_reset_test`: after a renewal, does the next state still depend on the state
   before it? (below)
 
@@ -51,7 +52,7 @@ from .data import Panel
 from .instruments import persistent_feature_columns
 from .model import BoundModel
 
-__all__ = ["RESET_P", "ResetTest", "renewal_reset_test", "warn_if_not_persistent",
+__all__ = ["RATE_Z", "RESET_P", "ResetTest", "renewal_reset_test", "warn_if_not_persistent",
            "warn_if_not_reset"]
 
 RESET_P = 1e-3
@@ -82,40 +83,55 @@ def _changes_within_units(panel: Panel, values: np.ndarray) -> np.ndarray:
     return changed
 
 
-def warn_if_not_persistent(bound: BoundModel, *, stacklevel: int = 3) -> None:
-    """Warn for each declared persistent state that changes within a unit.
+RATE_Z = 3.0
+"""A persistent state is reported as moved by the renewal when it changes right after a renewal
+more often than after the other choices by this many standard errors (two-proportion test)."""
 
-    One warning per state: the number of units in which it changes (with example units)
-    and how many of the changes happen right after a renewal, where the renewal-robust
-    moments need it unchanged.
+
+def warn_if_not_persistent(bound: BoundModel, *, stacklevel: int = 3) -> None:
+    """Warn for each declared persistent state that the renewal appears to reset or move.
+
+    Persistent states are those a renewal does not reset: time-invariant characteristics, or
+    exogenous states that evolve whatever the choice (METHOD §4b). So a persistent state may
+    change within a unit, but it should change right after a renewal as often as after the
+    other choices. The check compares the two shares of rows (with a next row) after which the
+    state changes: it warns when it changes after renewals and either never after the other
+    choices, or more often after renewals by :data:`RATE_Z` standard errors.
     """
     panel = bound.panel
-    after = (panel.choice_codes == bound.anchor_index) & (panel.next_row >= 0)
-    i = np.flatnonzero(after)
-    j = panel.next_row[after]
+    linked = panel.next_row >= 0
+    renewal = (panel.choice_codes == bound.anchor_index) & linked
+    other = ~(panel.choice_codes == bound.anchor_index) & linked
+    if not renewal.any():
+        return
     for col in bound.model.persistent:
         values = panel.frame[col].to_numpy()
-        changed_rows = _changes_within_units(panel, values)
-        if not changed_rows.any():
+        nxt = panel.next_row
+        changed = np.zeros(values.shape[0], dtype=bool)
+        changed[linked] = values[linked] != values[nxt[linked]]
+        n_r, n_o = int(renewal.sum()), int(other.sum())
+        c_r, c_o = int(changed[renewal].sum()), int(changed[other].sum())
+        if c_r == 0:
             continue
-        units = panel.unit_codes[changed_rows]
-        n_units = int(np.unique(units).size)
-        at_renewal = int((values[i] != values[j]).sum()) if i.size else 0
-        where = f"persistent state {col!r} changes within {n_units} of {panel.n_units} units " \
-                f"(e.g. {_example_units(bound, units)})"
-        if at_renewal:
-            text = (
-                f"{where}; it changes right after a renewal in {at_renewal} of {i.size} renewal "
-                f"rows. The renewal-robust moments assume a renewal does not reset it. Remove "
-                f"it from persistent or use moments='standard'."
-            )
-        else:
-            text = (
-                f"{where}, though never right after a renewal. The renewal-robust moments take "
-                f"persistent states as characteristics a renewal does not reset; if it moves "
-                f"with the choices, remove it from persistent or use moments='standard'."
-            )
-        warnings.warn(text, OrthoCCPWarning, stacklevel=stacklevel)
+        p_r, p_o = c_r / n_r, (c_o / n_o if n_o else 0.0)
+        pooled = (c_r + c_o) / (n_r + n_o)
+        se = np.sqrt(pooled * (1 - pooled) * (1 / n_r + (1 / n_o if n_o else 0.0)))
+        z = (p_r - p_o) / se if se > 0 else np.inf
+        if c_o > 0 and z < RATE_Z:
+            continue  # it moves as often after every choice: an exogenous state
+        units = panel.unit_codes[np.flatnonzero(renewal & changed)]
+        where = (
+            f"persistent state {col!r} changes right after a renewal in {c_r} of {n_r} renewal "
+            f"rows ({p_r:.1%}; e.g. {_example_units(bound, units)}), against {c_o} of {n_o} rows "
+            f"after the other choices ({p_o:.1%})"
+        )
+        warnings.warn(
+            f"{where}: the renewal appears to reset or move it. The renewal-robust moments "
+            f"assume a renewal does not reset the persistent states. Remove it from persistent "
+            f"or use moments='standard'.",
+            OrthoCCPWarning,
+            stacklevel=stacklevel,
+        )
 
 
 @dataclass(frozen=True)
