@@ -11,7 +11,7 @@ N share their simulated panels across learners.
 Resumable: each cell is stored in ``benchmarks/results/coverage.json`` under its key
 (``ebike|N=500|logit``) after every ``--checkpoint`` replications; a rerun continues partial
 cells and skips finished ones (a larger ``--reps`` extends them). Writes the markdown table
-``benchmarks/results/coverage.md`` of the finished cells, and with matplotlib a plot per
+``benchmarks/results/coverage.md`` of the finished cells, and a plot per
 finished cell (``coverage_<cell>.png``). Learners run single-threaded; ``--jobs`` workers
 therefore use ``--jobs`` cores. Reproduce, e.g.::
 
@@ -274,11 +274,6 @@ def write_report(doc: dict[str, Any], path: Path, *, plots: bool) -> list[Path]:
         source = str(path)
     written[0].write_text(markdown(doc, source=source), encoding="utf-8")
     if plots:
-        try:
-            import matplotlib  # noqa: F401
-        except ImportError:
-            print("matplotlib is not installed: no plots (pip install 'orthoccp[plot]')")
-            return written
         for key, e in doc.get("cells", {}).items():
             if e.get("status") == "finished":
                 written.append(

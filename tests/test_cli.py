@@ -357,12 +357,12 @@ BAD_INPUTS: list[tuple[str, Case, str]] = [
     ("wrong type: discount", _spec_case("discount = 0.95", 'discount = "high"'), r"model\.discount must be a number, got 'high' \(string\)"),
     ("invalid TOML", _spec_case("folds = 3", "folds = = 3"), r"edited\.toml: not valid TOML"),
     ("unknown learner in spec", _spec_case('learner = "logit"', 'learner = "boosting"'), r"first_stage\.learner must be one of"),
-    ("bad --folds", lambda f, s, t: ["estimate", str(f["data"]), "--spec", str(s), "--folds", "1"], r"--folds must be an integer >= 2, got 1"),
+    ("bad --folds", lambda f, s, t: ["estimate", str(f["data"]), "--spec", str(s), "--folds", "1"], r"--folds must be an integer >= 3 \(the demo's nested"),
     ("unsupported extension", lambda f, s, t: ["estimate", str(t / "panel.xlsx"), "--spec", str(s)], r"unsupported extension '\.xlsx'; use \.csv or \.parquet"),
     ("empty data file", lambda f, s, t: ["estimate", str(_touch(t / "empty.csv")), "--spec", str(s)], r"empty\.csv' is empty"),
     ("simulate: bad units", lambda f, s, t: ["simulate", "ebike", "--units", "0", "--out", str(t / "x.csv")], r"units must be an integer >= 1; got 0"),
     ("demo: out not empty", lambda f, s, t: ["demo", "--out", str(f["folder"])], r"exists and is not an empty folder"),
-    ("demo: bad folds", lambda f, s, t: ["demo", "--folds", "1", "--out", str(t / "d")], r"--folds must be an integer >= 2, got 1"),
+    ("demo: bad folds", lambda f, s, t: ["demo", "--folds", "1", "--out", str(t / "d")], r"--folds must be an integer >= 3 \(the demo's nested"),
     ("compare: unknown learner", lambda f, s, t: ["compare", str(f["data"]), "--spec", str(s), "--with", "xgb"], r"--with: invalid choice: 'xgb'"),
     ("compare: repeated learner", lambda f, s, t: ["compare", str(f["data"]), "--spec", str(s), "--with", "logit", "--with", "logit"], r"--with 'logit' is given twice"),
     ("compare: baseline not compared", lambda f, s, t: ["compare", str(f["data"]), "--spec", str(s), "--with", "logit", "--baseline", "lasso_logit"], r"--baseline 'lasso_logit' is not among the first stages \(logit\); add --with lasso_logit"),
@@ -499,6 +499,47 @@ def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pyte
     capsys.readouterr()
 
 
+def test_demo_output_reads_cleanly(tmp_path: Path) -> None:
+    """What a first-time reader sees, stdout and stderr interleaved as on a terminal.
+
+    A small panel whose debiased solve falls back to the one-step estimator, so that the
+    run has warnings to place.
+    """
+    proc = subprocess.run(
+        [sys.executable, "-m", "orthoccp.cli", "demo", "--units", "400", "--periods", "6",
+         "--folds", "3", "--out", str(tmp_path / "d")],
+        stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, cwd=tmp_path,
+        env={**os.environ, "PYTHONUNBUFFERED": "1", "OMP_NUM_THREADS": "1"}, timeout=120,
+    )
+    assert proc.returncode == 0, proc.stdout
+    lines = proc.stdout.splitlines()
+    first_header = next(i for i, line in enumerate(lines) if "orthogonal (debiased) CCP estimator" in line)
+    assert not [line for line in lines[:first_header] if "warning" in line.lower()]
+    # The run's warnings (this run warns that its intervals come from the one-step estimator)
+    # are printed under it, once, and not as bare lines on stderr.
+    caution = [i for i, line in enumerate(lines) if "treat its interval with caution" in line]
+    assert len(caution) == 2 and min(caution) > first_header
+    warned = [i for i, line in enumerate(lines) if line.startswith("Warnings from ")]
+    assert all(i > first_header for i in warned)
+    assert not [line for line in lines if line.startswith("orthoccp: warning")]
+    # One plug-in value per parameter: the table's plug-in column, not a second line.
+    assert not [line for line in lines if "plug-in estimates" in line]
+    header = next(line for line in lines if line.startswith("parameter") and "truth" in line)
+    assert header.split()[2] == "plug-in"
+    for name in ("wear_cost", "swap_cost"):
+        rows = [line.split() for line in lines if line.startswith(name + " ")]
+        assert len([r for r in rows if len(r) == 8]) == 1  # the truth-vs-estimates row
+        assert len(rows) == 2  # and the summary's row, which has no plug-in value
+    assert re.search(r"\bnan\b", proc.stdout, flags=re.IGNORECASE) is None
+    # Variance shares Cov(part, psi)/Var(psi) add up to 100 % with no cross term.
+    start = next(i for i, line in enumerate(lines) if line.startswith("variance shares"))
+    for line in lines[start + 1:start + 3]:
+        name, *pairs = line.split()
+        parts = dict(zip(pairs[::2], pairs[1::2]))
+        assert set(parts) == {"m", "phi_mu", "phi_P"}, line
+        assert sum(float(v.rstrip("%")) for v in parts.values()) == pytest.approx(100.0, abs=0.1)
+
+
 # --------------------------------------------------------------------------- compare, report
 def test_compare_matches_the_api_and_writes_tables(
     files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
@@ -529,7 +570,6 @@ def test_compare_matches_the_api_and_writes_tables(
 
 
 def test_report_command(files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    pytest.importorskip("matplotlib")
     out = tmp_path / "report.html"
     argv = ["report", str(files["data"]), "--spec", str(fast_spec), "--with", "logit", "--with", "lasso_logit",
             "--out", str(out)]

@@ -87,8 +87,16 @@ def test_components_add_up_and_the_decomposition_sums_to_one(spector) -> None:  
                                 units=GROUPS, parameters=spector["names"])
     np.testing.assert_allclose(split.cov, whole.cov, rtol=1e-12)
     np.testing.assert_allclose(split.parts["a"] + split.parts["b"], split.influence, atol=1e-12)
-    assert list(split.decomposition.columns) == ["a", "b", "cross"]
+    assert list(split.decomposition.columns) == ["a", "b"]
     np.testing.assert_allclose(split.decomposition.sum(axis=1), 1.0, atol=1e-12)
+    # Bilinearity of the covariance: Cov(a, a + b) = Var(a) + Cov(a, b), so each share is the
+    # part's own variance plus half of the cross term, over the total (on the uncentred sums).
+    a, b = split.parts["a"], split.parts["b"]
+    total = ((a + b) ** 2).sum(axis=0)
+    np.testing.assert_allclose(split.decomposition["a"],
+                               ((a**2).sum(axis=0) + (a * b).sum(axis=0)) / total, rtol=1e-10)
+    np.testing.assert_allclose(split.decomposition["b"],
+                               ((b**2).sum(axis=0) + (a * b).sum(axis=0)) / total, rtol=1e-10)
     np.testing.assert_allclose(whole.decomposition["m"], 1.0)
 
 

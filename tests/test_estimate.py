@@ -75,7 +75,7 @@ def test_plugin_result_says_so_and_has_only_m(small_ebike) -> None:  # type: ign
     assert "NOT debiased" in res.summary()
     assert list(res.decomposition.columns) == ["m"]
     deb = _fit(small_ebike)
-    assert set(deb.decomposition.columns) == {"m", "phi_mu", "phi_P", "cross"}
+    assert set(deb.decomposition.columns) == {"m", "phi_mu", "phi_P"}
     np.testing.assert_allclose(deb.decomposition.sum(axis=1), 1.0)
 
 

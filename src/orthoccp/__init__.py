@@ -25,6 +25,7 @@ from .learners import learner_names
 from .model import EULER_GAMMA, Model
 from .montecarlo import MonteCarloResults, run_montecarlo
 from .nuisance import Nuisances, nuisances_from_truth
+from ._progress import set_progress
 from .report import write_report
 from .results import ASSUMPTIONS, NotApplicable, Results, RowAccounting
 from .stability import FoldStability, fold_stability
@@ -66,5 +67,6 @@ __all__ = [
     "learner_names",
     "nuisances_from_truth",
     "run_montecarlo",
+    "set_progress",
     "write_report",
 ]

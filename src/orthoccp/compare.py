@@ -26,6 +26,7 @@ import pandas as pd
 from scipy import stats
 
 from ._errors import EstimationError, InputError, OrthoCCPWarning
+from ._progress import progress_bar
 from .covariance import clustered_outer
 from .data import Panel
 from .estimate import estimate
@@ -193,6 +194,7 @@ def compare(
     first_stages: Mapping[str, Any] | None = None,
     baseline: str | None = None,
     seed: int = 0,
+    progress: bool | None = None,
     **options: Any,
 ) -> Comparison:
     """Estimate one model with several first stages and test each against a baseline.
@@ -208,6 +210,10 @@ def compare(
         Label of the reference; default the first one (put the parametric first stage first).
     seed : int, default=0
         The same seed, hence the same folds, for every first stage.
+    progress : bool, optional
+        A progress bar over the first stages on stderr. By default the session's setting
+        (:func:`orthoccp.set_progress`), else shown exactly when stderr is a terminal or the
+        call runs in a notebook.
     **options
         Passed to :func:`~orthoccp.estimate` (``folds``, ``moments``, ...); ``debias`` is
         always True.
@@ -226,17 +232,23 @@ def compare(
     results: dict[str, Results] = {}
     failed: dict[str, str] = {}
     first_error: Exception | None = None
-    for label, learner in stages.items():
-        regressor = None
-        if isinstance(learner, tuple):
-            learner, regressor = learner
-        try:
-            results[label] = estimate(
-                panel, model, learner=learner, regressor=regressor, seed=seed, **options
-            )
-        except (EstimationError, InputError) as exc:
-            failed[label] = str(exc)
-            first_error = first_error or exc
+    bar = progress_bar(len(stages), desc="first stages", unit="fit", progress=progress)
+    try:
+        for label, learner in stages.items():
+            bar.set_postfix_str(label, refresh=True)
+            regressor = None
+            if isinstance(learner, tuple):
+                learner, regressor = learner
+            try:
+                results[label] = estimate(
+                    panel, model, learner=learner, regressor=regressor, seed=seed, **options
+                )
+            except (EstimationError, InputError) as exc:
+                failed[label] = str(exc)
+                first_error = first_error or exc
+            bar.update()
+    finally:
+        bar.close()
     if not results:
         assert first_error is not None
         raise first_error  # every first stage failed: the input, not one learner, is at fault

@@ -53,7 +53,8 @@ class CovarianceEstimate:
     factor : float
         Small-sample factor c.
     decomposition : pandas.DataFrame
-        Share of each parameter's variance from each moment component, their cross terms and
+        Share of each parameter's variance from each moment component,
+        :math:`\\mathrm{Cov}(\\psi^{(k)}, \\psi)/\\mathrm{Var}(\\psi)` (they add up to one), and from
         each added variance component.
     name : str
         The covariance's name in the registry.
@@ -184,12 +185,10 @@ def estimate_covariance(
     pieces = {k: _sum_by(clusters, v) @ -Ginv.T for k, v in components.items()}
     influence = np.sum(np.stack(list(pieces.values())), axis=0)
     cov, factor = clustered_outer(influence, small_sample=small_sample)
+    # Each component's share is Cov(component, psi) / Var(psi) on the same (uncentred) outer
+    # product as the covariance: the components add up to psi, so the shares add up to one.
     total = np.diag(cov) / factor
-    shares = {}
-    for k, v in pieces.items():
-        shares[k] = (v**2).sum(axis=0) / total
-    if len(pieces) > 1:
-        shares["cross"] = 1.0 - sum(shares.values())
+    shares = {k: (v * influence).sum(axis=0) / total for k, v in pieces.items()}
     if added:
         sandwich = np.diag(cov)
         cov = cov + sum(added.values())

@@ -7,8 +7,10 @@ The style is meant for print: black-and-grey lines, readable fonts, no chart jun
 
 from __future__ import annotations
 
+import functools
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -20,18 +22,50 @@ from .results import Results
 __all__ = ["calibration_plot", "overlap_plot", "coefficient_plot", "variance_plot"]
 
 
-def _plt() -> Any:
+_STYLE = {"font.size": 9, "axes.spines.top": False, "axes.spines.right": False}
+
+
+def matplotlib_figure_class() -> Any:
+    """matplotlib's ``Figure`` class, or an error that says how to repair the install.
+
+    matplotlib is a dependency of orthoccp, so this fails only in a broken environment.
+    The figures are drawn on the non-interactive Agg canvas: the user's pyplot backend and
+    open windows are left alone.
+    """
     try:
+        from matplotlib.figure import Figure
+    except ImportError as exc:  # pragma: no cover - depends on the environment
+        raise ImportError(
+            f"the figures need matplotlib, a dependency of orthoccp that failed to import "
+            f"({exc}); repair the environment with pip install 'matplotlib>=3.7'."
+        ) from exc
+    return Figure
+
+
+def _subplots(nrows: int = 1, ncols: int = 1, *, figsize: tuple[float, float],
+              squeeze: bool = True) -> tuple[Any, Any]:
+    """A new figure on the Agg canvas and its axes (the library never uses pyplot's state)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    fig = matplotlib_figure_class()(figsize=figsize)
+    FigureCanvasAgg(fig)
+    return fig, fig.subplots(nrows, ncols, squeeze=squeeze)
+
+
+_F = TypeVar("_F", bound=Callable[..., Any])
+
+
+def _styled(draw: _F) -> _F:
+    """Draw under the figures' style without changing the user's matplotlib settings."""
+
+    @functools.wraps(draw)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
         import matplotlib
 
-        matplotlib.use("Agg", force=False)
-        import matplotlib.pyplot as plt
-    except ImportError as exc:  # pragma: no cover - depends on the environment
-        raise InputError(
-            "figures need matplotlib; install it with pip install 'orthoccp[plot]'."
-        ) from exc
-    plt.rcParams.update({"font.size": 9, "axes.spines.top": False, "axes.spines.right": False})
-    return plt
+        with matplotlib.rc_context(_STYLE):
+            return draw(*args, **kwargs)
+
+    return wrapper  # type: ignore[return-value]
 
 
 def _save(fig: Any, path: str | Path | None) -> Any:
@@ -50,12 +84,12 @@ def _diagnostics(res: Results) -> Any:
     return res.diagnostics
 
 
+@_styled
 def calibration_plot(res: Results, *, path: str | Path | None = None) -> Any:
     """Out-of-fold predicted vs observed choice shares by decile, one panel per choice."""
-    plt = _plt()
     cal = _diagnostics(res).calibration
     choices = list(dict.fromkeys(cal["choice"]))
-    fig, axes = plt.subplots(1, len(choices), figsize=(3.2 * len(choices), 3.0), squeeze=False)
+    fig, axes = _subplots(1, len(choices), figsize=(3.2 * len(choices), 3.0), squeeze=False)
     for ax, c in zip(axes[0], choices):
         d = cal[cal["choice"] == c]
         se = np.sqrt(np.clip(d["observed"] * (1 - d["observed"]), 1e-12, None) / d["rows"])
@@ -70,11 +104,11 @@ def calibration_plot(res: Results, *, path: str | Path | None = None) -> Any:
     return _save(fig, path)
 
 
+@_styled
 def overlap_plot(res: Results, ccp: np.ndarray | None = None, *, path: str | Path | None = None) -> Any:
     """Quantiles of the fitted CCPs per choice on a log scale, with the clip bound."""
-    plt = _plt()
     ov = _diagnostics(res).overlap
-    fig, ax = plt.subplots(figsize=(4.5, 0.6 + 0.5 * len(ov)))
+    fig, ax = _subplots(figsize=(4.5, 0.6 + 0.5 * len(ov)))
     for i, (c, r) in enumerate(ov.iterrows()):
         ax.plot([r["q01"], r["q99"]], [i, i], color="black", lw=2)
         ax.plot([r["min_next"]], [i], marker="|", color="grey", ms=10)
@@ -88,12 +122,12 @@ def overlap_plot(res: Results, ccp: np.ndarray | None = None, *, path: str | Pat
     return _save(fig, path)
 
 
+@_styled
 def coefficient_plot(comparison: Comparison, *, level: float = 0.95, path: str | Path | None = None) -> Any:
     """Estimates with intervals across first stages, one row per parameter."""
-    plt = _plt()
     labels = list(comparison.results)
     params = list(comparison.results[labels[0]].params.index)
-    fig, axes = plt.subplots(1, len(params), figsize=(3.0 * len(params), 0.6 + 0.45 * len(labels)), squeeze=False)
+    fig, axes = _subplots(1, len(params), figsize=(3.0 * len(params), 0.6 + 0.45 * len(labels)), squeeze=False)
     for ax, p in zip(axes[0], params):
         for i, lab in enumerate(labels):
             r = comparison.results[lab]
@@ -108,28 +142,29 @@ def coefficient_plot(comparison: Comparison, *, level: float = 0.95, path: str |
     return _save(fig, path)
 
 
+@_styled
 def variance_plot(res: Results, *, path: str | Path | None = None) -> Any:
-    """Stacked shares of each parameter's variance by moment component."""
-    plt = _plt()
+    """Shares of each parameter's variance by moment component, Cov(part, psi)/Var(psi).
+
+    The shares add up to one; a negative share (a part that offsets the others) is drawn to
+    the left of zero.
+    """
     dec = res.decomposition
-    fig, ax = plt.subplots(figsize=(4.5, 1.4 + 0.45 * len(dec)))
+    fig, ax = _subplots(figsize=(4.5, 1.4 + 0.45 * len(dec)))
     greys = ["0.15", "0.45", "0.7"]
     y = np.arange(len(dec))
-    own = [c for c in dec.columns if c != "cross"]
-    left = np.zeros(len(dec))
-    for col, g in zip(own, greys):
-        vals = dec[col].to_numpy()
-        ax.barh(y, vals, left=left, color=g, edgecolor="black", lw=0.5, label=col)
-        left += vals
-    if "cross" in dec.columns:
-        cross = dec["cross"].to_numpy()
-        # Cross terms start at zero: negative ones extend to the left of the axis.
-        ax.barh(y, cross, left=np.where(cross < 0, 0.0, left), color="white", edgecolor="black",
-                hatch="///", lw=0.5, label="cross terms")
+    right, left = np.zeros(len(dec)), np.zeros(len(dec))
+    for k, col in enumerate(dec.columns):
+        vals = dec[col].to_numpy(dtype=float)
+        start = np.where(vals < 0, left, right)  # positive shares stack right, negative left
+        ax.barh(y, vals, left=start, color=greys[k % len(greys)], edgecolor="black", lw=0.5,
+                hatch="" if k < len(greys) else "///", label=col)
+        right += np.where(vals > 0, vals, 0.0)
+        left += np.where(vals < 0, vals, 0.0)
     ax.axvline(1.0, color="grey", ls="--", lw=0.8)
     ax.axvline(0.0, color="black", lw=0.6)
     ax.set_yticks(y, [str(i) for i in dec.index])
-    ax.set_xlabel("share of variance (all parts add up to 1, dashed line)")
+    ax.set_xlabel("share of variance, Cov(part, ψ)/Var(ψ) (the parts add up to 1, dashed line)")
     ax.legend(frameon=False, fontsize=8, ncol=4, loc="lower center", bbox_to_anchor=(0.5, 1.02))
     fig.suptitle("Where the variance comes from")
     fig.tight_layout()

@@ -128,7 +128,9 @@ class Results:
         standard errors ignore first-stage estimation noise.
     decomposition : pandas.DataFrame
         Share of each parameter's variance from the identifying moment ``m``, the continuation
-        correction ``phi_mu``, the CCP correction ``phi_P`` and their ``cross`` terms.
+        correction ``phi_mu`` and the CCP correction ``phi_P``: each component's covariance
+        with the influence term over its variance, so the shares add up to one (a share is
+        negative when the component offsets the others).
     influence : numpy.ndarray
         Per-unit influence terms (n_units x p); ``cov`` is their outer-product sum times the
         small-sample factor. ``influence_units`` holds the matching unit labels.
@@ -247,8 +249,17 @@ class Results:
             return "orthogonal (debiased) CCP estimator"
         return "plug-in CCP estimator (NOT debiased; standard errors ignore first-stage noise)"
 
-    def summary(self, level: float = 0.95) -> str:
-        """Plain-text summary: estimates, sample, first stage, variance sources, assumptions."""
+    def summary(self, level: float = 0.95, *, plugin: bool = True) -> str:
+        """Plain-text summary: estimates, sample, first stage, variance sources, assumptions.
+
+        Parameters
+        ----------
+        level : float, default=0.95
+            Confidence level of the intervals.
+        plugin : bool, default=True
+            Include the line with the plug-in estimates that the debiased solve starts from
+            (leave it out when a separate plug-in estimate is shown beside the summary).
+        """
         t = self.to_frame(level)
         pct = int(round(level * 100))
         head = f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}{f'[{pct}% conf. int.]':>24}"
@@ -300,16 +311,25 @@ class Results:
             lines.append(f"solution: {self.solution}")
             for k, note in enumerate(self.solve_notes):
                 if note:
-                    lines.append(f"  split {k + 1}: {note}")
+                    lines.append(f"  split {k + 1}: {' '.join(note.split())}")
         stepped = "model-implied" in self.nuisance_source
-        if self.plugin_params is not None and (self.debiased or stepped):
-            label = ("plug-in estimates (the learner's first stage, before the model-implied "
-                     "steps): " if stepped else "plug-in estimates: ")
+        if plugin and self.plugin_params is not None and (self.debiased or stepped):
+            if stepped:
+                label = ("plug-in estimates (the learner's first stage, before the model-implied "
+                         "steps): ")
+            elif self.moments == "renewal_robust":
+                label = ("plug-in estimates (start of the solve; the anchor's continuation is fit "
+                         "on the persistent states only, as the renewal-robust moment needs): ")
+            else:
+                label = "plug-in estimates (start of the solve): "
             lines.append(
                 label + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items())
             )
         if self.decomposition.shape[1] > 1:
-            lines.append("variance shares (m: identifying moment, phi_mu: continuation correction, phi_P: CCP correction):")
+            lines.append(
+                "variance shares, Cov(part, psi)/Var(psi), adding up to 100% (m: identifying "
+                "moment, phi_mu: continuation correction, phi_P: CCP correction):"
+            )
             for name, r in self.decomposition.iterrows():
                 lines.append(
                     f"  {str(name):<16}" + "  ".join(f"{c} {v:6.1%}" for c, v in r.items())

@@ -19,6 +19,7 @@ deserve repeated cross-fitting.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import warnings
 from dataclasses import dataclass
@@ -28,6 +29,7 @@ import numpy as np
 import pandas as pd
 
 from ._errors import InputError
+from ._progress import progress_bar
 from .data import Panel
 from .estimate import _check_options, _check_scheme, _choose_moments, estimate
 from .folds import unit_folds
@@ -110,6 +112,7 @@ def fold_stability(
     seed: int = 0,
     scheme: str = "nested",
     clip: float = 1e-4,
+    progress: bool | None = None,
     **options: Any,
 ) -> FoldStability:
     """Refit each fold's first stage with another seed and re-estimate (debiased).
@@ -120,6 +123,10 @@ def fold_stability(
         As for :func:`~orthoccp.estimate`.
     learner, regressor, folds, seed, scheme, clip
         As for :func:`~orthoccp.estimate`; the fold split is the one ``seed`` draws there.
+    progress : bool, optional
+        A progress bar over the two first-stage fits and the re-estimates on stderr. By
+        default the session's setting (:func:`orthoccp.set_progress`), else shown exactly
+        when stderr is a terminal or the call runs in a notebook.
     **options
         Further :func:`~orthoccp.estimate` options (``moments``, ``cov``, ``small_sample``).
 
@@ -161,30 +168,37 @@ def fold_stability(
             scheme=scheme, clip=float(clip), anchor_features=fcols,  # type: ignore[arg-type]
         )
 
-    fold_of_row, base = fit(None)
-    _, refit = fit(np.random.default_rng([int(seed), 1]))
-    common = dict(
-        learner=learner, regressor=regressor, folds=folds, seed=seed, scheme=scheme, clip=clip,
-        moments=moments, **options,
-    )
-    # The reference raises the data's warnings once; the per-fold re-solves stay quiet.
-    reference = estimate(panel, model, nuisances=base, **common)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        rows = []
-        for k in range(int(folds)):
-            spliced = _splice(base, refit, np.flatnonzero(fold_of_row == k))
-            res = estimate(panel, model, nuisances=spliced, **common)
-            for name in reference.params.index:
-                change = float(res.params[name] - reference.params[name])
-                rows.append(
-                    {
-                        "fold": k,
-                        "parameter": name,
-                        "estimate": float(res.params[name]),
-                        "change": change,
-                        "change_se": change / float(reference.std_errors[name]),
-                    }
-                )
+    bar = progress_bar(int(folds) + 3, desc="fold stability", unit="step", progress=progress)
+    with contextlib.closing(bar):
+        fold_of_row, base = fit(None)
+        bar.update()
+        _, refit = fit(np.random.default_rng([int(seed), 1]))
+        bar.update()
+        common = dict(
+            learner=learner, regressor=regressor, folds=folds, seed=seed, scheme=scheme,
+            clip=clip, moments=moments, **options,
+        )
+        # The reference raises the data's warnings once.
+        reference = estimate(panel, model, nuisances=base, **common)
+        bar.update()
+        # The per-fold re-solves stay quiet.
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            rows = []
+            for k in range(int(folds)):
+                spliced = _splice(base, refit, np.flatnonzero(fold_of_row == k))
+                res = estimate(panel, model, nuisances=spliced, **common)
+                for name in reference.params.index:
+                    change = float(res.params[name] - reference.params[name])
+                    rows.append(
+                        {
+                            "fold": k,
+                            "parameter": name,
+                            "estimate": float(res.params[name]),
+                            "change": change,
+                            "change_se": change / float(reference.std_errors[name]),
+                        }
+                    )
+                bar.update()
     table = pd.DataFrame(rows).set_index(["fold", "parameter"])
     return FoldStability(reference=reference, table=table)

@@ -5,8 +5,10 @@ from __future__ import annotations
 import argparse
 import shlex
 import sys
+import warnings
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import pandas as pd
 
@@ -28,11 +30,22 @@ from ._plumbing import (
     PROG,
     _display_path,
     _dumps,
+    _one_line,
     _output_path,
     _Progress,
     _write_text,
     results_payload,
 )
+
+
+def _require_matplotlib(what: str) -> None:
+    """Fail before the work when matplotlib (a dependency) does not import."""
+    from ..figures import matplotlib_figure_class
+
+    try:
+        matplotlib_figure_class()
+    except ImportError as exc:
+        raise oc.InputError(f"{what}: {exc}") from exc
 
 
 # --------------------------------------------------------------------------- spec from a simulation
@@ -270,13 +283,7 @@ def _cmd_report(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.suffix.lower() not in (".html", ".htm"):
         raise oc.InputError(f"--out {args.out!r} must be an .html file name.")
-    try:
-        import matplotlib  # noqa: F401
-    except ImportError as exc:
-        raise oc.InputError(
-            "the report's figures need matplotlib, an optional dependency: pip install "
-            "'orthoccp[plot]' (or pip install matplotlib)."
-        ) from exc
+    _require_matplotlib("the report's figures")
     _, panel, model, options, cmp = _run_comparison(args, progress, {"--out": out})
     stability = {}
     if args.stability:
@@ -382,20 +389,64 @@ def _comparison_table(
         )
     lines.append("-" * len(head))
     lines.append(
+        "plug-in: a separate run of the uncorrected standard moment on the same learner and "
+        "folds; debiased: the summary above."
+    )
+    lines.append(
         "The plug-in standard errors treat the cross-fitted CCPs as known; the debiased "
         "(orthogonal) estimator's standard errors include the first-stage noise."
     )
     return "\n".join(lines)
 
 
+_T = TypeVar("_T")
+
+
+def _with_warnings(run: Callable[[], _T]) -> tuple[_T, list[str]]:
+    """Run ``run`` and keep orthoccp's warnings (one line each, once) to print under its output.
+
+    Other warnings are passed on to the command's handler (shown with ``--debug``).
+    """
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        value = run()
+    lines: list[str] = []
+    for w in caught:
+        if issubclass(w.category, oc.OrthoCCPWarning):
+            text = _one_line(str(w.message))
+            if text not in lines:
+                lines.append(text)
+        else:
+            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+    return value, lines
+
+
+def _print_warnings(run: str, lines: list[str], *, shown: str = "") -> None:
+    """The warnings of one run, under that run's output and naming it.
+
+    A warning whose text the output above already printed (``shown``) is not repeated.
+    """
+    shown = _one_line(shown)
+    new = [t for t in lines if t.split(" [first stage ")[0].rstrip(".") not in shown]
+    if new:
+        print(f"Warnings from {run}:")
+        for text in new:
+            print(f"  - {text}")
+
+
 def _cmd_demo(args: argparse.Namespace) -> int:
     from ..simulate import simulate
 
     progress = _Progress()
-    if args.folds < 2:
-        raise oc.InputError(f"--folds must be an integer >= 2, got {args.folds}.")
+    if args.folds < 3:
+        raise oc.InputError(
+            f"--folds must be an integer >= 3 (the demo's nested cross-fitting fits the CCP on "
+            f"the folds outside each pair), got {args.folds}."
+        )
     progress.stage(f"simulating {DEMO_SCENARIO!r}: {args.units} units x {args.periods} periods")
-    sim = simulate(DEMO_SCENARIO, units=args.units, periods=args.periods, seed=args.seed)
+    sim, sim_warnings = _with_warnings(
+        lambda: simulate(DEMO_SCENARIO, units=args.units, periods=args.periods, seed=args.seed)
+    )
     folder = _demo_folder(args.out)
     data_path = folder / f"{DEMO_SCENARIO}.csv"
     spec_path = folder / f"{DEMO_SCENARIO}.toml"
@@ -413,17 +464,24 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     model = spec.build_model(panel)
     options = spec.estimate_options()
     progress.stage(f"estimating (debiased) with {args.learner}, {args.folds} folds")
-    debiased = oc.estimate(panel, model, **{**options, "debias": True})
+    debiased, debiased_warnings = _with_warnings(
+        lambda: oc.estimate(panel, model, **{**options, "debias": True})
+    )
     progress.stage("estimating (plug-in)")
     plugin_options = {k: v for k, v in options.items() if k != "moments"}
-    plugin = oc.estimate(panel, model, **{**plugin_options, "debias": False})
+    plugin, plugin_warnings = _with_warnings(
+        lambda: oc.estimate(panel, model, **{**plugin_options, "debias": False})
+    )
     report_path = None
+    parametric_warnings: list[str] = []
     if args.learner != "logit":
         from ..compare import Comparison, difference_test
         from ..report import write_report
 
         progress.stage("estimating (debiased) with the parametric logit first stage")
-        parametric = oc.estimate(panel, model, **{**options, "learner": "logit", "debias": True})
+        parametric, parametric_warnings = _with_warnings(
+            lambda: oc.estimate(panel, model, **{**options, "learner": "logit", "debias": True})
+        )
         cmp = Comparison(
             results={"logit": parametric, args.learner: debiased},
             baseline="logit",
@@ -438,10 +496,17 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         f"{sim.unit}s x {args.periods} {sim.period}s, seed {args.seed}); wrote "
         f"{_display_path(data_path)} ({len(sim.data)} rows) and {_display_path(spec_path)}"
     )
+    _print_warnings("the simulation", sim_warnings)
     print()
-    print(debiased.summary())
+    # The plug-in estimate is shown once, in the table below, from its own run.
+    summary = debiased.summary(plugin=False)
+    print(summary)
+    _print_warnings(f"the debiased {args.learner} run (the summary above)", debiased_warnings,
+                    shown=summary)
     print()
     print(_comparison_table(dict(sim.truth), plugin, debiased))
+    _print_warnings(f"the plug-in {args.learner} run (the table's plug-in columns)",
+                    plugin_warnings)
     print()
     print(
         f"Finished in {progress.elapsed:.1f}s. Rerun the debiased estimate on the same files with:"
@@ -453,6 +518,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
             f"Wrote {_display_path(report_path)}: {args.learner} against the parametric logit "
             f"first stage, with diagnostics and figures (open it in a browser)."
         )
+        _print_warnings("the parametric logit run (in the report only)", parametric_warnings)
     return 0
 
 
@@ -487,14 +553,7 @@ def _cmd_montecarlo(args: argparse.Namespace) -> int:
     check_outputs({"--out": out, "the summary CSV written beside --out": csv_path,
                    "--replications": raw_path, "--plot": plot_path})
     if plot_path is not None:
-        # Fail now rather than after a long run.
-        try:
-            import matplotlib  # noqa: F401
-        except ImportError as exc:
-            raise oc.InputError(
-                "--plot needs matplotlib, an optional dependency: pip install "
-                "'orthoccp[plot]' (or pip install matplotlib), or leave out --plot."
-            ) from exc
+        _require_matplotlib("--plot")  # fail now rather than after a long run
     moments = None if args.moments == "auto" else args.moments
     units, periods = args.units, args.periods
     if units is None or periods is None:

@@ -43,7 +43,7 @@ examples:
 The folder receives ebike.csv (the panel) and ebike.toml (its spec, with the true
 parameters in a comment); the demo prints the command that reruns the estimate on them.
 Unless --learner is logit, it also writes report.html: the learner against the parametric
-logit first stage, the truth, diagnostics and figures (figures need matplotlib).
+logit first stage, the truth, diagnostics and figures.
 """
 
 _SIMULATE_EPILOG = """\
@@ -470,7 +470,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--plot",
         metavar="FILE.png",
         default=None,
-        help="also write the coverage and interval-length plot (PNG; needs matplotlib)",
+        help="also write the coverage and interval-length plot (PNG)",
     )
     mc.set_defaults(handler=_cmd_montecarlo)
     return parser

@@ -372,9 +372,11 @@ class MonteCarloResults:
         Raises
         ------
         ImportError
-            When matplotlib (the optional ``plot`` dependency) is not installed.
+            When matplotlib, a dependency, fails to import (a broken environment).
         """
-        Figure = _matplotlib_figure()
+        from ..figures import matplotlib_figure_class
+
+        Figure = matplotlib_figure_class()
         s = self.settings
         summary = self.summary
         params = list(self.truth)
@@ -481,14 +483,3 @@ def _wilson(share: np.ndarray, n: np.ndarray, z: float) -> tuple[np.ndarray, np.
         centre = (share + z**2 / (2 * n)) / denom
         half = z * np.sqrt(share * (1 - share) / n + z**2 / (4 * n**2)) / denom
     return np.clip(centre - half, 0, 1), np.clip(centre + half, 0, 1)
-
-
-def _matplotlib_figure() -> Any:
-    try:
-        from matplotlib.figure import Figure
-    except ImportError as exc:
-        raise ImportError(
-            "the Monte Carlo plot needs matplotlib, an optional dependency: install it with "
-            "pip install 'orthoccp[plot]' (or pip install matplotlib)."
-        ) from exc
-    return Figure

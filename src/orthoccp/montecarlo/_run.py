@@ -1,15 +1,15 @@
-"""The Monte Carlo entry point: replications in parallel, with a progress counter."""
+"""The Monte Carlo entry point: replications in parallel, with a progress bar."""
 
 from __future__ import annotations
 
 import numbers
 import os
-import sys
 import time
 from collections.abc import Callable, Iterable, Iterator, Sequence
-from typing import Any, TextIO
+from typing import Any
 
 from .._errors import InputError
+from .._progress import progress_bar
 from ._replicate import run_replication
 from ._results import MonteCarloResults, _replications_frame
 from ._settings import (
@@ -21,37 +21,6 @@ from ._settings import (
 )
 
 
-# --------------------------------------------------------------------------- progress
-class _Counter:
-    """``k/n replications`` on one stderr line, rewritten in place; only on a terminal."""
-
-    def __init__(self, total: int, *, enabled: bool | None, stream: TextIO | None = None) -> None:
-        self.stream = stream if stream is not None else sys.stderr
-        if enabled is None:
-            isatty = getattr(self.stream, "isatty", None)
-            enabled = bool(isatty()) if callable(isatty) else False
-        self.enabled = enabled
-        self.total = total
-        self.done = 0
-        self.start = time.perf_counter()
-
-    def step(self) -> None:
-        self.done += 1
-        if self.enabled:
-            elapsed = time.perf_counter() - self.start
-            eta = elapsed / self.done * (self.total - self.done)
-            self.stream.write(
-                f"\rorthoccp montecarlo: {self.done}/{self.total} replications "
-                f"({elapsed:.0f} s, about {eta:.0f} s left)   "
-            )
-            self.stream.flush()
-
-    def close(self) -> None:
-        if self.enabled and self.done:
-            self.stream.write("\n")
-            self.stream.flush()
-
-
 def _workers(jobs: int) -> int:
     if isinstance(jobs, bool) or not isinstance(jobs, numbers.Integral) or not (
         jobs >= 1 or jobs == -1
@@ -61,12 +30,12 @@ def _workers(jobs: int) -> int:
 
 
 def _map_replications(
-    settings: MonteCarloSettings, reps: Sequence[int], jobs: int, counter: _Counter
+    settings: MonteCarloSettings, reps: Sequence[int], jobs: int, counter: Any
 ) -> Iterator[list[dict[str, Any]]]:
     if jobs == 1 or len(reps) == 1:
         for r in reps:
             out = run_replication(settings, r)
-            counter.step()
+            counter.update()
             yield out
         return
     from joblib import Parallel, delayed
@@ -80,7 +49,7 @@ def _map_replications(
             delayed(run_replication)(settings, r) for r in reps
         )
     for out in results:
-        counter.step()
+        counter.update()
         yield out
 
 
@@ -147,7 +116,9 @@ def run_montecarlo(
         run, so a run can be continued in parts and joined with
         :meth:`MonteCarloResults.concat`.
     progress : bool, optional
-        A counter line on stderr; by default exactly when stderr is a terminal.
+        A progress bar on stderr. By default the session's setting
+        (:func:`orthoccp.set_progress`), else shown exactly when stderr is a terminal or the
+        call runs in a notebook.
     on_replication : callable, optional
         Called in the main process with each finished replication's records (in completion
         order), e.g. to save progress.
@@ -203,7 +174,7 @@ def run_montecarlo(
     _check_settings(settings)
     t0 = time.perf_counter()
     indices = range(first_rep, first_rep + reps)
-    counter = _Counter(len(indices), enabled=progress)
+    counter = progress_bar(len(indices), desc="Monte Carlo", unit="rep", progress=progress)
     records: list[dict[str, Any]] = []
     try:
         for out in _map_replications(settings, indices, workers, counter):
