@@ -351,6 +351,22 @@ def _headline_cell(key: str) -> dict[str, dict[str, Any]]:
     return by_estimator
 
 
+def test_readme_is_short_with_one_table_that_matches_its_json() -> None:
+    """The README is a newcomer's page: at most 150 lines and one results table, the headline
+    Monte Carlo cell, whose numbers are coverage.json's (the rest lives in docs/validation.md)."""
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    assert len(readme.splitlines()) <= 150
+    tables = _tables(readme)
+    assert len(tables) == 1
+    _check_mc_rows(
+        tables[0], _headline_cell("ebike|N=2000|lightgbm"),
+        {"plug-in (cross-fitted, uncorrected)": "naive",
+         "debiased (renewal-robust, the default)": "debiased", "oracle (exact nuisances)": "oracle"},
+        [(p, k) for p in ("wear_cost", "swap_cost") for k in ("bias", "sd", "mean_se", "rmse", "coverage")],
+    )
+    assert len(tables[0]) == 3
+
+
 def test_monte_carlo_tables_match_their_json() -> None:
     w, s = "wear_cost", "swap_cost"
     by_estimator = _headline_cell("ebike|N=2000|lightgbm")
@@ -444,7 +460,8 @@ def test_discrete_tables_match_their_json() -> None:
 
 
 def test_sieve_table_matches_its_json() -> None:
-    """docs/validation.md and the README quote benchmarks/results/sieve_reference.json."""
+    """docs/validation.md (the full table and the README's former summary) quotes
+    benchmarks/results/sieve_reference.json."""
     grids = {g["config"]["n_states"]: g["summary"] for g in _json("sieve_reference.json")["grids"].values()}
     names = {"full-solution MLE": "nfxp", "one step from cell frequencies": "pml_frequency",
              "one step from the logit sieve": "pml_sieve", "one step from LightGBM": "pml_lightgbm"}
@@ -462,15 +479,19 @@ def test_sieve_table_matches_its_json() -> None:
         if row["estimator"] != "full-solution MLE":
             _assert_printed(row["speed-up, from a built Panel"],
                             stats["from_panel_speedup_vs_nfxp"], where)
-    readme = (ROOT / "README.md").read_text(encoding="utf-8")
-    text = readme[readme.index("**Smooth starting CCPs against the MLE.**"):]
-    for row in _tables(text)[0]:
+    summary = _validation_table("### In brief: smooth starting CCPs against the MLE")
+    assert len(summary) == len(grids)
+    for row in summary:
         stats = grids[int(row["states"])]["pml_sieve"]
-        _assert_printed(row["RMSE / MLE's, RC"], stats["RC"]["rmse_ratio_to_nfxp"], "README")
-        _assert_printed(row["θ11"], stats["theta11"]["rmse_ratio_to_nfxp"], "README")
+        where = f"summary {row['states']}"
+        _assert_printed(row["RMSE / MLE's, RC"], stats["RC"]["rmse_ratio_to_nfxp"], where)
+        _assert_printed(row["θ11"], stats["theta11"]["rmse_ratio_to_nfxp"], where)
+        coverage_rc, coverage_theta = row["coverage RC / θ11"].split(" / ")
+        _assert_printed(coverage_rc, stats["RC"]["coverage_95"], where)
+        _assert_printed(coverage_theta, stats["theta11"]["coverage_95"], where)
         _assert_printed(row["speed-up vs MLE (from the DataFrame)"], stats["speedup_vs_nfxp"],
-                        "README")
-        _assert_printed(row["on a built Panel"], stats["from_panel_speedup_vs_nfxp"], "README")
+                        where)
+        _assert_printed(row["on a built Panel"], stats["from_panel_speedup_vs_nfxp"], where)
 
 
 def test_scaling_table_matches_its_json() -> None:
@@ -552,12 +573,12 @@ def test_oracle_moment_table_matches_its_json() -> None:
             ("corrected-moment oracle bias / SD", "bias_over_sd_oracle_debiased"),
         ]:
             _assert_printed(row[column], stats[key], where)
-    readme = (ROOT / "README.md").read_text(encoding="utf-8")
-    text = readme[readme.index("**What the corrected moment can do at best**"):]
-    for row in _tables(text)[0]:
+    summary = _validation_table("### In brief: the corrected moment at best")
+    assert len(summary) == 7
+    for row in summary:
         cell = cells[f"{row['design']}|N=2000|lightgbm"]
         stats = {r["parameter"]: r for r in cell["paired"]["parameters"]}[row["parameter"]]
-        where = f"README {row['design']} {row['parameter']}"
+        where = f"summary {row['design']} {row['parameter']}"
         _assert_printed(row["corrected moment at exact nuisances / oracle"],
                         stats["price_of_unknown_ccp"], where)
         _assert_printed(row["debiased / corrected moment at exact nuisances"],
