@@ -357,7 +357,7 @@ BAD_INPUTS: list[tuple[str, Case, str]] = [
     ("wrong type: discount", _spec_case("discount = 0.95", 'discount = "high"'), r"model\.discount must be a number, got 'high' \(string\)"),
     ("invalid TOML", _spec_case("folds = 3", "folds = = 3"), r"edited\.toml: not valid TOML"),
     ("unknown learner in spec", _spec_case('learner = "logit"', 'learner = "boosting"'), r"first_stage\.learner must be one of"),
-    ("bad --folds", lambda f, s, t: ["estimate", str(f["data"]), "--spec", str(s), "--folds", "1"], r"--folds must be an integer >= 3 \(the demo's nested"),
+    ("bad --folds", lambda f, s, t: ["estimate", str(f["data"]), "--spec", str(s), "--folds", "1"], r"--folds must be an integer >= 2, got 1"),
     ("unsupported extension", lambda f, s, t: ["estimate", str(t / "panel.xlsx"), "--spec", str(s)], r"unsupported extension '\.xlsx'; use \.csv or \.parquet"),
     ("empty data file", lambda f, s, t: ["estimate", str(_touch(t / "empty.csv")), "--spec", str(s)], r"empty\.csv' is empty"),
     ("simulate: bad units", lambda f, s, t: ["simulate", "ebike", "--units", "0", "--out", str(t / "x.csv")], r"units must be an integer >= 1; got 0"),
@@ -531,6 +531,7 @@ def test_demo_output_reads_cleanly(tmp_path: Path) -> None:
         assert len([r for r in rows if len(r) == 8]) == 1  # the truth-vs-estimates row
         assert len(rows) == 2  # and the summary's row, which has no plug-in value
     assert re.search(r"\bnan\b", proc.stdout, flags=re.IGNORECASE) is None
+    assert "persistent states x0, x1, x2, ..., x29 (30 states);" in proc.stdout  # not all 30
     # Variance shares Cov(part, psi)/Var(psi) add up to 100 % with no cross term.
     start = next(i for i, line in enumerate(lines) if line.startswith("variance shares"))
     for line in lines[start + 1:start + 3]:

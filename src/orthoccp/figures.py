@@ -164,7 +164,8 @@ def variance_plot(res: Results, *, path: str | Path | None = None) -> Any:
     ax.axvline(1.0, color="grey", ls="--", lw=0.8)
     ax.axvline(0.0, color="black", lw=0.6)
     ax.set_yticks(y, [str(i) for i in dec.index])
-    ax.set_xlabel("share of variance, Cov(part, ψ)/Var(ψ) (the parts add up to 1, dashed line)")
+    ax.set_xlabel("share of variance, Cov(part, ψ)/Var(ψ); the parts add up to 1\n"
+                  "(dashed line), a negative part is drawn left of 0")
     ax.legend(frameon=False, fontsize=8, ncol=4, loc="lower center", bbox_to_anchor=(0.5, 1.02))
     fig.suptitle("Where the variance comes from")
     fig.tight_layout()

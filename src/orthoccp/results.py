@@ -27,6 +27,13 @@ ASSUMPTIONS = (
 """The model's assumptions; the intervals' coverage holds only under them."""
 
 
+def _short_list(names: list[str], *, limit: int = 6) -> str:
+    """Names joined by commas; a long list shows its first three and last name and the count."""
+    if len(names) <= limit:
+        return ", ".join(names)
+    return f"{', '.join(names[:3])}, ..., {names[-1]} ({len(names)} states)"
+
+
 @dataclass(frozen=True)
 class NotApplicable:
     """Marker for a statistic that does not apply, with the reason."""
@@ -293,7 +300,7 @@ class Results:
         if self.moments == "renewal_robust":
             lines.append(
                 "moments: renewal_robust (instruments residualised on the persistent states "
-                + ", ".join(self.model.get("persistent", []))
+                + _short_list([str(x) for x in self.model.get("persistent", [])])
                 + "; assumes a renewal does not reset them)"
             )
             for name, why in self.fallback.items():
