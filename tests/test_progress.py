@@ -46,10 +46,10 @@ def test_set_progress_switches_the_bars_on_and_the_keyword_wins(
     oc.set_progress(True)
     oc.run_montecarlo("ebike", **MC)
     err = capsys.readouterr().err
-    assert "Monte Carlo" in err and "2/2" in err
+    assert "Monte Carlo" in err and "/2 [" in err  # the bar's count (updates are throttled)
     _compare(small_ebike)
     err = capsys.readouterr().err
-    assert "first stages" in err and "2/2" in err
+    assert "first stages" in err and "/2 [" in err
     oc.run_montecarlo("ebike", **MC, progress=False)
     assert capsys.readouterr().err == ""
     oc.set_progress(False)
@@ -63,7 +63,7 @@ def test_fold_stability_has_a_bar(small_ebike: Any, capsys: pytest.CaptureFixtur
     panel, model, _ = panel_and_model(small_ebike)
     oc.fold_stability(panel, model, learner="logit", folds=3, progress=True)
     err = capsys.readouterr().err
-    assert "fold stability" in err and "6/6" in err
+    assert "fold stability" in err and "/6 [" in err
 
 
 def test_set_progress_rejects_other_values() -> None:
