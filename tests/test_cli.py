@@ -152,7 +152,8 @@ def test_version(capsys: pytest.CaptureFixture[str]) -> None:
     assert capsys.readouterr().out.strip() == f"orthoccp {oc.__version__}"
 
 
-@pytest.mark.parametrize("command", [[], ["demo"], ["simulate"], ["estimate"], ["compare"], ["report"]])
+@pytest.mark.parametrize("command", [[], ["demo"], ["simulate"], ["estimate"], ["sensitivity"],
+                                     ["compare"], ["report"]])
 def test_help_has_examples(command: list[str], capsys: pytest.CaptureFixture[str]) -> None:
     assert main([*command, "--help"]) == 0
     out = capsys.readouterr().out
@@ -497,6 +498,41 @@ def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pyte
     for p in doc["params"]:
         assert float(table[p["name"]][4]) == pytest.approx(p["estimate"], abs=5e-5)
     capsys.readouterr()
+
+
+# --------------------------------------------------------------------------- sensitivity
+def test_sensitivity_rows_equal_fresh_estimates(
+    files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    pytest.importorskip("matplotlib")
+    csv, plot = tmp_path / "beta.csv", tmp_path / "beta.png"
+    argv = ["sensitivity", str(files["data"]), "--spec", str(fast_spec), "--discounts",
+            "0.99,0.9", "--csv", str(csv), "--plot", str(plot), "--json", str(tmp_path / "b.json")]
+    assert main(argv) == 0
+    text = capsys.readouterr().out
+    assert "orthoccp sensitivity to the discount factor (assumed: 0.95)" in text
+    table = pd.read_csv(csv)
+    assert sorted(set(table["discount"])) == [0.9, 0.99] and plot.stat().st_size > 1000
+    spec = read_spec(fast_spec)
+    panel = spec.build_panel(spec.load_data(files["data"]))
+    model = spec.build_model(panel)
+    for beta in (0.9, 0.99):
+        fresh = oc.estimate(panel, dataclasses.replace(model, discount=beta),
+                            **spec.estimate_options())
+        rows = table[table["discount"] == beta].set_index("parameter")
+        for name, value in fresh.params.items():
+            assert rows.loc[name, "estimate"] == pytest.approx(float(value), rel=0, abs=1e-8)
+    assert strict_json((tmp_path / "b.json").read_text())["assumed_discount"] == 0.95
+
+
+@pytest.mark.parametrize("discounts, fragment", [("0.9,x", "separated by commas"),
+                                                 ("0.9", "at least two")])
+def test_sensitivity_bad_grid(files: dict[str, Path], fast_spec: Path, discounts: str,
+                              fragment: str, capsys: pytest.CaptureFixture[str]) -> None:
+    code = main(["sensitivity", str(files["data"]), "--spec", str(fast_spec), "--discounts",
+                 discounts])
+    assert code == 2
+    assert fragment in capsys.readouterr().err
 
 
 # --------------------------------------------------------------------------- compare, report

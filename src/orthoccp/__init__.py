@@ -27,12 +27,14 @@ from .montecarlo import MonteCarloResults, run_montecarlo
 from .nuisance import Nuisances, nuisances_from_truth
 from .report import write_report
 from .results import ASSUMPTIONS, NotApplicable, Results, RowAccounting
+from .sensitivity import DiscountSensitivity, discount_sensitivity
 from .stability import FoldStability, fold_stability
 
 __all__ = [
     "ASSUMPTIONS",
     "Comparison",
     "Diagnostics",
+    "DiscountSensitivity",
     "DiscreteResults",
     "EULER_GAMMA",
     "EstimationError",
@@ -58,6 +60,7 @@ __all__ = [
     "compare",
     "covariance_names",
     "difference_test",
+    "discount_sensitivity",
     "discrete",
     "estimate",
     "estimate_discrete",

@@ -17,7 +17,9 @@ from ._outputs import writing
 from .compare import Comparison
 from .results import Results
 
-__all__ = ["calibration_plot", "overlap_plot", "coefficient_plot", "variance_plot"]
+__all__ = [
+    "calibration_plot", "overlap_plot", "coefficient_plot", "discount_plot", "variance_plot",
+]
 
 
 def _plt() -> Any:
@@ -104,6 +106,40 @@ def coefficient_plot(comparison: Comparison, *, level: float = 0.95, path: str |
         ax.set_title(p)
         ax.invert_yaxis()
     fig.suptitle(f"Debiased estimates by first stage ({int(level * 100)}% intervals)")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def discount_plot(sensitivity: Any, *, path: str | Path | None = None) -> Any:
+    """Each parameter's estimate and interval against the discount factor, one panel each.
+
+    ``sensitivity`` is a :class:`~orthoccp.sensitivity.DiscountSensitivity`; the dotted line
+    is the model's assumed discount factor, the grey line the plug-in estimate.
+    """
+    plt = _plt()
+    t = sensitivity.to_frame()
+    params = list(dict.fromkeys(t["parameter"]))
+    cols = min(len(params), 3)
+    rows = -(-len(params) // cols)
+    fig, axes = plt.subplots(rows, cols, figsize=(3.3 * cols, 2.7 * rows), squeeze=False)
+    for ax, p in zip(axes.flat, params):
+        d = t[t["parameter"] == p]
+        ax.fill_between(d["discount"], d["lower"], d["upper"], color="0.85", lw=0)
+        debiased = next(iter(sensitivity.results.values())).debiased
+        ax.plot(d["discount"], d["estimate"], "o-", color="black", ms=3.5, lw=1.2,
+                label="debiased" if debiased else "plug-in")
+        if debiased:
+            ax.plot(d["discount"], d["plugin"], "s--", color="0.45", ms=2.5, lw=0.8,
+                    label="plug-in")
+        ax.axvline(sensitivity.assumed, color="0.3", ls=":", lw=0.9)
+        ax.set_title(p)
+        ax.set_xlabel("discount factor β")
+    for ax in list(axes.flat)[len(params):]:
+        ax.set_visible(False)
+    axes[0][0].legend(frameon=False, fontsize=8)
+    pct = f"{sensitivity.level * 100:g}%"
+    fig.suptitle(f"Estimates against the discount factor\n(shaded: {pct} interval; "
+                 f"dotted: the assumed β = {sensitivity.assumed:g})")
     fig.tight_layout()
     return _save(fig, path)
 

@@ -1,4 +1,4 @@
-"""The command handlers: demo, simulate, estimate, compare, report and montecarlo."""
+"""The command handlers: demo, simulate, estimate, sensitivity, compare, report and montecarlo."""
 
 from __future__ import annotations
 
@@ -184,6 +184,57 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
             _write_text(path, text)
             if not json_on_stdout:
                 print(f"wrote {path}")
+    progress.stage(f"done in {progress.elapsed:.1f}s")
+    return 0
+
+
+# --------------------------------------------------------------------------- sensitivity
+def _discount_list(text: str) -> list[float]:
+    """``--discounts 0.9,0.95,0.99``: numbers separated by commas (checked by the function)."""
+    try:
+        return [float(part) for part in text.split(",") if part.strip()]
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"expected discount factors separated by commas, e.g. 0.9,0.95,0.99; got {text!r}"
+        ) from None
+
+
+def _cmd_sensitivity(args: argparse.Namespace) -> int:
+    from ..sensitivity import discount_sensitivity
+
+    progress = _Progress()
+    outputs = {"--json": _output_path("--json", args.json),
+               "--csv": _output_path("--csv", args.csv),
+               "--plot": _output_path("--plot", args.plot)}
+    if outputs["--plot"] is not None and outputs["--plot"].suffix.lower() not in (
+            ".png", ".svg", ".pdf"):
+        raise oc.InputError(f"--plot {args.plot!r} must end in .png, .svg or .pdf.")
+    check_outputs(outputs)
+    data_path, panel, model, options = _read_inputs(
+        args, progress, outputs, learner=args.learner, debias=False if args.naive else None)
+    progress.stage(
+        f"estimating at {len(args.discounts)} discount factors (the first stage once, with "
+        f"{options.get('learner', 'the default learner')})"
+    )
+    sens = discount_sensitivity(panel, model, discounts=args.discounts, **options)
+    print(sens.summary())
+    table = sens.to_frame()
+    doc = {
+        "inputs": {"data": str(data_path), "spec": str(args.spec)},
+        "assumed_discount": sens.assumed,
+        "level": sens.level,
+        "first_stage_fits": sens.first_stage_fits,
+        "rows": table.to_dict(orient="records"),
+    }
+    writers = {
+        "--json": lambda p: _write_text(p, _dumps(doc)),
+        "--csv": lambda p: _write_text(p, table.to_csv(index=False)),
+        "--plot": lambda p: sens.plot(path=p),
+    }
+    for option, path in outputs.items():
+        if path is not None:
+            writers[option](path)
+            print(f"wrote {path}")
     progress.stage(f"done in {progress.elapsed:.1f}s")
     return 0
 
