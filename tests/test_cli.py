@@ -573,9 +573,14 @@ def test_report_command(files: dict[str, Path], fast_spec: Path, tmp_path: Path,
     text = capsys.readouterr().out
     assert f"wrote {out}" in text and "lasso_logit: fold stability:" in text
     html_text = out.read_text()
-    assert "<h3>Fold stability</h3>" in html_text and html_text.count("data:image/png;base64,") >= 7
-    assert main([*argv[:-2], "--out", str(tmp_path / "quick.html"), "--no-stability"]) == 0
-    assert "Fold stability" not in (tmp_path / "quick.html").read_text()
+    assert "Fold stability (each fold" in html_text and html_text.count("data:image/png;base64,") >= 8
+    assert "id='data'" in html_text and "id='discount'" not in html_text
+    assert f"orthoccp report {files['data']} --spec {fast_spec}" in html_text  # provenance
+    quick = tmp_path / "quick.html"
+    assert main([*argv[:-2], "--out", str(quick), "--no-stability", "--discounts", "0.9,0.95"]) == 0
+    quick_text = quick.read_text()
+    assert "Fold stability" not in quick_text and "id='discount'" in quick_text
+    assert "with the lasso_logit first stage" in quick_text
 
 
 # --------------------------------------------------------------------------- discrete estimator

@@ -18,7 +18,8 @@ from .compare import Comparison
 from .results import Results
 
 __all__ = [
-    "calibration_plot", "overlap_plot", "coefficient_plot", "discount_plot", "variance_plot",
+    "calibration_plot", "ccp_state_plot", "overlap_plot", "coefficient_plot", "discount_plot",
+    "variance_plot",
 ]
 
 
@@ -68,6 +69,42 @@ def calibration_plot(res: Results, *, path: str | Path | None = None) -> Any:
         ax.set_xlabel("mean predicted probability")
         ax.set_ylabel("observed share")
     fig.suptitle(f"CCP calibration ({res.learner}, out of fold)")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def ccp_state_plot(comparison: Comparison, *, path: str | Path | None = None) -> Any:
+    """Fitted CCPs against the main state, one line per first stage, one panel per choice.
+
+    Uses each result's ``diagnostics.ccp_by_state`` (the panel's first state, binned): the
+    mean out-of-fold CCP per bin (lines) and the observed share (dots, area by rows). With
+    two choices only the rarer one is drawn (the other is its complement).
+    """
+    plt = _plt()
+    tables = {label: res.diagnostics.ccp_by_state for label, res in comparison.results.items()
+              if res.diagnostics is not None and not res.diagnostics.ccp_by_state.empty}
+    if not tables:
+        raise InputError("no result has the fitted CCP by state (no numeric first state).")
+    first = next(iter(tables.values()))
+    choices = list(dict.fromkeys(first["choice"]))
+    if len(choices) == 2:
+        share = first.groupby("choice", sort=False)["observed"].mean()
+        choices = [share.idxmin()]
+    fig, axes = plt.subplots(1, len(choices), figsize=(4.2 * len(choices), 3.2), squeeze=False)
+    styles = ["-", "--", ":", "-."]
+    for ax, c in zip(axes[0], choices):
+        d0 = first[first["choice"] == c]
+        ax.scatter(d0["value"], d0["observed"], s=8 + 60 * d0["rows"] / d0["rows"].max(),
+                   color="0.6", zorder=1, label="observed share")
+        for i, (label, t) in enumerate(tables.items()):
+            d = t[t["choice"] == c]
+            ax.plot(d["value"], d["fitted"], styles[i % 4], color="black" if i < 4 else "0.4",
+                    lw=1.3, label=label, zorder=2)
+        ax.set_title(f"choice {c}")
+        ax.set_xlabel(str(first["state"].iloc[0]))
+        ax.set_ylabel("probability")
+    axes[0][0].legend(frameon=False, fontsize=8)
+    fig.suptitle("Fitted CCP against the main state (out of fold)")
     fig.tight_layout()
     return _save(fig, path)
 

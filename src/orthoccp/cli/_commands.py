@@ -328,7 +328,7 @@ def _cmd_report(args: argparse.Namespace) -> int:
             "the report's figures need matplotlib, an optional dependency: pip install "
             "'orthoccp[plot]' (or pip install matplotlib)."
         ) from exc
-    _, panel, model, options, cmp = _run_comparison(args, progress, {"--out": out})
+    data_path, panel, model, options, cmp = _run_comparison(args, progress, {"--out": out})
     stability = {}
     if args.stability:
         for label in cmp.results:
@@ -336,8 +336,19 @@ def _cmd_report(args: argparse.Namespace) -> int:
                 continue
             progress.stage(f"fold stability of {label}: refitting each fold with another seed")
             stability[label] = fold_stability(panel, model, learner=label, **options)
+    sensitivity = None
+    if args.discounts is not None:
+        from ..sensitivity import discount_sensitivity
+
+        label = list(cmp.results)[-1]
+        progress.stage(f"sensitivity to the discount factor with {label}")
+        sensitivity = discount_sensitivity(panel, model, discounts=args.discounts,
+                                           learner=label, **options)
     progress.stage(f"writing {out}")
-    write_report(cmp, out, stability=stability)
+    provenance = {"data file": str(data_path), "spec file": str(args.spec),
+                  "command": shlex.join(getattr(args, "command_line", [PROG, "report"]))}
+    write_report(cmp, out, stability=stability, panel=panel, sensitivity=sensitivity,
+                 provenance=provenance)
     print(cmp.summary())
     for label, fs in stability.items():
         print(f"{label}: {fs.reading()}")
@@ -482,7 +493,10 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         )
         report_path = folder / "report.html"
         progress.stage(f"writing {report_path}")
-        write_report(cmp, report_path, truth=dict(sim.truth), title="orthoccp demo report")
+        write_report(cmp, report_path, truth=dict(sim.truth), title="orthoccp demo report",
+                     panel=panel, provenance={"data file": str(data_path),
+                                              "spec file": str(spec_path),
+                                              "command": "orthoccp demo"})
 
     print(
         f"orthoccp demo: simulated the {DEMO_SCENARIO!r} renewal scenario ({args.units} "

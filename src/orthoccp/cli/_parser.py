@@ -73,6 +73,7 @@ examples:
   orthoccp report panel.csv --spec panel.toml --out report.html
   orthoccp report panel.csv --spec panel.toml --with logit --with lightgbm --out report.html
   orthoccp report panel.csv --spec panel.toml --out report.html --no-stability   # faster
+  orthoccp report panel.csv --spec panel.toml --out report.html --discounts 0.9,0.95,0.99
 """
 
 _ESTIMATE_EPILOG = """\
@@ -403,6 +404,11 @@ def build_parser() -> argparse.ArgumentParser:
             cp.add_argument(
                 "--no-stability", dest="stability", action="store_false",
                 help="skip the fold-stability refits (they cost one more first stage per learner)",
+            )
+            cp.add_argument(
+                "--discounts", type=_discount_list, default=None, metavar="LIST",
+                help="add the sensitivity to the discount factor at these values (e.g. "
+                "0.9,0.95,0.99), with the last first stage",
             )
             cp.set_defaults(handler=_cmd_report)
         else:
