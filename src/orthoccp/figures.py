@@ -173,11 +173,13 @@ def discount_plot(sensitivity: Any, *, path: str | Path | None = None) -> Any:
         ax.set_xlabel("discount factor β")
     for ax in list(axes.flat)[len(params):]:
         ax.set_visible(False)
-    axes[0][0].legend(frameon=False, fontsize=8)
+    handles, labels = axes[0][0].get_legend_handles_labels()
+    fig.legend(handles, labels, frameon=False, fontsize=8, ncol=2, loc="lower center",
+               bbox_to_anchor=(0.5, -0.02))
     pct = f"{sensitivity.level * 100:g}%"
     fig.suptitle(f"Estimates against the discount factor\n(shaded: {pct} interval; "
                  f"dotted: the assumed β = {sensitivity.assumed:g})")
-    fig.tight_layout()
+    fig.tight_layout(rect=(0, 0.06, 1, 1))
     return _save(fig, path)
 
 

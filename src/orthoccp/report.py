@@ -228,9 +228,10 @@ def _reading(comparison: Comparison, stability: Mapping[str, FoldStability]) -> 
                        f"the choice.")
         else:
             verdict = (f"The evidence favours <b>{_e(chosen)}</b>: it predicts held-out choices "
-                       f"best, and the first stages give different estimates (a difference "
-                       f"test rejects at {TEST_LEVEL:g}), so report {_e(chosen)} and mention "
-                       f"the difference.")
+                       f"best. The first stages give different estimates (a difference test "
+                       f"rejects at {TEST_LEVEL:g}), so the choice of first stage matters: "
+                       f"report {_e(chosen)} as the main estimate by this rule and show the "
+                       f"others beside it.")
     items = "".join(f"<li>{_e(r)}</li>" for r in reasons)
     return f"<div class='verdict'><p>{verdict}</p><ul>{items}</ul></div>{rule}"
 
@@ -312,7 +313,9 @@ def _data_section(panel: Panel, res: Results) -> str:
         ("periods", f"{_e(periods.min())} to {_e(periods.max())} ({periods.nunique()} distinct)"),
         ("rows per unit", f"min {per_unit.min()}, median {np.median(per_unit):g}, max "
                           f"{per_unit.max()}"),
-        ("gaps", f"{int(panel.gap_after.sum())} gap(s) between observed periods, in "
+        ("gaps", "none (every unit is observed in consecutive periods)"
+                 if not panel.gap_after.any() else
+                 f"{int(panel.gap_after.sum())} gap(s) between observed periods, in "
                  f"{gap_units} unit(s)"),
         ("states", _e(", ".join(panel.states))),
         ("rows used", _e(res.accounting.describe())),
