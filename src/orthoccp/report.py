@@ -277,7 +277,8 @@ def _estimates_section(comparison: Comparison, truth: Mapping[str, float] | None
              + ("Covers: whether the interval contains the true value (simulated data). "
                 if truth is not None else "") + "</p>"]
     for label, why in comparison.failed.items():
-        parts.append(f"<p><b>{_e(label)} failed</b> and gave no estimate: {_e(why)}</p>")
+        parts.append(f"<p><b>First stage {_e(label)} failed</b> and gave no estimate: "
+                     f"{_e(why)}</p>")
     if len(comparison.results) > 1:
         parts.append(_figure(lambda: figures.coefficient_plot(comparison, level=level),
                              f"Debiased estimates and {pct} intervals by first stage"))
