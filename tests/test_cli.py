@@ -484,7 +484,7 @@ def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pyte
     assert float(table["wear_cost"][1]) == -1.0 and float(table["swap_cost"][1]) == -5.0
     assert all(r[6] in ("yes", "no") and r[7] in ("yes", "no") for r in table.values())
     report = (folder / "report.html").read_text()
-    assert "Estimates against the truth (simulated data)" in report and "First stage: logit" in report
+    assert "<th>truth</th>" in report and "<h3 id='fs-logit'>logit</h3>" in report
     assert f"Wrote orthoccp-demo-2/report.html: lightgbm against the parametric logit" in out
     rerun = next(line.strip() for line in out.splitlines() if line.strip().startswith("orthoccp estimate"))
     assert rerun == "orthoccp estimate orthoccp-demo-2/ebike.csv --spec orthoccp-demo-2/ebike.toml"
