@@ -580,7 +580,15 @@ def test_report_command(files: dict[str, Path], fast_spec: Path, tmp_path: Path,
     assert main([*argv[:-2], "--out", str(quick), "--no-stability", "--discounts", "0.9,0.95"]) == 0
     quick_text = quick.read_text()
     assert "Fold stability" not in quick_text and "id='discount'" in quick_text
-    assert "with the lasso_logit first stage" in quick_text
+    from orthoccp.report import favoured_first_stage
+
+    spec = read_spec(fast_spec)
+    panel = spec.build_panel(spec.load_data(files["data"]))
+    options = {k: v for k, v in spec.estimate_options().items() if k != "learner"}
+    api = oc.compare(panel, spec.build_model(panel),
+                     first_stages={"logit": "logit", "lasso_logit": "lasso_logit"}, **options)
+    favoured = favoured_first_stage(api)[0]
+    assert f"with the {favoured} first stage (fitted once" in quick_text
 
 
 # --------------------------------------------------------------------------- discrete estimator

@@ -187,3 +187,22 @@ def test_report_renders_in_headless_chromium(comparison, extras, small_ebike, tm
     proc = subprocess.run([*common, f"--screenshot={shot}", (tmp_path / "report.html").as_uri()],
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0 and shot.stat().st_size > 10_000, proc.stderr[-2000:]
+
+
+def test_data_section_counts_gaps_and_shares(small_ebike, comparison) -> None:  # type: ignore[no-untyped-def]
+    from orthoccp.report import _data_section
+
+    sim = small_ebike
+    data = sim.data
+    periods = sorted(data[sim.period].unique())
+    units = sorted(data[sim.unit].unique())[:3]
+    holes = data[sim.unit].isin(units) & (data[sim.period] == periods[3])
+    panel = oc.Panel(data[~holes], unit=sim.unit, period=sim.period, choice=sim.choice,
+                     states=list(sim.states))
+    text = _data_section(panel, comparison.results["logit"])
+    assert "3 gap(s) between observed periods, in 3 unit(s)" in text
+    # period 3 lost three rows: its row count and swap share are those of the rows kept
+    kept = data[~holes]
+    share = (kept[kept[sim.period] == periods[3]][sim.choice] == "swap").mean()
+    n_rows = int((~holes & (data[sim.period] == periods[3])).sum())
+    assert f"{100 * share:.1f}%" in text and f"<td>{n_rows}</td>" in text

@@ -338,9 +338,10 @@ def _cmd_report(args: argparse.Namespace) -> int:
             stability[label] = fold_stability(panel, model, learner=label, **options)
     sensitivity = None
     if args.discounts is not None:
+        from ..report import favoured_first_stage
         from ..sensitivity import discount_sensitivity
 
-        label = list(cmp.results)[-1]
+        label = favoured_first_stage(cmp, stability=stability)[0] or list(cmp.results)[-1]
         progress.stage(f"sensitivity to the discount factor with {label}")
         sensitivity = discount_sensitivity(panel, model, discounts=args.discounts,
                                            learner=label, **options)

@@ -408,7 +408,7 @@ def build_parser() -> argparse.ArgumentParser:
             cp.add_argument(
                 "--discounts", type=_discount_list, default=None, metavar="LIST",
                 help="add the sensitivity to the discount factor at these values (e.g. "
-                "0.9,0.95,0.99), with the last first stage",
+                "0.9,0.95,0.99), with the first stage the report favours",
             )
             cp.set_defaults(handler=_cmd_report)
         else:
