@@ -152,7 +152,8 @@ def test_version(capsys: pytest.CaptureFixture[str]) -> None:
     assert capsys.readouterr().out.strip() == f"orthoccp {oc.__version__}"
 
 
-@pytest.mark.parametrize("command", [[], ["demo"], ["simulate"], ["estimate"], ["compare"], ["report"]])
+@pytest.mark.parametrize("command", [[], ["demo"], ["simulate"], ["estimate"], ["sensitivity"],
+                                     ["compare"], ["report"]])
 def test_help_has_examples(command: list[str], capsys: pytest.CaptureFixture[str]) -> None:
     assert main([*command, "--help"]) == 0
     out = capsys.readouterr().out
@@ -483,7 +484,7 @@ def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pyte
     assert float(table["wear_cost"][1]) == -1.0 and float(table["swap_cost"][1]) == -5.0
     assert all(r[6] in ("yes", "no") and r[7] in ("yes", "no") for r in table.values())
     report = (folder / "report.html").read_text()
-    assert "Estimates against the truth (simulated data)" in report and "First stage: logit" in report
+    assert "<th>truth</th>" in report and "<h3 id='fs-logit'>logit</h3>" in report
     assert f"Wrote orthoccp-demo-2/report.html: lightgbm against the parametric logit" in out
     rerun = next(line.strip() for line in out.splitlines() if line.strip().startswith("orthoccp estimate"))
     assert rerun == "orthoccp estimate orthoccp-demo-2/ebike.csv --spec orthoccp-demo-2/ebike.toml"
@@ -541,6 +542,41 @@ def test_demo_output_reads_cleanly(tmp_path: Path) -> None:
         assert sum(float(v.rstrip("%")) for v in parts.values()) == pytest.approx(100.0, abs=0.1)
 
 
+# --------------------------------------------------------------------------- sensitivity
+def test_sensitivity_rows_equal_fresh_estimates(
+    files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    pytest.importorskip("matplotlib")
+    csv, plot = tmp_path / "beta.csv", tmp_path / "beta.png"
+    argv = ["sensitivity", str(files["data"]), "--spec", str(fast_spec), "--discounts",
+            "0.99,0.9", "--csv", str(csv), "--plot", str(plot), "--json", str(tmp_path / "b.json")]
+    assert main(argv) == 0
+    text = capsys.readouterr().out
+    assert "orthoccp sensitivity to the discount factor (assumed: 0.95)" in text
+    table = pd.read_csv(csv)
+    assert sorted(set(table["discount"])) == [0.9, 0.99] and plot.stat().st_size > 1000
+    spec = read_spec(fast_spec)
+    panel = spec.build_panel(spec.load_data(files["data"]))
+    model = spec.build_model(panel)
+    for beta in (0.9, 0.99):
+        fresh = oc.estimate(panel, dataclasses.replace(model, discount=beta),
+                            **spec.estimate_options())
+        rows = table[table["discount"] == beta].set_index("parameter")
+        for name, value in fresh.params.items():
+            assert rows.loc[name, "estimate"] == pytest.approx(float(value), rel=0, abs=1e-8)
+    assert strict_json((tmp_path / "b.json").read_text())["assumed_discount"] == 0.95
+
+
+@pytest.mark.parametrize("discounts, fragment", [("0.9,x", "separated by commas"),
+                                                 ("0.9", "at least two")])
+def test_sensitivity_bad_grid(files: dict[str, Path], fast_spec: Path, discounts: str,
+                              fragment: str, capsys: pytest.CaptureFixture[str]) -> None:
+    code = main(["sensitivity", str(files["data"]), "--spec", str(fast_spec), "--discounts",
+                 discounts])
+    assert code == 2
+    assert fragment in capsys.readouterr().err
+
+
 # --------------------------------------------------------------------------- compare, report
 def test_compare_matches_the_api_and_writes_tables(
     files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
@@ -578,9 +614,22 @@ def test_report_command(files: dict[str, Path], fast_spec: Path, tmp_path: Path,
     text = capsys.readouterr().out
     assert f"wrote {out}" in text and "lasso_logit: fold stability:" in text
     html_text = out.read_text()
-    assert "<h3>Fold stability</h3>" in html_text and html_text.count("data:image/png;base64,") >= 7
-    assert main([*argv[:-2], "--out", str(tmp_path / "quick.html"), "--no-stability"]) == 0
-    assert "Fold stability" not in (tmp_path / "quick.html").read_text()
+    assert "Fold stability (each fold" in html_text and html_text.count("data:image/png;base64,") >= 8
+    assert "id='data'" in html_text and "id='discount'" not in html_text
+    assert f"orthoccp report {files['data']} --spec {fast_spec}" in html_text  # provenance
+    quick = tmp_path / "quick.html"
+    assert main([*argv[:-2], "--out", str(quick), "--no-stability", "--discounts", "0.9,0.95"]) == 0
+    quick_text = quick.read_text()
+    assert "Fold stability" not in quick_text and "id='discount'" in quick_text
+    from orthoccp.report import favoured_first_stage
+
+    spec = read_spec(fast_spec)
+    panel = spec.build_panel(spec.load_data(files["data"]))
+    options = {k: v for k, v in spec.estimate_options().items() if k != "learner"}
+    api = oc.compare(panel, spec.build_model(panel),
+                     first_stages={"logit": "logit", "lasso_logit": "lasso_logit"}, **options)
+    favoured = favoured_first_stage(api)[0]
+    assert f"with the {favoured} first stage (fitted once" in quick_text
 
 
 # --------------------------------------------------------------------------- discrete estimator

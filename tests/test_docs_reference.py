@@ -659,3 +659,30 @@ def test_design_family_screen_matches_its_json() -> None:
         _assert_printed(row["debiased bias / SD"], r["bias_over_sd"], where)
         _assert_printed(row["SD / s.e."], r["sd_over_se"], where)
         _assert_printed(row["debiased coverage"], r["coverage"], where)
+
+
+# --------------------------------------------------------------------------- discount sensitivity
+def test_sensitivity_page_matches_its_csv() -> None:
+    """The demo table on the sensitivity page is the committed run's CSV, rounded as printed;
+    the figure beside it is committed too."""
+    import pandas as pd
+
+    text = _page("sensitivity.md")
+    table = pd.read_csv(DOCS / "beta_sensitivity.csv")
+    block = text[text.index("```text"):]
+    block = block[:block.index("```", 7)]
+    printed: dict[tuple[str, float], list[float]] = {}
+    name = ""
+    for line in block.splitlines()[1:]:
+        parts = line.replace("*", "").split()
+        if len(parts) == 1:
+            name = parts[0]
+        elif len(parts) == 6 and parts[0] != "discount":
+            printed[(name, float(parts[0]))] = [float(v) for v in parts[1:]]
+    assert len(printed) == len(table) == 10
+    for r in table.itertuples():
+        got = printed[(r.parameter, r.discount)]
+        want = [r.estimate, r.std_error, r.lower, r.upper, r.plugin]
+        assert got == [round(v, 4) for v in want], (r.parameter, r.discount)
+    assert "wear_cost −0.9747, swap_cost −4.9387" in text
+    assert (DOCS / "beta_sensitivity.png").stat().st_size > 10_000

@@ -28,12 +28,14 @@ from .nuisance import Nuisances, nuisances_from_truth
 from ._progress import set_progress
 from .report import write_report
 from .results import ASSUMPTIONS, NotApplicable, Results, RowAccounting
+from .sensitivity import DiscountSensitivity, discount_sensitivity
 from .stability import FoldStability, fold_stability
 
 __all__ = [
     "ASSUMPTIONS",
     "Comparison",
     "Diagnostics",
+    "DiscountSensitivity",
     "DiscreteResults",
     "EULER_GAMMA",
     "EstimationError",
@@ -59,6 +61,7 @@ __all__ = [
     "compare",
     "covariance_names",
     "difference_test",
+    "discount_sensitivity",
     "discrete",
     "estimate",
     "estimate_discrete",

@@ -46,6 +46,10 @@ class Diagnostics:
         The estimated anchor probability where the CCP correction divides by it (the states
         right after a renewal; every next state in a terminal model), with a warning when it
         is too small for the correction to be reliable.
+    ccp_by_state : pandas.DataFrame
+        The fitted CCP against the main state (the panel's first state, when numeric): per
+        bin of that state (each value when it takes at most 20, else 20 quantile bins) and
+        choice, the state's mean, the mean out-of-fold CCP, the observed share and the rows.
     """
 
     overlap: pd.DataFrame
@@ -54,6 +58,7 @@ class Diagnostics:
     continuation_quality: pd.DataFrame
     influential_units: pd.DataFrame = field(default_factory=pd.DataFrame)
     anchor: AnchorCheck | None = None
+    ccp_by_state: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     def to_dict(self) -> dict[str, Any]:
         """Plain-Python view for JSON: the readings and every table as a list of records
@@ -64,6 +69,7 @@ class Diagnostics:
             "calibration": self.calibration.reset_index(drop=True),
             "continuation_quality": self.continuation_quality.reset_index(drop=True),
             "influential_units": self.influential_units.reset_index(drop=True),
+            "ccp_by_state": self.ccp_by_state.reset_index(drop=True),
         }
         return {"readings": self.readings(),
                 **{name: _records(frame) for name, frame in tables.items()}}
@@ -255,6 +261,7 @@ def compute_diagnostics(
             panel, P, anchor=choices[bound.anchor_index], kind=bound.model.kind  # type: ignore[arg-type]
         )
     return Diagnostics(
+        ccp_by_state=_ccp_by_state(panel, P),
         overlap=overlap,
         ccp_quality=ccp_quality,
         calibration=calibration,
@@ -263,6 +270,28 @@ def compute_diagnostics(
         anchor=anchor,
     )
 
+
+def _ccp_by_state(panel: Any, P: np.ndarray, *, bins: int = 20) -> pd.DataFrame:
+    """Fitted and observed choice shares by bin of the panel's first state (if numeric)."""
+    state = panel.states[0]
+    x = pd.to_numeric(panel.frame[state], errors="coerce").to_numpy(dtype=float)
+    if not np.all(np.isfinite(x)):
+        return pd.DataFrame()
+    values = np.unique(x)
+    if values.size <= bins:
+        which = np.searchsorted(values, x)
+    else:
+        edges = np.unique(np.quantile(x, np.linspace(0, 1, bins + 1)))
+        which = np.clip(np.searchsorted(edges, x, side="right") - 1, 0, edges.size - 2)
+    codes = panel.choice_codes
+    out = []
+    for b in np.unique(which):
+        sel = which == b
+        for j, choice in enumerate(panel.choices):
+            out.append({"state": state, "value": float(x[sel].mean()), "choice": choice,
+                        "fitted": float(P[sel, j].mean()),
+                        "observed": float((codes[sel] == j).mean()), "rows": int(sel.sum())})
+    return pd.DataFrame(out)
 
 
 def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:

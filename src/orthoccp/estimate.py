@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import copy
 import time
 import warnings
+from contextvars import ContextVar
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -288,11 +291,8 @@ def estimate(
                 mu=np.full((panel.n_rows, J, bound.n_targets), np.nan),
             )
         else:
-            fold_of_row = unit_folds(panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys)
-            nuis = crossfit_nuisances(
-                bound, pair, fold_of_row, rng, scheme=scheme, clip=float(clip),  # type: ignore[arg-type]
-                anchor_features=fcols, backend=runner,
-            )
+            nuis = _cross_fitted(bound, pair, int(folds), rng, split=split, scheme=scheme,
+                                 clip=float(clip), anchor_features=fcols, backend=runner)
         timings["first_stage_s"] += time.perf_counter() - t0
         n_fits += nuis.n_fits
         learner_nuis = nuis  # the learner's out-of-fold nuisances, for the diagnostics
@@ -474,6 +474,44 @@ def estimate(
         version=__version__,
     )
     return results
+
+
+# A store of cross-fitted first stages, keyed by everything they depend on, set by
+# :func:`orthoccp.sensitivity.discount_sensitivity` to reuse them across discount factors.
+_FIRST_STAGE_STORE: ContextVar[dict[Any, Any] | None] = ContextVar("first_stage_store",
+                                                                   default=None)
+
+
+def _cross_fitted(
+    bound: BoundModel, pair: Any, folds: int, rng: np.random.Generator, *, split: int,
+    scheme: str, clip: float, anchor_features: np.ndarray | None, backend: Any,
+) -> Nuisances:
+    """The split's folds and cross-fitted nuisances (CCPs, continuation regressions).
+
+    Neither depends on the discount factor. When a store is active (``_FIRST_STAGE_STORE``),
+    a first stage computed before from the same generator state and the same inputs is
+    reused, and the generator is moved to the state the fresh computation would leave, so
+    every later draw (projections, model-implied steps, the next split) is unchanged.
+    """
+    store = _FIRST_STAGE_STORE.get()
+    key = None
+    if store is not None:
+        key = (id(bound.panel), pair.name, split, repr(rng.bit_generator.state), folds, scheme,
+               clip,
+               None if anchor_features is None else tuple(np.asarray(anchor_features).tolist()),
+               bound.has_next_stage)
+        if key in store:
+            nuis, state = store[key]
+            rng.bit_generator.state = copy.deepcopy(state)
+            return replace(nuis, n_fits=0, timings={"ccp_s": 0.0, "continuation_s": 0.0})
+    fold_of_row = unit_folds(bound.panel.unit_codes, folds, rng, unit_keys=bound.panel.unit_keys)
+    nuis = crossfit_nuisances(
+        bound, pair, fold_of_row, rng, scheme=scheme, clip=clip,  # type: ignore[arg-type]
+        anchor_features=anchor_features, backend=backend,
+    )
+    if store is not None:
+        store[key] = (nuis, copy.deepcopy(rng.bit_generator.state))
+    return nuis
 
 
 def _check_model_ccp_steps(steps: Any, *, moments: str, nuisances: Nuisances | None,

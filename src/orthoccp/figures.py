@@ -19,7 +19,10 @@ from ._outputs import writing
 from .compare import Comparison
 from .results import Results
 
-__all__ = ["calibration_plot", "overlap_plot", "coefficient_plot", "variance_plot"]
+__all__ = [
+    "calibration_plot", "ccp_state_plot", "overlap_plot", "coefficient_plot", "discount_plot",
+    "variance_plot",
+]
 
 
 _STYLE = {"font.size": 9, "axes.spines.top": False, "axes.spines.right": False}
@@ -105,6 +108,42 @@ def calibration_plot(res: Results, *, path: str | Path | None = None) -> Any:
 
 
 @_styled
+def ccp_state_plot(comparison: Comparison, *, path: str | Path | None = None) -> Any:
+    """Fitted CCPs against the main state, one line per first stage, one panel per choice.
+
+    Uses each result's ``diagnostics.ccp_by_state`` (the panel's first state, binned): the
+    mean out-of-fold CCP per bin (lines) and the observed share (dots, area by rows). With
+    two choices only the rarer one is drawn (the other is its complement).
+    """
+    tables = {label: res.diagnostics.ccp_by_state for label, res in comparison.results.items()
+              if res.diagnostics is not None and not res.diagnostics.ccp_by_state.empty}
+    if not tables:
+        raise InputError("no result has the fitted CCP by state (no numeric first state).")
+    first = next(iter(tables.values()))
+    choices = list(dict.fromkeys(first["choice"]))
+    if len(choices) == 2:
+        share = first.groupby("choice", sort=False)["observed"].mean()
+        choices = [share.idxmin()]
+    fig, axes = _subplots(1, len(choices), figsize=(4.2 * len(choices), 3.2), squeeze=False)
+    styles = ["-", "--", ":", "-."]
+    for ax, c in zip(axes[0], choices):
+        d0 = first[first["choice"] == c]
+        ax.scatter(d0["value"], d0["observed"], s=8 + 60 * d0["rows"] / d0["rows"].max(),
+                   color="0.6", zorder=1, label="observed share")
+        for i, (label, t) in enumerate(tables.items()):
+            d = t[t["choice"] == c]
+            ax.plot(d["value"], d["fitted"], styles[i % 4], color="black" if i < 4 else "0.4",
+                    lw=1.3, label=label, zorder=2)
+        ax.set_title(f"choice {c}")
+        ax.set_xlabel(str(first["state"].iloc[0]))
+        ax.set_ylabel("probability")
+    axes[0][0].legend(frameon=False, fontsize=8)
+    fig.suptitle("Fitted CCP against the main state (out of fold)")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+@_styled
 def overlap_plot(res: Results, ccp: np.ndarray | None = None, *, path: str | Path | None = None) -> Any:
     """Quantiles of the fitted CCPs per choice on a log scale, with the clip bound."""
     ov = _diagnostics(res).overlap
@@ -139,6 +178,42 @@ def coefficient_plot(comparison: Comparison, *, level: float = 0.95, path: str |
         ax.invert_yaxis()
     fig.suptitle(f"Debiased estimates by first stage ({int(level * 100)}% intervals)")
     fig.tight_layout()
+    return _save(fig, path)
+
+
+@_styled
+def discount_plot(sensitivity: Any, *, path: str | Path | None = None) -> Any:
+    """Each parameter's estimate and interval against the discount factor, one panel each.
+
+    ``sensitivity`` is a :class:`~orthoccp.sensitivity.DiscountSensitivity`; the dotted line
+    is the model's assumed discount factor, the grey line the plug-in estimate.
+    """
+    t = sensitivity.to_frame()
+    params = list(dict.fromkeys(t["parameter"]))
+    cols = min(len(params), 3)
+    rows = -(-len(params) // cols)
+    fig, axes = _subplots(rows, cols, figsize=(3.3 * cols, 2.7 * rows), squeeze=False)
+    for ax, p in zip(axes.flat, params):
+        d = t[t["parameter"] == p]
+        ax.fill_between(d["discount"], d["lower"], d["upper"], color="0.85", lw=0)
+        debiased = next(iter(sensitivity.results.values())).debiased
+        ax.plot(d["discount"], d["estimate"], "o-", color="black", ms=3.5, lw=1.2,
+                label="debiased" if debiased else "plug-in")
+        if debiased:
+            ax.plot(d["discount"], d["plugin"], "s--", color="0.45", ms=2.5, lw=0.8,
+                    label="plug-in")
+        ax.axvline(sensitivity.assumed, color="0.3", ls=":", lw=0.9)
+        ax.set_title(p)
+        ax.set_xlabel("discount factor β")
+    for ax in list(axes.flat)[len(params):]:
+        ax.set_visible(False)
+    handles, labels = axes[0][0].get_legend_handles_labels()
+    fig.legend(handles, labels, frameon=False, fontsize=8, ncol=2, loc="lower center",
+               bbox_to_anchor=(0.5, -0.02))
+    pct = f"{sensitivity.level * 100:g}%"
+    fig.suptitle(f"Estimates against the discount factor\n(shaded: {pct} interval; "
+                 f"dotted: the assumed β = {sensitivity.assumed:g})")
+    fig.tight_layout(rect=(0, 0.06, 1, 1))
     return _save(fig, path)
 
 

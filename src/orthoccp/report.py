@@ -1,21 +1,27 @@
-"""A self-contained HTML report a researcher can file with a paper's replication package.
+"""A self-contained HTML report a researcher can send to a co-author or file with a paper.
 
-One page holds: the estimates of every first stage with the difference tests against the
-parametric baseline, the diagnostics with their readings, the fold stability of the first
-stages it was computed for, the figures (embedded PNG), the row accounting and the model's
-assumptions. With simulated data, ``truth`` adds whether each interval covers the true value.
+One page, readable with no network (inline CSS, figures embedded as PNG data), in this order:
+what the page favours and why (a stated rule on out-of-fold fit, difference tests and fold
+stability), the estimates (plug-in and debiased side by side, once), the difference tests, a
+description of the data, each first stage's fit (the fitted CCP against the main state,
+calibration, overlap, continuation regressions, variance shares, fold stability), the
+sensitivity to the discount factor when computed, the provenance and the assumptions. With
+simulated data, ``truth`` adds the true values and whether each interval covers them.
 """
 
 from __future__ import annotations
 
 import base64
+import datetime as _dt
 import html
 import io
+import math
 import os
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
 import pandas as pd
 
 from . import figures
@@ -23,26 +29,94 @@ from ._errors import InputError
 from ._outputs import check_output, writing
 from ._version import __version__
 from .compare import Comparison
-from .results import ASSUMPTIONS, Results
+from .results import ASSUMPTIONS, Results, describe_routes
 
 if TYPE_CHECKING:
+    from .data import Panel
+    from .sensitivity import DiscountSensitivity
     from .stability import FoldStability
 
-__all__ = ["render_report", "truth_table", "write_report"]
+__all__ = ["favoured_first_stage", "render_report", "truth_table", "write_report"]
+
+#: Level of the difference tests in the page's reading.
+TEST_LEVEL = 0.05
+#: A single test with a p-value above this is "far from rejecting" (the joint-test note).
+FAR_FROM_REJECTING = 0.2
+
+_CSS = """
+body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"Helvetica Neue",Arial,sans-serif;
+font-size:16px;line-height:1.5;color:#1a1a1a;max-width:62em;margin:2em auto;padding:0 1.2em}
+h1{font-size:1.7em;margin-bottom:0.2em}h2{font-size:1.3em;margin-top:2em;
+border-bottom:1px solid #ccc;padding-bottom:0.2em}h3{font-size:1.05em;margin-top:1.4em}
+p.meta{color:#555;margin-top:0}.scroll{overflow-x:auto;margin:0.6em 0}
+table{border-collapse:collapse;font-size:0.92em;font-variant-numeric:tabular-nums}
+th,td{padding:3px 10px;border-bottom:1px solid #ddd;text-align:right;white-space:nowrap}
+th{background:#f3f3f3;font-weight:600}td.l,th.l{text-align:left}
+.verdict{background:#f4f7fb;border-left:4px solid #4a6fa5;padding:0.6em 1em;margin:1em 0}
+.note{color:#444;font-size:0.95em}figure{margin:1em 0}img{max-width:100%;height:auto}
+figcaption{color:#555;font-size:0.9em}code{font-size:0.9em;background:#f3f3f3;padding:0 3px;
+overflow-wrap:anywhere}dl.prov{display:grid;grid-template-columns:max-content 1fr;gap:0.2em 1em}
+dl.prov dt{font-weight:600}dl.prov dd{margin:0;overflow-wrap:anywhere}
+"""
 
 
-def _figure_tag(fig: Any, alt: str) -> str:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=150, bbox_inches="tight")
+# --------------------------------------------------------------------------- small helpers
+def _e(text: Any) -> str:
+    return html.escape(str(text))
+
+
+def _num(value: Any, digits: int = 4) -> str:
+    """A number for the page; missing or non-finite values become an en dash, never NaN."""
+    if value is None or isinstance(value, bool):
+        return "–" if value is None else ("yes" if value else "no")
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,}"
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return _e(value)
+    if not math.isfinite(v):
+        return "–"
+    return f"{v:.{digits}f}"
+
+
+def _pct(value: float) -> str:
+    return "–" if not math.isfinite(value) else f"{100 * value:.1f}%"
+
+
+def _table(header: Sequence[str], rows: Sequence[Sequence[Any]], *, left: int = 1) -> str:
+    """An HTML table in a horizontally scrolling box; the first ``left`` columns are text."""
+    head = "".join(f'<th class="l">{_e(h)}</th>' if i < left else f"<th>{_e(h)}</th>"
+                   for i, h in enumerate(header))
+    body = []
+    for row in rows:
+        cells = []
+        for i, v in enumerate(row):
+            text = v if isinstance(v, _Raw) else (_e(v) if isinstance(v, str) else _num(v))
+            cells.append(f'<td class="l">{text}</td>' if i < left else f"<td>{text}</td>")
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    return (f'<div class="scroll"><table><thead><tr>{head}</tr></thead><tbody>'
+            + "".join(body) + "</tbody></table></div>")
+
+
+class _Raw(str):
+    """Cell text that is already HTML."""
+
+
+def _figure(make: Any, caption: str) -> str:
+    """The figure ``make()`` returns, as embedded PNG; a short note when it cannot be drawn."""
+    try:
+        fig = make()
+    except Exception as exc:  # a figure is never worth failing the report for: say why
+        return f'<p class="note">({_e(caption)}: not drawn, {_e(exc)})</p>'
     import matplotlib.pyplot as plt
 
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
     plt.close(fig)
     data = base64.b64encode(buf.getvalue()).decode("ascii")
-    return f'<figure><img alt="{html.escape(alt)}" src="data:image/png;base64,{data}"><figcaption>{html.escape(alt)}</figcaption></figure>'
-
-
-def _table(df: Any) -> str:
-    return df.to_html(float_format=lambda v: f"{v:.4f}", border=0, classes="t")
+    return (f'<figure><img alt="{_e(caption)}" src="data:image/png;base64,{data}">'
+            f"<figcaption>{_e(caption)}</figcaption></figure>")
 
 
 def truth_table(comparison: Comparison, truth: Mapping[str, float], *, level: float = 0.95) -> pd.DataFrame:
@@ -66,12 +140,295 @@ def truth_table(comparison: Comparison, truth: Mapping[str, float], *, level: fl
     return pd.DataFrame(rows).set_index(["first_stage", "parameter"])
 
 
+# --------------------------------------------------------------------------- the reading
+def _log_loss(res: Results) -> float:
+    d = res.diagnostics
+    if d is None or d.ccp_quality.empty:
+        return float("nan")
+    return float(np.average(d.ccp_quality["log_loss"], weights=d.ccp_quality["rows"]))
+
+
+def _stable(fs: FoldStability | None) -> bool | None:
+    from .stability import NOTABLE_CHANGE_SE
+
+    return None if fs is None else bool(fs.max_change_se().max() <= NOTABLE_CHANGE_SE)
+
+
+def favoured_first_stage(
+    comparison: Comparison, *, stability: Mapping[str, FoldStability] | None = None
+) -> tuple[str | None, list[str]]:
+    """The first stage the evidence favours, by the page's stated rule, and the reasons.
+
+    Rule: the first stage with the lowest out-of-fold log-loss of the CCP (the better
+    prediction of held-out units' choices) is favoured, unless refitting one of its folds
+    with another seed moves an estimate by more than
+    :data:`~orthoccp.stability.NOTABLE_CHANGE_SE` standard errors (then the next best
+    stable one is). The difference tests against the baseline say whether the choice
+    matters: when none rejects at 5 %, the estimates agree within their noise.
+
+    Returns
+    -------
+    (str or None, list of str)
+        The favoured label (None when no first stage has out-of-fold fit measures) and one
+        sentence per piece of evidence.
+    """
+    stability = stability or {}
+    fits = {label: _log_loss(res) for label, res in comparison.results.items()}
+    ranked = sorted((v, k) for k, v in fits.items() if math.isfinite(v))
+    reasons = []
+    if ranked:
+        reasons.append("Out-of-fold log-loss of the CCP (lower is better): " + ", ".join(
+            f"{k} {v:.4f}" for v, k in ranked) + ".")
+    for label, fs in stability.items():
+        reasons.append(f"{label}: {fs.reading()}")
+    for label, test in comparison.tests.items():
+        w = test.attrs["wald"]
+        single = test["p_value"].to_numpy(dtype=float)
+        rejected = [str(n) for n, p in zip(test.index, single) if p < TEST_LEVEL]
+        reasons.append(
+            f"{label} against {comparison.baseline}: "
+            + (f"the estimates of {', '.join(rejected)} differ (p < {TEST_LEVEL:g})"
+               if rejected else f"no single difference is significant at {TEST_LEVEL:g}")
+            + f"; joint Wald test p = {w['p_value']:.3f}."
+        )
+    chosen = None
+    for _, label in ranked:
+        if _stable(stability.get(label)) is not False:
+            chosen = label
+            break
+    return chosen, reasons
+
+
+def _reading(comparison: Comparison, stability: Mapping[str, FoldStability]) -> str:
+    chosen, reasons = favoured_first_stage(comparison, stability=stability)
+    rule = (
+        "<p class='note'><b>The rule.</b> The page favours the first stage whose choice "
+        "probabilities predict held-out units best (lowest out-of-fold log-loss), provided "
+        "its estimate is stable across folds (refitting one fold with another seed moves no "
+        "estimate by more than 0.2 standard errors, when the fold stability was computed). "
+        "The difference tests say whether the choice matters: when none rejects, the first "
+        "stages agree within their noise. The debiased moment is protected against small "
+        "first-stage errors, not against a misspecified first stage, so when the estimates "
+        "differ the better-predicting first stage is the one to report.</p>"
+    )
+    if chosen is None:
+        verdict = ("No first stage has out-of-fold fit measures (supplied nuisances or a "
+                   "static model), so the page favours none.")
+    else:
+        agree = all(
+            (t["p_value"] >= TEST_LEVEL).all() and t.attrs["wald"]["p_value"] >= TEST_LEVEL
+            for t in comparison.tests.values()
+        )
+        if len(comparison.results) == 1:
+            verdict = f"Only one first stage, {chosen}, was estimated."
+        elif agree:
+            verdict = (f"The evidence favours <b>{_e(chosen)}</b>: it predicts held-out choices "
+                       f"best, and the first stages agree within their noise (no difference "
+                       f"test rejects at {TEST_LEVEL:g}), so the conclusions do not hinge on "
+                       f"the choice.")
+        else:
+            verdict = (f"The evidence favours <b>{_e(chosen)}</b>: it predicts held-out choices "
+                       f"best. The first stages give different estimates (a difference test "
+                       f"rejects at {TEST_LEVEL:g}), so the choice of first stage matters: "
+                       f"report {_e(chosen)} as the main estimate by this rule and show the "
+                       f"others beside it.")
+    items = "".join(f"<li>{_e(r)}</li>" for r in reasons)
+    return f"<div class='verdict'><p>{verdict}</p><ul>{items}</ul></div>{rule}"
+
+
+def _joint_note(test: pd.DataFrame) -> str:
+    """One sentence when the joint test rejects while every single test is far from it."""
+    w = test.attrs["wald"]
+    if w["p_value"] < TEST_LEVEL and (test["p_value"] > FAR_FROM_REJECTING).all():
+        return (
+            f"<p class='note'>The joint test rejects (p = {w['p_value']:.3f}) although no single "
+            f"difference comes close (every p &gt; {FAR_FROM_REJECTING:g}): the differences of "
+            f"the parameters are strongly correlated, so a combination of them is estimated far "
+            f"more precisely than any one of them, and it is that combination that differs.</p>"
+        )
+    return ""
+
+
+# --------------------------------------------------------------------------- sections
+def _estimates_section(comparison: Comparison, truth: Mapping[str, float] | None,
+                       level: float) -> str:
+    pct = f"{level * 100:g}%"
+    header = ["parameter", "first stage", "plug-in", "debiased", "s.e.", f"{pct} lower",
+              f"{pct} upper"]
+    if truth is not None:
+        header += ["truth", "covers"]
+    rows = []
+    for name in comparison.parameters:
+        for label, res in comparison.results.items():
+            ci = res.conf_int(level).loc[name]
+            plug = res.plugin_params[name] if res.plugin_params is not None else None
+            row: list[Any] = [str(name), label, plug, res.params[name], res.std_errors[name],
+                              ci["lower"], ci["upper"]]
+            if truth is not None:
+                if name not in truth:
+                    raise InputError(f"truth has no value for parameter {name!r}; give every "
+                                     f"parameter.")
+                row += [float(truth[name]), bool(ci["lower"] <= truth[name] <= ci["upper"])]
+            rows.append(row)
+    parts = ["<h2 id='estimates'>Estimates</h2>", _table(header, rows, left=2),
+             "<p class='note'>Plug-in: the pseudo-likelihood estimate with the cross-fitted "
+             "first stage plugged in. Debiased: the Neyman-orthogonal estimate, whose standard "
+             "errors (clustered by unit) and intervals include the first stage's noise. "
+             + ("Covers: whether the interval contains the true value (simulated data). "
+                if truth is not None else "") + "</p>"]
+    for label, why in comparison.failed.items():
+        parts.append(f"<p><b>First stage {_e(label)} failed</b> and gave no estimate: "
+                     f"{_e(why)}</p>")
+    if len(comparison.results) > 1:
+        parts.append(_figure(lambda: figures.coefficient_plot(comparison, level=level),
+                             f"Debiased estimates and {pct} intervals by first stage"))
+    if comparison.tests:
+        parts.append("<h3>Difference tests against the baseline "
+                     f"({_e(comparison.baseline)})</h3>")
+        rows = []
+        for label, test in comparison.tests.items():
+            for name, r in test.iterrows():
+                rows.append([label, str(name), r["difference"], r["std_error"], r["z"],
+                             r["p_value"]])
+        parts.append(_table(["first stage", "parameter", "difference", "s.e.", "z", "p"], rows,
+                            left=2))
+        for label, test in comparison.tests.items():
+            w = test.attrs["wald"]
+            parts.append(f"<p>Joint test {_e(label)} = {_e(comparison.baseline)}: Wald "
+                         f"{w['statistic']:.2f} on {w['dof']} degrees of freedom, p = "
+                         f"{w['p_value']:.3f}.</p>" + _joint_note(test))
+        parts.append("<p class='note'>The tests use both estimators' per-unit influence terms "
+                     "on the same units (no efficiency assumption); they are valid under the "
+                     "model's assumptions.</p>")
+    return "\n".join(parts)
+
+
+def _data_section(panel: Panel, res: Results) -> str:
+    frame = panel.frame
+    per_unit = np.bincount(panel.unit_codes)
+    gap_units = np.unique(panel.unit_codes[panel.gap_after]).size
+    periods = pd.Series(panel.periods)
+    facts = [
+        ("units", f"{panel.n_units:,}"),
+        ("rows", f"{panel.n_rows:,}"),
+        ("periods", f"{_e(periods.min())} to {_e(periods.max())} ({periods.nunique()} distinct)"),
+        ("rows per unit", f"min {per_unit.min()}, median {np.median(per_unit):g}, max "
+                          f"{per_unit.max()}"),
+        ("gaps", "none (every unit is observed in consecutive periods)"
+                 if not panel.gap_after.any() else
+                 f"{int(panel.gap_after.sum())} gap(s) between observed periods, in "
+                 f"{gap_units} unit(s)"),
+        ("states", _e(", ".join(panel.states))),
+        ("rows used", _e(res.accounting.describe())),
+    ]
+    items = "".join(f"<dt>{_e(k)}</dt><dd>{v}</dd>" for k, v in facts)
+    parts = ["<h2 id='data'>The data</h2>", f"<dl class='prov'>{items}</dl>"]
+    shares = pd.crosstab(panel.periods, frame[panel.choice].to_numpy(), normalize="index")
+    counts = pd.Series(panel.periods).value_counts().sort_index()
+    rows = [[_e(p), int(counts.loc[p]), *(_Raw(_pct(float(shares.loc[p, c])))
+                                         for c in shares.columns)] for p in shares.index]
+    parts.append(f"<h3>Choice shares by period ({_e(panel.period)})</h3>")
+    parts.append(_table([panel.period, "rows", *(str(c) for c in shares.columns)], rows))
+    return "\n".join(parts)
+
+
+def _first_stage_section(label: str, res: Results, fs: FoldStability | None) -> str:
+    parts = [f"<h3 id='fs-{_e(label)}'>{_e(label)}</h3>"]
+    facts = (f"Learner {res.learner} (continuation regressions: {res.regressor}), {res.folds} "
+             f"folds, {res.splits} split(s), {res.scheme} cross-fitting, {res.moments} moments; "
+             f"{res.n_learner_fits} learner fits. Solution: {describe_routes(res.solve_routes)}.")
+    parts.append(f"<p>{_e(facts)}</p>")
+    readings = []
+    if res.diagnostics is not None:
+        readings += res.diagnostics.readings()
+    if res.interval_check is not None and res.interval_check.flagged:
+        readings += res.interval_check.readings()
+    if fs is not None:
+        readings.append(fs.reading())
+    if readings:
+        parts.append("<ul>" + "".join(f"<li>{_e(r)}</li>" for r in readings) + "</ul>")
+    d = res.diagnostics
+    if d is not None:
+        if not d.ccp_quality.empty:
+            q = d.ccp_quality
+            parts.append("<p>Out-of-fold quality of the CCP by fold (baseline: the choice "
+                         "frequencies):</p>")
+            parts.append(_table(["fold", "rows", "log-loss", "log-loss (frequencies)", "Brier",
+                                 "Brier (frequencies)"],
+                                [[int(r.fold), int(r.rows), r.log_loss, r.log_loss_baseline,
+                                  r.brier, r.brier_baseline] for r in q.itertuples()]))
+        if not d.continuation_quality.empty:
+            parts.append("<p>Continuation regressions, out-of-fold R²:</p>")
+            parts.append(_table(["choice", "target", "rows", "R²"],
+                                [[str(r.choice), str(r.target), int(r.rows), r.r2]
+                                 for r in d.continuation_quality.itertuples()], left=2))
+        parts.append(_figure(lambda: figures.calibration_plot(res),
+                             f"CCP calibration, out of fold ({label})"))
+        parts.append(_figure(lambda: figures.overlap_plot(res),
+                             f"Overlap of the fitted CCPs ({label})"))
+    parts.append(_figure(lambda: figures.variance_plot(res),
+                         f"Where the variance comes from ({label})"))
+    if fs is not None:
+        parts.append("<p>Fold stability (each fold's first stage refitted with another "
+                     "seed):</p>")
+        t = fs.to_frame().reset_index()
+        parts.append(_table(["fold", "parameter", "estimate", "change", "change (s.e.)"],
+                            [[str(r.fold), str(r.parameter), r.estimate, r.change, r.change_se]
+                             for r in t.itertuples()], left=2))
+    return "\n".join(parts)
+
+
+def _sensitivity_section(sens: DiscountSensitivity) -> str:
+    t = sens.to_frame()
+    pct = f"{sens.level * 100:g}%"
+    order = {name: k for k, name in enumerate(dict.fromkeys(t["parameter"]))}
+    t = t.assign(_k=t["parameter"].map(order)).sort_values(["_k", "discount"], kind="stable")
+    rows = [[str(r.parameter), _Raw(f"{r.discount:g}" + (" (assumed)" if math.isclose(
+        r.discount, sens.assumed) else "")), r.estimate, r.std_error, r.lower, r.upper, r.plugin]
+        for r in t.itertuples()]
+    label = next(iter(sens.results.values())).learner
+    return "\n".join([
+        "<h2 id='discount'>Sensitivity to the discount factor</h2>",
+        f"<p>The model assumes β = {sens.assumed:g}. The same estimate at other discount "
+        f"factors, with the {_e(label)} first stage (fitted once; the moments, projections "
+        f"and steps redone at each β):</p>",
+        _figure(sens.plot, f"Estimates and {pct} intervals against the discount factor "
+                           f"({label})"),
+        _table(["parameter", "β", "debiased", "s.e.", f"{pct} lower", f"{pct} upper",
+                "plug-in"], rows, left=2),
+    ])
+
+
+def _provenance_section(comparison: Comparison, provenance: Mapping[str, str] | None) -> str:
+    base = next(iter(comparison.results.values()))
+    info: dict[str, str] = {
+        "data file": "not recorded (Python API)",
+        "spec file": "not recorded (Python API)",
+        "command": "orthoccp.write_report (Python API)",
+    }
+    info.update({k: str(v) for k, v in (provenance or {}).items()})
+    info.setdefault("date", _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"))
+    info["orthoccp version"] = base.version or __version__
+    info["seed"] = f"{base.seed} (folds and every learner's random state)"
+    info["first stages"] = ", ".join(comparison.results) + (
+        f" (baseline {comparison.baseline})" if len(comparison.results) > 1 else "")
+    model = base.model
+    info["model"] = (f"{model['kind']} model, anchor {model['anchor']!r}, discount "
+                     f"{model['discount']:g}")
+    items = "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in info.items())
+    return f"<h2 id='provenance'>Provenance</h2><dl class='prov'>{items}</dl>"
+
+
 def render_report(
     comparison: Comparison,
     *,
     title: str = "orthoccp estimation report",
     stability: Mapping[str, FoldStability] | None = None,
     truth: Mapping[str, float] | None = None,
+    panel: Panel | None = None,
+    sensitivity: DiscountSensitivity | None = None,
+    provenance: Mapping[str, str] | None = None,
+    level: float = 0.95,
 ) -> str:
     """The report as an HTML string.
 
@@ -84,65 +441,54 @@ def render_report(
     stability : mapping, optional
         First-stage label -> :func:`~orthoccp.stability.fold_stability` result.
     truth : mapping, optional
-        Parameter -> true value (simulated data only): adds a coverage table.
+        Parameter -> true value (simulated data only): adds the truth and coverage columns.
+    panel : Panel, optional
+        The data: adds their description (units, periods per unit, gaps, choice shares by
+        period) and the fitted CCP against the main state (the panel's first state).
+    sensitivity : DiscountSensitivity, optional
+        :func:`~orthoccp.discount_sensitivity` result: adds its figure and table.
+    provenance : mapping, optional
+        Entries such as ``"data file"``, ``"spec file"``, ``"command"``, ``"date"``; the
+        version, seed, first stages and model are added from the results.
+    level : float, default=0.95
+        Confidence level of the intervals.
     """
+    if not comparison.results:
+        raise InputError("the comparison holds no result; there is nothing to report.")
+    stability = dict(stability or {})
     base = comparison.results.get(comparison.baseline) or next(iter(comparison.results.values()))
+    date = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    provenance = {"date": date, **dict(provenance or {})}
+    m = base.model
     parts = [
-        "<!DOCTYPE html><html><head><meta charset='utf-8'>",
-        f"<title>{html.escape(title)}</title>",
-        "<style>body{font-family:Georgia,serif;max-width:60em;margin:2em auto;color:#111}"
-        "table.t{border-collapse:collapse;font-size:0.9em}table.t td,table.t th{padding:2px 8px;"
-        "border-bottom:1px solid #ccc;text-align:right}pre{background:#f6f6f6;padding:0.6em;"
-        "font-size:0.8em;overflow-x:auto}figure{margin:1em 0}img{max-width:100%}</style>",
-        "</head><body>",
-        f"<h1>{html.escape(title)}</h1>",
-        f"<p>orthoccp {__version__}. Model: {html.escape(str(base.model['kind']))}, anchor "
-        f"{html.escape(repr(base.model['anchor']))}, discount {base.model['discount']}. "
-        f"{html.escape(base.accounting.describe())} Units: {base.n_units}.</p>",
-        "<h2>Estimates by first stage</h2>",
-        _table(comparison.to_frame()),
-        f"<pre>{html.escape(comparison.summary())}</pre>",
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
+        "<meta name='viewport' content='width=device-width, initial-scale=1'>",
+        f"<title>{_e(title)}</title><style>{_CSS}</style></head><body>",
+        f"<h1>{_e(title)}</h1>",
+        f"<p class='meta'>{_e(m['kind'])} model, anchor {_e(repr(m['anchor']))}, discount "
+        f"{m['discount']:g}; {base.n_units:,} units; parameters "
+        f"{_e(', '.join(map(str, comparison.parameters)))}. orthoccp {_e(base.version or __version__)}, "
+        f"{_e(provenance['date'])}.</p>",
+        "<h2 id='reading'>Which first stage the evidence favours</h2>",
+        _reading(comparison, stability),
+        _estimates_section(comparison, truth, level),
     ]
-    for label, why in comparison.failed.items():
-        parts.append(
-            f"<h2>First stage: {html.escape(label)} (failed)</h2><p>This first stage gave no "
-            f"estimate: {html.escape(why)}</p>"
-        )
-    if truth is not None:
-        parts.append("<h2>Estimates against the truth (simulated data)</h2>")
-        parts.append(_table(truth_table(comparison, truth)))
-    try:
-        parts.append(_figure_tag(figures.coefficient_plot(comparison), "Debiased estimates by first stage"))
-    except Exception as exc:  # figures are optional: say why one is missing
-        parts.append(f"<p>(coefficient plot not drawn: {html.escape(str(exc))})</p>")
+    if panel is not None:
+        parts.append(_data_section(panel, base))
+    parts.append("<h2 id='first-stages'>First stages</h2>")
+    if any(r.diagnostics is not None and not r.diagnostics.ccp_by_state.empty
+           for r in comparison.results.values()):
+        parts.append(_figure(lambda: figures.ccp_state_plot(comparison),
+                             "Fitted choice probabilities (out of fold, lines) and observed "
+                             "shares (dots) against the main state"))
     for label, res in comparison.results.items():
-        parts.append(f"<h2>First stage: {html.escape(label)}</h2>")
-        parts.append(f"<pre>{html.escape(res.summary())}</pre>")
-        if res.diagnostics is not None:
-            d = res.diagnostics
-            parts.append("<ul>" + "".join(f"<li>{html.escape(r)}</li>" for r in d.readings()) + "</ul>")
-            parts.append("<h3>First-stage quality by fold</h3>" + _table(d.ccp_quality))
-            parts.append("<h3>Overlap</h3>" + _table(d.overlap))
-            if not d.continuation_quality.empty:
-                parts.append("<h3>Continuation regressions</h3>" + _table(d.continuation_quality))
-        if stability and label in stability:
-            fs = stability[label]
-            parts.append(
-                "<h3>Fold stability</h3>"
-                f"<p>{html.escape(fs.reading())}</p>" + _table(fs.to_frame())
-            )
-        if res.diagnostics is not None:
-            for fn, alt in (
-                (figures.calibration_plot, f"CCP calibration ({label})"),
-                (figures.overlap_plot, f"Overlap of fitted CCPs ({label})"),
-                (figures.variance_plot, f"Variance decomposition ({label})"),
-            ):
-                try:
-                    parts.append(_figure_tag(fn(res), alt))
-                except Exception as exc:
-                    parts.append(f"<p>({html.escape(alt)} not drawn: {html.escape(str(exc))})</p>")
-    parts.append("<h2>Assumptions</h2><p>The intervals and tests are valid only under:</p><ul>")
-    parts.extend(f"<li>{html.escape(a)}</li>" for a in ASSUMPTIONS)
+        parts.append(_first_stage_section(label, res, stability.get(label)))
+    if sensitivity is not None:
+        parts.append(_sensitivity_section(sensitivity))
+    parts.append(_provenance_section(comparison, provenance))
+    parts.append("<h2 id='assumptions'>Assumptions</h2><p>The intervals and tests are valid "
+                 "only under:</p><ul>")
+    parts.extend(f"<li>{_e(a)}</li>" for a in ASSUMPTIONS)
     parts.append("</ul></body></html>")
     return "\n".join(parts)
 
@@ -154,18 +500,22 @@ def write_report(
     title: str = "orthoccp estimation report",
     stability: Mapping[str, FoldStability] | None = None,
     truth: Mapping[str, float] | None = None,
+    panel: Panel | None = None,
+    sensitivity: DiscountSensitivity | None = None,
+    provenance: Mapping[str, str] | None = None,
 ) -> Path:
     """Write :func:`render_report` to ``path`` (a single results object is accepted too).
 
     ``path`` is checked before the report is drawn (not a folder, writable); an I/O error
-    names it.
+    names it. The options are those of :func:`render_report`.
     """
     if isinstance(comparison, Results):
         comparison = Comparison(results={comparison.learner: comparison}, baseline=comparison.learner)
     if not isinstance(path, (str, os.PathLike)):
         raise InputError(f"path must be a file name such as 'report.html', got {path!r}.")
     p = check_output(path, option="path")
-    text = render_report(comparison, title=title, stability=stability, truth=truth)
+    text = render_report(comparison, title=title, stability=stability, truth=truth, panel=panel,
+                         sensitivity=sensitivity, provenance=provenance)
     with writing(p):
         p.parent.mkdir(parents=True, exist_ok=True)
         p.write_text(text, encoding="utf-8")

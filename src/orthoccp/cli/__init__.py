@@ -82,6 +82,7 @@ def _main(argv: Sequence[str] | None) -> int:
         return 2
     except SystemExit as exc:  # --help and --version
         return _exit_code(exc.code)
+    args.command_line = [PROG, *args_list]  # the provenance a report records
     debug = bool(getattr(args, "debug", False))
     # LightGBM's OpenMP threads spin while they wait by default; on a busy machine (other
     # processes on the same cores) that slows the first stage by an order of magnitude.
@@ -91,8 +92,8 @@ def _main(argv: Sequence[str] | None) -> int:
     handler: _Handler | None = getattr(args, "handler", None)
     if handler is None:
         print(
-            f"{PROG}: error: choose a command: demo, simulate, estimate, compare, report or "
-            f"montecarlo "
+            f"{PROG}: error: choose a command: demo, simulate, estimate, sensitivity, compare, "
+            f"report or montecarlo "
             f"(see '{PROG} --help')",
             file=sys.stderr,
         )

@@ -1,4 +1,4 @@
-"""The command handlers: demo, simulate, estimate, compare, report and montecarlo."""
+"""The command handlers: demo, simulate, estimate, sensitivity, compare, report and montecarlo."""
 
 from __future__ import annotations
 
@@ -201,6 +201,57 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
     return 0
 
 
+# --------------------------------------------------------------------------- sensitivity
+def _discount_list(text: str) -> list[float]:
+    """``--discounts 0.9,0.95,0.99``: numbers separated by commas (checked by the function)."""
+    try:
+        return [float(part) for part in text.split(",") if part.strip()]
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"expected discount factors separated by commas, e.g. 0.9,0.95,0.99; got {text!r}"
+        ) from None
+
+
+def _cmd_sensitivity(args: argparse.Namespace) -> int:
+    from ..sensitivity import discount_sensitivity
+
+    progress = _Progress()
+    outputs = {"--json": _output_path("--json", args.json),
+               "--csv": _output_path("--csv", args.csv),
+               "--plot": _output_path("--plot", args.plot)}
+    if outputs["--plot"] is not None and outputs["--plot"].suffix.lower() not in (
+            ".png", ".svg", ".pdf"):
+        raise oc.InputError(f"--plot {args.plot!r} must end in .png, .svg or .pdf.")
+    check_outputs(outputs)
+    data_path, panel, model, options = _read_inputs(
+        args, progress, outputs, learner=args.learner, debias=False if args.naive else None)
+    progress.stage(
+        f"estimating at {len(args.discounts)} discount factors (the first stage once, with "
+        f"{options.get('learner', 'the default learner')})"
+    )
+    sens = discount_sensitivity(panel, model, discounts=args.discounts, **options)
+    print(sens.summary())
+    table = sens.to_frame()
+    doc = {
+        "inputs": {"data": str(data_path), "spec": str(args.spec)},
+        "assumed_discount": sens.assumed,
+        "level": sens.level,
+        "first_stage_fits": sens.first_stage_fits,
+        "rows": table.to_dict(orient="records"),
+    }
+    writers = {
+        "--json": lambda p: _write_text(p, _dumps(doc)),
+        "--csv": lambda p: _write_text(p, table.to_csv(index=False)),
+        "--plot": lambda p: sens.plot(path=p),
+    }
+    for option, path in outputs.items():
+        if path is not None:
+            writers[option](path)
+            print(f"wrote {path}")
+    progress.stage(f"done in {progress.elapsed:.1f}s")
+    return 0
+
+
 # --------------------------------------------------------------------------- compare, report
 def _first_stages(args: argparse.Namespace, options: dict[str, Any]) -> dict[str, str]:
     """``--with`` names in order (default: logit, then the spec's learner), without repeats."""
@@ -284,7 +335,7 @@ def _cmd_report(args: argparse.Namespace) -> int:
     if out.suffix.lower() not in (".html", ".htm"):
         raise oc.InputError(f"--out {args.out!r} must be an .html file name.")
     _require_matplotlib("the report's figures")
-    _, panel, model, options, cmp = _run_comparison(args, progress, {"--out": out})
+    data_path, panel, model, options, cmp = _run_comparison(args, progress, {"--out": out})
     stability = {}
     if args.stability:
         for label in cmp.results:
@@ -292,8 +343,20 @@ def _cmd_report(args: argparse.Namespace) -> int:
                 continue
             progress.stage(f"fold stability of {label}: refitting each fold with another seed")
             stability[label] = fold_stability(panel, model, learner=label, **options)
+    sensitivity = None
+    if args.discounts is not None:
+        from ..report import favoured_first_stage
+        from ..sensitivity import discount_sensitivity
+
+        label = favoured_first_stage(cmp, stability=stability)[0] or list(cmp.results)[-1]
+        progress.stage(f"sensitivity to the discount factor with {label}")
+        sensitivity = discount_sensitivity(panel, model, discounts=args.discounts,
+                                           learner=label, **options)
     progress.stage(f"writing {out}")
-    write_report(cmp, out, stability=stability)
+    provenance = {"data file": str(data_path), "spec file": str(args.spec),
+                  "command": shlex.join(getattr(args, "command_line", [PROG, "report"]))}
+    write_report(cmp, out, stability=stability, panel=panel, sensitivity=sensitivity,
+                 provenance=provenance)
     print(cmp.summary())
     for label, fs in stability.items():
         print(f"{label}: {fs.reading()}")
@@ -489,7 +552,10 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         )
         report_path = folder / "report.html"
         progress.stage(f"writing {report_path}")
-        write_report(cmp, report_path, truth=dict(sim.truth), title="orthoccp demo report")
+        write_report(cmp, report_path, truth=dict(sim.truth), title="orthoccp demo report",
+                     panel=panel, provenance={"data file": str(data_path),
+                                              "spec file": str(spec_path),
+                                              "command": "orthoccp demo"})
 
     print(
         f"orthoccp demo: simulated the {DEMO_SCENARIO!r} renewal scenario ({args.units} "

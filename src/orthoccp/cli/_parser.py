@@ -13,7 +13,9 @@ from ._commands import (
     _cmd_estimate,
     _cmd_montecarlo,
     _cmd_report,
+    _cmd_sensitivity,
     _cmd_simulate,
+    _discount_list,
     _estimator_list,
 )
 from ._plumbing import DEMO_FOLDER, DEMO_SCENARIO, PROG, _Formatter, _Parser
@@ -28,6 +30,7 @@ examples:
   orthoccp estimate panel.csv --spec panel.toml --json results.json
   orthoccp compare panel.csv --spec panel.toml --with logit --with lightgbm
   orthoccp report panel.csv --spec panel.toml --out report.html
+  orthoccp sensitivity panel.csv --spec panel.toml --discounts 0.9,0.95,0.99 --plot beta.png
   orthoccp montecarlo ebike --reps 50 --units 500 --learner logit --out mc.json
   orthoccp estimate --help
 
@@ -70,6 +73,7 @@ examples:
   orthoccp report panel.csv --spec panel.toml --out report.html
   orthoccp report panel.csv --spec panel.toml --with logit --with lightgbm --out report.html
   orthoccp report panel.csv --spec panel.toml --out report.html --no-stability   # faster
+  orthoccp report panel.csv --spec panel.toml --out report.html --discounts 0.9,0.95,0.99
 """
 
 _ESTIMATE_EPILOG = """\
@@ -104,6 +108,19 @@ spec file (TOML):
 """
 
 
+_SENSITIVITY_EPILOG = """\
+examples:
+  orthoccp sensitivity panel.csv --spec panel.toml --discounts 0.9,0.925,0.95,0.975
+  orthoccp sensitivity panel.csv --spec panel.toml --discounts 0.9,0.95,0.99 \\
+      --plot beta.png --csv beta.csv --json beta.json
+
+Re-estimates the model of SPEC at each discount factor with the same first stage: the
+cross-fitted CCPs and continuation regressions do not depend on the discount factor and are
+fitted once; everything that does (the moments, renewal-robust projections, model-implied
+steps) is redone. Each row equals 'orthoccp estimate' with model.discount set to that value.
+"""
+
+
 _MONTECARLO_EPILOG = """\
 examples:
   orthoccp montecarlo ebike --reps 50 --units 500 --periods 12 --learner logit --out mc.json
@@ -132,8 +149,35 @@ def _scenario_name(value: str) -> str:
     )
 
 
+def _add_data_and_spec(parser: argparse.ArgumentParser) -> None:
+    """The positional ``DATA`` (optional) and ``--spec``."""
+    parser.add_argument(
+        "data", metavar="DATA", nargs="?", default=None,
+        help="panel file (.csv or .parquet); default: data.path in the spec",
+    )
+    parser.add_argument("--spec", required=True, metavar="SPEC", help="spec file (TOML)")
+
+
+def _add_spec_overrides(parser: argparse.ArgumentParser, learners: tuple[str, ...]) -> None:
+    """``--naive``, ``--learner``, ``--folds`` and ``--seed``: the spec's settings overridden."""
+    parser.add_argument(
+        "--naive",
+        action="store_true",
+        help="plug-in estimator (debias = false); its standard errors ignore first-stage noise",
+    )
+    parser.add_argument(
+        "--learner", choices=learners, default=None, help="override first_stage.learner"
+    )
+    parser.add_argument(
+        "--folds", type=int, default=None, metavar="K", help="override first_stage.folds"
+    )
+    parser.add_argument(
+        "--seed", type=int, default=None, metavar="S", help="override first_stage.seed"
+    )
+
+
 def build_parser() -> argparse.ArgumentParser:
-    """The ``orthoccp`` argument parser with its six sub-commands.
+    """The ``orthoccp`` argument parser with its seven sub-commands.
 
     Returns
     -------
@@ -274,14 +318,7 @@ def build_parser() -> argparse.ArgumentParser:
         epilog=_ESTIMATE_EPILOG,
         formatter_class=_Formatter,
     )
-    est.add_argument(
-        "data",
-        metavar="DATA",
-        nargs="?",
-        default=None,
-        help="panel file (.csv or .parquet); default: data.path in the spec",
-    )
-    est.add_argument("--spec", required=True, metavar="SPEC", help="spec file (TOML)")
+    _add_data_and_spec(est)
     est.add_argument(
         "--json",
         metavar="OUT",
@@ -294,21 +331,34 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="write a LaTeX table of the estimates ('-' for stdout)",
     )
-    est.add_argument(
-        "--naive",
-        action="store_true",
-        help="plug-in estimator (debias = false); its standard errors ignore first-stage noise",
-    )
-    est.add_argument(
-        "--learner", choices=learners, default=None, help="override first_stage.learner"
-    )
-    est.add_argument(
-        "--folds", type=int, default=None, metavar="K", help="override first_stage.folds"
-    )
-    est.add_argument(
-        "--seed", type=int, default=None, metavar="S", help="override first_stage.seed"
-    )
+    _add_spec_overrides(est, learners)
     est.set_defaults(handler=_cmd_estimate)
+
+    sens = sub.add_parser(
+        "sensitivity",
+        parents=[common],
+        help="the estimates over a grid of discount factors (table and figure)",
+        description=(
+            "Estimate the model described by SPEC on DATA at each discount factor of "
+            "--discounts and print each parameter's estimate and interval against the "
+            "discount factor. The spec's model.discount is the assumed one (marked *)."
+        ),
+        epilog=_SENSITIVITY_EPILOG,
+        formatter_class=_Formatter,
+    )
+    _add_data_and_spec(sens)
+    sens.add_argument(
+        "--discounts", required=True, type=_discount_list, metavar="LIST",
+        help="discount factors in [0, 1) separated by commas, e.g. 0.9,0.95,0.99",
+    )
+    sens.add_argument("--json", metavar="OUT", default=None, help="write the table as JSON")
+    sens.add_argument("--csv", metavar="OUT", default=None, help="write the table as CSV")
+    sens.add_argument(
+        "--plot", metavar="OUT", default=None,
+        help="write the figure: each parameter against the discount factor (.png, .svg, .pdf)",
+    )
+    _add_spec_overrides(sens, learners)
+    sens.set_defaults(handler=_cmd_sensitivity)
 
     for name in ("compare", "report"):
         is_report = name == "report"
@@ -335,11 +385,7 @@ def build_parser() -> argparse.ArgumentParser:
             epilog=_REPORT_EPILOG if is_report else _COMPARE_EPILOG,
             formatter_class=_Formatter,
         )
-        cp.add_argument(
-            "data", metavar="DATA", nargs="?", default=None,
-            help="panel file (.csv or .parquet); default: data.path in the spec",
-        )
-        cp.add_argument("--spec", required=True, metavar="SPEC", help="spec file (TOML)")
+        _add_data_and_spec(cp)
         cp.add_argument(
             "--with", dest="first_stages", action="append", choices=learners, metavar="LEARNER",
             help=(
@@ -358,6 +404,11 @@ def build_parser() -> argparse.ArgumentParser:
             cp.add_argument(
                 "--no-stability", dest="stability", action="store_false",
                 help="skip the fold-stability refits (they cost one more first stage per learner)",
+            )
+            cp.add_argument(
+                "--discounts", type=_discount_list, default=None, metavar="LIST",
+                help="add the sensitivity to the discount factor at these values (e.g. "
+                "0.9,0.95,0.99), with the first stage the report favours",
             )
             cp.set_defaults(handler=_cmd_report)
         else:
