@@ -12,6 +12,7 @@ import pandas as pd
 
 import orthoccp as oc
 
+from .._options import check_option
 from .._outputs import check_outputs
 from ..spec import (
     Spec,
@@ -392,8 +393,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     from ..simulate import simulate
 
     progress = _Progress()
-    if args.folds < 2:
-        raise oc.InputError(f"--folds must be an integer >= 2, got {args.folds}.")
+    check_option("folds", args.folds, label="--folds")
     progress.stage(f"simulating {DEMO_SCENARIO!r}: {args.units} units x {args.periods} periods")
     sim = simulate(DEMO_SCENARIO, units=args.units, periods=args.periods, seed=args.seed)
     folder = _demo_folder(args.out)

@@ -13,6 +13,7 @@ import pandas as pd
 
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._numeric import central_jacobian
+from .._options import check_options
 from .._version import __version__
 from ..covariance import check_cov_name, cluster_codes, estimate_covariance
 from ..data import Panel
@@ -128,12 +129,7 @@ class MomentResults(Results):
 
 
 def _check_options(folds: Any, seed: Any, clip: Any, parameters: Any, start: Any) -> np.ndarray:
-    if isinstance(folds, bool) or not isinstance(folds, (int, np.integer)) or folds < 2:
-        raise InputError(f"folds must be an integer >= 2, got {folds!r}.")
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise InputError(f"seed must be a non-negative integer, got {seed!r}.")
-    if not isinstance(clip, (float, int)) or isinstance(clip, bool) or not (0 < float(clip) < 0.5):
-        raise InputError(f"clip must be a probability in (0, 0.5), got {clip!r}.")
+    check_options(folds=folds, seed=seed, clip=clip)
     if isinstance(parameters, str) or not isinstance(parameters, Sequence) or not parameters or not all(
         isinstance(p, str) and p for p in parameters
     ) or len(set(parameters)) != len(parameters):

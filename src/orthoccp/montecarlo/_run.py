@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import numbers
 import os
 import sys
 import time
@@ -10,6 +9,7 @@ from collections.abc import Callable, Iterable, Iterator, Sequence
 from typing import Any, TextIO
 
 from .._errors import InputError
+from .._options import check_option
 from ._replicate import run_replication
 from ._results import MonteCarloResults, _replications_frame
 from ._settings import (
@@ -53,10 +53,7 @@ class _Counter:
 
 
 def _workers(jobs: int) -> int:
-    if isinstance(jobs, bool) or not isinstance(jobs, numbers.Integral) or not (
-        jobs >= 1 or jobs == -1
-    ):
-        raise InputError(f"jobs must be a positive integer or -1 (all cores), got {jobs!r}.")
+    check_option("jobs", jobs)
     return (os.cpu_count() or 1) if jobs == -1 else int(jobs)
 
 

@@ -23,6 +23,7 @@ from scipy import optimize, stats
 from scipy.linalg import lu_factor, lu_solve
 
 from .._errors import EstimationError, InputError
+from .._options import check_option
 from .._labels import find_label, match_keys, match_label, show_label, show_labels
 from ._bellman import BellmanSolution, _newton_matrix, blas_limit, solve_bellman
 from ._transitions import TransitionEstimate, estimate_transitions
@@ -525,9 +526,7 @@ def nfxp_estimate(
     choices = tuple(choices)
     if len(choices) < 2 or len(set(map(str, choices))) != len(choices):
         raise InputError(f"choices must list at least two distinct labels, got {choices!r}.")
-    beta = float(discount)
-    if not 0.0 <= beta < 1.0:
-        raise InputError(f"discount must be in [0, 1), got {discount!r}.")
+    beta = check_option("discount", discount)
     if cov not in ("hessian", "opg"):
         raise InputError(f"cov must be 'hessian' or 'opg', got {cov!r}.")
     if not isinstance(utility, Mapping) or not utility:
