@@ -108,9 +108,28 @@ def describe_routes(routes: tuple[str, ...]) -> str:
     )
 
 
-def _num(x: float) -> float | None:
+def json_number(x: float) -> float | None:
+    """A finite float, or ``None`` for NaN and infinities (JSON has neither)."""
     x = float(x)
     return x if math.isfinite(x) else None
+
+
+def param_records(table: pd.DataFrame) -> list[dict[str, Any]]:
+    """The ``params`` list of every results record's JSON: one JSON-safe record per row.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Indexed by parameter, with columns ``estimate, std_error, ci_lower, ci_upper, z,
+        p_value``.
+
+    Returns
+    -------
+    list of dict
+        ``name`` and the six numbers (NaN and infinities as ``None``).
+    """
+    columns = ("estimate", "std_error", "ci_lower", "ci_upper", "z", "p_value")
+    return [{"name": str(k), **{c: json_number(r[c]) for c in columns}} for k, r in table.iterrows()]
 
 
 @dataclass(frozen=True, eq=False)
@@ -362,18 +381,7 @@ class Results:
         """JSON-safe dictionary (NaN and infinities become ``None``)."""
         t = self.to_frame(level)
         return {
-            "params": [
-                {
-                    "name": str(k),
-                    "estimate": _num(r.estimate),
-                    "std_error": _num(r.std_error),
-                    "ci_lower": _num(r.ci_lower),
-                    "ci_upper": _num(r.ci_upper),
-                    "z": _num(r.z),
-                    "p_value": _num(r.p_value),
-                }
-                for k, r in t.iterrows()
-            ],
+            "params": param_records(t),
             "level": level,
             "debiased": self.debiased,
             "moments": self.moments,
@@ -393,7 +401,7 @@ class Results:
             "regressor": self.regressor,
             "nuisance_source": self.nuisance_source,
             "plugin_params": (None if self.plugin_params is None else
-                              {str(k): _num(v) for k, v in self.plugin_params.items()}),
+                              {str(k): json_number(v) for k, v in self.plugin_params.items()}),
             "folds": self.folds,
             "splits": self.splits,
             "scheme": self.scheme,
@@ -401,13 +409,13 @@ class Results:
             "clip": self.clip,
             "cov_type": self.cov_type,
             "small_sample": self.small_sample,
-            "timings": {k: _num(v) for k, v in self.timings.items()},
+            "timings": {k: json_number(v) for k, v in self.timings.items()},
             "n_learner_fits": self.n_learner_fits,
             "clipped": {str(k): int(v) for k, v in self.clipped.items()},
             "variance_shares": {
-                str(p): {c: _num(v) for c, v in row.items()} for p, row in self.decomposition.iterrows()
+                str(p): {c: json_number(v) for c, v in row.items()} for p, row in self.decomposition.iterrows()
             },
-            "cov": [[_num(v) for v in row] for row in self.cov.to_numpy()],
+            "cov": [[json_number(v) for v in row] for row in self.cov.to_numpy()],
             "hansen_j": {"applicable": False, "reason": self.hansen_j.reason},
             "assumptions": list(ASSUMPTIONS),
             "version": self.version,

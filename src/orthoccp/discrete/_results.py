@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..results import Results, _num
+from ..results import Results, json_number
 from ._transitions import TransitionMatrices
 
 __all__ = ["DISCRETE_ASSUMPTIONS", "DiscreteResults"]
@@ -146,9 +146,9 @@ class DiscreteResults(Results):
             "values": self.values,
             "converged": self.converged,
             "iterations": self.iterations,
-            "last_change": _num(self.last_change),
-            "changes": [_num(c) for c in self.changes],
-            "loglik": _num(self.loglik),
+            "last_change": json_number(self.last_change),
+            "changes": [json_number(c) for c in self.changes],
+            "loglik": json_number(self.loglik),
             "n_states": self.n_states,
             "n_paths": self.n_paths,
             "horizon": self.horizon,

@@ -12,6 +12,7 @@ Newton--Kantorovich steps) to sup-norm 1e-12, warm-started from the previous tri
 
 from __future__ import annotations
 
+import json
 import time
 from collections.abc import Hashable, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -25,6 +26,8 @@ from scipy.linalg import lu_factor, lu_solve
 from .._errors import EstimationError, InputError
 from .._options import check_option
 from .._labels import find_label, match_keys, match_label, show_label, show_labels
+from .._version import __version__
+from ..results import json_number, param_records
 from ._bellman import BellmanSolution, _newton_matrix, blas_limit, solve_bellman
 from ._transitions import TransitionEstimate, estimate_transitions
 
@@ -264,6 +267,37 @@ class NFXPResults:
         return pd.DataFrame(
             {"lower": self.params - z * self.std_errors, "upper": self.params + z * self.std_errors}
         )
+
+    def to_dict(self, level: float = 0.95) -> dict[str, Any]:
+        """JSON-safe dictionary (NaN and infinities become ``None``).
+
+        ``params`` has the layout of :meth:`orthoccp.Results.to_dict`'s.
+        """
+        ci = self.conf_int(level)
+        z = self.params / self.std_errors
+        table = pd.DataFrame({
+            "estimate": self.params, "std_error": self.std_errors, "ci_lower": ci["lower"],
+            "ci_upper": ci["upper"], "z": z, "p_value": 2 * stats.norm.sf(np.abs(z)),
+        })
+        return {
+            "params": param_records(table),
+            "level": level,
+            "method": "nfxp",
+            "cov_type": self.cov_type,
+            "cov": [[json_number(v) for v in row] for row in self.cov.to_numpy()],
+            "n_units": self.n_units,
+            "n_obs": self.n_obs,
+            "n_states": self.n_states,
+            "loglik": json_number(self.loglik),
+            "converged": bool(self.converged),
+            "iterations": int(self.iterations),
+            "transitions": self.transitions.method,
+            "version": __version__,
+        }
+
+    def to_json(self, level: float = 0.95, **kwargs: Any) -> str:
+        """:meth:`to_dict` serialised (``allow_nan=False``: never writes NaN)."""
+        return json.dumps(self.to_dict(level), allow_nan=False, **kwargs)
 
     def summary(self) -> str:
         """A plain-text table of estimates and fit information."""
