@@ -446,6 +446,7 @@ def estimate(
         split_params=pd.DataFrame(np.vstack(thetas), columns=index) if splits > 1 else None,
         plugin_params=pd.Series(np.median(np.vstack(plugins), axis=0), index=index, name="plug-in"),
         nuisance_source=source,
+        model_ccp_steps=int(model_ccp_steps) if not static and nuisances is None else 0,
         moments=moments,
         diagnostics=diagnostics,
         fallback=dict(plan.reasons) if plan is not None else {},
