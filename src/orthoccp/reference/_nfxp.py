@@ -27,7 +27,7 @@ from .._errors import EstimationError, InputError
 from .._options import check_option
 from .._labels import find_label, match_keys, match_label, show_label, show_labels
 from .._version import __version__
-from ..results import json_number, param_records
+from ..results import estimates_block, json_number, param_records
 from ._bellman import BellmanSolution, _newton_matrix, blas_limit, solve_bellman
 from ._transitions import TransitionEstimate, estimate_transitions
 
@@ -273,14 +273,8 @@ class NFXPResults:
 
         ``params`` has the layout of :meth:`orthoccp.Results.to_dict`'s.
         """
-        ci = self.conf_int(level)
-        z = self.params / self.std_errors
-        table = pd.DataFrame({
-            "estimate": self.params, "std_error": self.std_errors, "ci_lower": ci["lower"],
-            "ci_upper": ci["upper"], "z": z, "p_value": 2 * stats.norm.sf(np.abs(z)),
-        })
         return {
-            "params": param_records(table),
+            "params": param_records(self.to_frame(level)),
             "level": level,
             "method": "nfxp",
             "cov_type": self.cov_type,
@@ -299,24 +293,28 @@ class NFXPResults:
         """:meth:`to_dict` serialised (``allow_nan=False``: never writes NaN)."""
         return json.dumps(self.to_dict(level), allow_nan=False, **kwargs)
 
-    def summary(self) -> str:
-        """A plain-text table of estimates and fit information."""
-        ci = self.conf_int()
-        lines = [
-            "Nested fixed point MLE (Rust 1987): full-solution benchmark",
+    def to_frame(self, level: float = 0.95) -> pd.DataFrame:
+        """Tidy table: one row per parameter (the columns of :meth:`orthoccp.Results.to_frame`)."""
+        ci = self.conf_int(level)
+        z = self.params / self.std_errors
+        return pd.DataFrame({
+            "estimate": self.params, "std_error": self.std_errors, "z": z,
+            "p_value": 2 * stats.norm.sf(np.abs(z)), "ci_lower": ci["lower"],
+            "ci_upper": ci["upper"],
+        }).rename_axis("parameter")
+
+    def summary(self, level: float = 0.95) -> str:
+        """A plain-text table of estimates (the one layout of every summary) and fit information."""
+        lines = estimates_block(["Nested fixed point MLE (Rust 1987): full-solution benchmark"],
+                                self.to_frame(level), level)
+        lines += [
             f"observations {self.n_obs}   units {self.n_units}   states {self.n_states}   "
             f"log-likelihood {self.loglik:.4f}",
             f"transitions: {self.transitions.method} (standard errors condition on them)   "
             f"cov: {self.cov_type}",
             f"outer iterations {self.iterations}   Bellman solves {self.inner['solves']}   "
             f"converged {self.converged}   {self.seconds:.3f} s",
-            f"{'parameter':<14}{'estimate':>12}{'std.err':>12}{'[0.025':>12}{'0.975]':>12}",
         ]
-        for k in self.params.index:
-            lines.append(
-                f"{str(k):<14}{self.params[k]:>12.5f}{self.std_errors[k]:>12.5f}"
-                f"{ci.loc[k, 'lower']:>12.5f}{ci.loc[k, 'upper']:>12.5f}"
-            )
         return "\n".join(lines)
 
 
