@@ -355,7 +355,7 @@ BAD_INPUTS: list[tuple[str, Case, str]] = [
     ("unknown spec key", _spec_case("folds = 3", "foldz = 3"), r"unknown key 'foldz' in \[first_stage\]; valid keys: learner, regressor, folds"),
     ("unknown spec table", _spec_case("[first_stage]", "[first_stages]"), r"unknown table or key 'first_stages'"),
     ("wrong type in spec", _spec_case("folds = 3", 'folds = "3"'), r"first_stage\.folds must be an integer >= 2, got '3' \(string\)"),
-    ("wrong type: discount", _spec_case("discount = 0.95", 'discount = "high"'), r"model\.discount must be a number, got 'high' \(string\)"),
+    ("wrong type: discount", _spec_case("discount = 0.95", 'discount = "high"'), r"model\.discount must be a number in \[0, 1\), got 'high' \(string\)"),
     ("invalid TOML", _spec_case("folds = 3", "folds = = 3"), r"edited\.toml: not valid TOML"),
     ("unknown learner in spec", _spec_case('learner = "logit"', 'learner = "boosting"'), r"first_stage\.learner must be one of"),
     ("bad --folds", lambda f, s, t: ["estimate", str(f["data"]), "--spec", str(s), "--folds", "1"], r"--folds must be an integer >= 2, got 1"),

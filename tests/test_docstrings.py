@@ -7,7 +7,7 @@ import importlib
 
 import pytest
 
-MODULES = ["orthoccp.data", "orthoccp.model", "orthoccp.results", "orthoccp.estimate", "orthoccp._numeric"]
+MODULES = ["orthoccp.data", "orthoccp.model", "orthoccp.results", "orthoccp.estimate", "orthoccp._numeric", "orthoccp._options"]
 
 
 @pytest.mark.parametrize("name", MODULES)

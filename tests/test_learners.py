@@ -26,7 +26,7 @@ class BadProba(DummyClassifier):
 
 def test_unknown_learner_lists_valid_names(small_ebike) -> None:  # type: ignore[no-untyped-def]
     panel, model, _ = panel_and_model(small_ebike)
-    with pytest.raises(oc.InputError, match="valid names: lightgbm, logit, lasso_logit, random_forest"):
+    with pytest.raises(oc.InputError, match="learner must be one of 'lightgbm', 'logit', 'lasso_logit', 'random_forest'"):
         oc.estimate(panel, model, learner="xgb")
 
 

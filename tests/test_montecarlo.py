@@ -211,7 +211,7 @@ def test_plot_with_a_broken_matplotlib_says_how_to_repair(
     ("options", "match"),
     [
         ({"scenario": "bus"}, "valid scenarios are 'ebike', 'ebike3', 'producers'"),
-        ({"learner": "xgboost"}, "learner 'xgboost' is unknown"),
+        ({"learner": "xgboost"}, "learner must be one of .*, got 'xgboost'; the Monte Carlo takes registry names only"),
         ({"reps": 0}, "reps must be an integer >= 1"),
         ({"folds": 2}, "folds must be >= 3"),
         ({"estimators": ("naive", "bootstrap")}, "estimators must be distinct names"),

@@ -283,7 +283,8 @@ BAD: dict[str, Case] = {
         options={"learner": FixedProba(classes=["keep", "swap"]), "regressor": "logit"}, cli=False,
     ),
     "unknown learner name": Case(
-        r"learner 'xgb' is unknown; valid names: lightgbm, logit", options={"learner": "xgb"},
+        r"learner must be one of 'lightgbm', 'logit'.*, got 'xgb'; from Python, a scikit-learn-style "
+        r"classifier also works", options={"learner": "xgb"},
         cli_match=r"first_stage\.learner must be one of 'lightgbm', 'logit'",
     ),
     # option types (API) and spec keys and types (CLI)
@@ -292,11 +293,11 @@ BAD: dict[str, Case] = {
         cli_match=r"first_stage\.folds must be an integer >= 2, got '3' \(string\)",
     ),
     "debias of the wrong type": Case(
-        r"debias must be True or False, got 'no' \(str\)", options={"debias": "no"},
+        r"debias must be true or false, got 'no' \(string\)", options={"debias": "no"},
         doc=_edit_doc("inference", "debias", "no"), cli_match=r"inference\.debias must be true or false",
     ),
     "small_sample of the wrong type": Case(
-        r"small_sample must be True or False, got 1 \(int\)", options={"small_sample": 1},
+        r"small_sample must be true or false, got 1 \(integer\)", options={"small_sample": 1},
         doc=_edit_doc("inference", "small_sample", 1), cli_match=r"inference\.small_sample must be true or false",
     ),
     "unknown covariance": Case(

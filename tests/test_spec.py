@@ -200,7 +200,7 @@ BAD_SPECS = [
     ("model.anchor", True, "model.anchor", r"string or integer\), got True \(boolean\)"),
     ("model.discount", 1.0, "model.discount", r"must be in \[0, 1\).*got 1\.0"),
     ("model.discount", -0.1, "model.discount", r"must be in \[0, 1\)"),
-    ("model.discount", "0.9", "model.discount", r"must be a number, got '0\.9' \(string\)"),
+    ("model.discount", "0.9", "model.discount", r"must be a number in \[0, 1\), got '0\.9' \(string\)"),
     ("model.persistent", ["x9"], "model.persistent", r"'x9', which is not one of data\.states"),
     ("first_stage.folds", "5", "first_stage.folds", r"integer >= 2, got '5' \(string\)"),
     ("first_stage.folds", 1, "first_stage.folds", r"integer >= 2, got 1"),

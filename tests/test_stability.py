@@ -86,7 +86,7 @@ def test_renewal_robust_moments_are_supported(setup) -> None:  # type: ignore[no
         ({"debias": False}, r"checks the debiased estimate"),
         ({"splits": 2}, r"refits the first stage itself; drop splits="),
         ({"folds": 1}, r"folds must be an integer >= 2"),
-        ({"scheme": "twice"}, r"scheme must be 'plain' or 'nested'"),
+        ({"scheme": "twice"}, r"scheme must be one of 'plain', 'nested', got 'twice'"),
     ],
 )
 def test_bad_options(setup, options, match) -> None:  # type: ignore[no-untyped-def]

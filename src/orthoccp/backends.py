@@ -42,6 +42,7 @@ from typing import Any
 import numpy as np
 
 from ._errors import InputError
+from ._options import check_option
 
 __all__ = [
     "BACKENDS",
@@ -360,13 +361,8 @@ def resolve_backend(backend: Any = None, n_jobs: Any = None) -> Backend:
     orthoccp.InputError
         For an unknown backend, a bad ``n_jobs``, or Dask options without ``distributed``.
     """
-    if n_jobs is not None and (
-        isinstance(n_jobs, bool) or not isinstance(n_jobs, (int, np.integer)) or n_jobs == 0
-        or n_jobs < -1
-    ):
-        raise InputError(
-            f"n_jobs must be a positive integer or -1 (one worker per core), got {n_jobs!r}."
-        )
+    if n_jobs is not None:
+        check_option("jobs", n_jobs, label="n_jobs")
     if backend is None:
         backend = "joblib" if n_jobs is not None and (n_jobs == -1 or n_jobs > 1) else "sequential"
     if isinstance(backend, str):

@@ -14,6 +14,7 @@ import pandas as pd
 
 from ._errors import EstimationError, InputError, OrthoCCPWarning
 from ._labels import show_label
+from ._options import check_option, check_options
 from ._version import __version__
 from .covariance import check_cov_name, estimate_covariance
 from .anchor import check_anchor_probability
@@ -94,34 +95,14 @@ def account_rows(bound: BoundModel) -> tuple[np.ndarray, np.ndarray, RowAccounti
     return rows, corrected[rows], acc
 
 
-def _check_flags(**flags: Any) -> None:
-    for name, value in flags.items():
-        if not isinstance(value, (bool, np.bool_)):
-            raise InputError(
-                f"{name} must be True or False, got {value!r} ({type(value).__name__})."
-            )
-
-
 def _check_scheme(scheme: Any, folds: int) -> None:
     """The cross-fitting scheme, and the folds the nested one needs."""
-    if scheme not in ("plain", "nested"):
-        raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
+    check_option("scheme", scheme)
     if scheme == "nested" and folds < 3:
         raise InputError(
             f"scheme='nested' needs folds >= 3 (it fits the CCP on folds outside each pair), got "
             f"folds={folds}; use more folds or scheme='plain'."
         )
-
-
-def _check_options(folds: Any, splits: Any, clip: Any, seed: Any) -> None:
-    if isinstance(splits, bool) or not isinstance(splits, (int, np.integer)) or splits < 1:
-        raise InputError(f"splits must be a positive integer, got {splits!r}.")
-    if isinstance(folds, bool) or not isinstance(folds, (int, np.integer)) or folds < 2:
-        raise InputError(f"folds must be an integer >= 2, got {folds!r}.")
-    if not isinstance(clip, (float, int)) or not (0 < float(clip) < 0.5):
-        raise InputError(f"clip must be a probability in (0, 0.5), got {clip!r}.")
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise InputError(f"seed must be a non-negative integer, got {seed!r}.")
 
 
 def estimate(
@@ -239,8 +220,8 @@ def estimate(
         )
     if not isinstance(model, Model):
         raise InputError(f"model must be an orthoccp.Model, got {type(model).__name__}.")
-    _check_options(folds, splits, clip, seed)
-    _check_flags(debias=debias, small_sample=small_sample)
+    check_options(splits=splits, folds=folds, clip=clip, seed=seed, debias=debias,
+                  small_sample=small_sample)
     check_cov_name(cov)
     runner = resolve_backend(backend, n_jobs)
     _check_scheme(scheme, folds)
@@ -465,6 +446,7 @@ def estimate(
         split_params=pd.DataFrame(np.vstack(thetas), columns=index) if splits > 1 else None,
         plugin_params=pd.Series(np.median(np.vstack(plugins), axis=0), index=index, name="plug-in"),
         nuisance_source=source,
+        model_ccp_steps=int(model_ccp_steps) if not static and nuisances is None else 0,
         moments=moments,
         diagnostics=diagnostics,
         fallback=dict(plan.reasons) if plan is not None else {},

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._errors import InputError
+from ._options import check_option
 
 __all__ = ["unit_folds"]
 
@@ -37,8 +38,7 @@ def unit_folds(
         Fold index (0..K-1) per row.
     """
     n_units = int(unit_codes.max()) + 1 if unit_codes.size else 0
-    if not isinstance(n_folds, (int, np.integer)) or isinstance(n_folds, bool) or n_folds < 2:
-        raise InputError(f"folds must be an integer >= 2, got {n_folds!r}.")
+    check_option("folds", n_folds)
     if n_units < n_folds:
         raise InputError(
             f"folds={n_folds} but the data have only {n_units} unit(s); cross-fitting by unit "

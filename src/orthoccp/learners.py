@@ -16,6 +16,7 @@ import numpy as np
 from sklearn.base import clone, is_classifier
 
 from ._errors import InputError
+from ._options import check_option
 
 __all__ = ["LearnerPair", "resolve_learners", "learner_names"]
 
@@ -207,11 +208,7 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
         (``"lightgbm"``'s when ``learner`` is an object).
     """
     if isinstance(learner, str):
-        if learner not in _REGISTRY:
-            raise InputError(
-                f"learner {learner!r} is unknown; valid names: {', '.join(_REGISTRY)} "
-                f"(or pass a scikit-learn-style classifier)."
-            )
+        check_option("learner", learner)
         clf, reg = _REGISTRY[learner]()
         name = learner
     else:
@@ -224,11 +221,7 @@ def resolve_learners(learner: Any, regressor: Any = None) -> LearnerPair:
     if regressor is None:
         reg_name = name if isinstance(learner, str) else "lightgbm"
     elif isinstance(regressor, str):
-        if regressor not in _REGISTRY:
-            raise InputError(
-                f"regressor {regressor!r} is unknown; valid names: {', '.join(_REGISTRY)} "
-                f"(or pass a scikit-learn-style regressor)."
-            )
+        check_option("regressor", regressor)
         reg = _REGISTRY[regressor]()[1]
         reg_name = regressor
     else:

@@ -14,6 +14,7 @@ from typing import Any, Literal
 import numpy as np
 
 from ._errors import InputError
+from ._options import check_option
 from ._labels import check_declared, declare_in_python, match_keys, match_label, show_label
 from .data import Panel
 
@@ -96,17 +97,7 @@ class Model:
             raise InputError(
                 f"kind must be 'renewal' or 'terminal', got {self.kind!r}."
             )
-        if isinstance(self.discount, (bool, np.bool_)) or not isinstance(
-            self.discount, (int, float, np.integer, np.floating)
-        ):
-            raise InputError(f"discount must be a number in [0, 1), got {self.discount!r}.")
-        beta = float(self.discount)
-        if not (0.0 <= beta < 1.0) or not np.isfinite(beta):
-            raise InputError(
-                f"discount must be in [0, 1), got {self.discount!r}; the infinite-horizon "
-                f"model needs beta < 1."
-            )
-        object.__setattr__(self, "discount", beta)
+        object.__setattr__(self, "discount", check_option("discount", self.discount))
         if not isinstance(self.utility, Mapping) or not self.utility:
             raise InputError("utility must map at least one choice to {parameter: column}.")
         for choice, spec in self.utility.items():

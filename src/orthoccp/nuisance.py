@@ -28,6 +28,7 @@ from typing import Any, Literal
 import numpy as np
 
 from ._errors import InputError
+from ._options import check_option
 from .backends import Backend, limit_threads, resolve_backend, take_rows
 from .learners import LearnerPair, checked_proba
 from .model import BoundModel
@@ -254,8 +255,7 @@ def crossfit_nuisances(
     Tasks name their rows by index arrays into the one feature matrix
     (``Panel.features``), which is never copied per fold.
     """
-    if scheme not in ("plain", "nested"):
-        raise InputError(f"scheme must be 'plain' or 'nested', got {scheme!r}.")
+    check_option("scheme", scheme)
     backend = backend if backend is not None else resolve_backend("sequential")
     panel = bound.panel
     X = panel.features

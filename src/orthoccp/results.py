@@ -115,9 +115,73 @@ def describe_routes(routes: tuple[str, ...]) -> str:
     )
 
 
-def _num(x: float) -> float | None:
+def json_number(x: float) -> float | None:
+    """A finite float, or ``None`` for NaN and infinities (JSON has neither)."""
     x = float(x)
     return x if math.isfinite(x) else None
+
+
+def estimates_block(title: list[str], table: pd.DataFrame, level: float) -> list[str]:
+    """The estimates table of every summary, under its title lines.
+
+    Parameters
+    ----------
+    title : list of str
+        The lines above the table (method, model).
+    table : pandas.DataFrame
+        As :meth:`Results.to_frame` returns it.
+    level : float
+        Confidence level of the interval columns.
+
+    Returns
+    -------
+    list of str
+        The title, a rule, the header, the rows (one per parameter) and a closing rule.
+    """
+    pct = int(round(level * 100))
+    head = (f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}"
+            f"{f'[{pct}% conf. int.]':>24}")
+    lines = [*title, "=" * len(head), head, "-" * len(head)]
+    for name, r in table.iterrows():
+        lines.append(
+            f"{str(name):<18}{r.estimate:>11.4f}{r.std_error:>11.4f}{r.z:>8.2f}{r.p_value:>8.3f}"
+            f"{r.ci_lower:>12.4f}{r.ci_upper:>12.4f}"
+        )
+    lines.append("-" * len(head))
+    return lines
+
+
+def covariance_line(cov_type: str, small_sample: bool) -> str:
+    """``covariance: <rule> by unit[ with n/(n-1) factor]``, the start of every summary's line."""
+    return f"covariance: {cov_type} by unit" + (" with n/(n-1) factor" if small_sample else "")
+
+
+def variance_share_lines(decomposition: pd.DataFrame, heading: str) -> list[str]:
+    """The variance shares per parameter (nothing when there is one component)."""
+    if decomposition.shape[1] <= 1:
+        return []
+    return [heading] + [
+        f"  {str(name):<16}" + "  ".join(f"{c} {v:6.1%}" for c, v in r.items())
+        for name, r in decomposition.iterrows()
+    ]
+
+
+def param_records(table: pd.DataFrame) -> list[dict[str, Any]]:
+    """The ``params`` list of every results record's JSON: one JSON-safe record per row.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Indexed by parameter, with columns ``estimate, std_error, ci_lower, ci_upper, z,
+        p_value``.
+
+    Returns
+    -------
+    list of dict
+        ``name`` and the six numbers (NaN and infinities as ``None``).
+    """
+    columns = ("estimate", "std_error", "ci_lower", "ci_upper", "z", "p_value")
+    return [{"name": str(k), **{c: json_number(r[c]) for c in columns}} for k, r in table.iterrows()]
 
 
 @dataclass(frozen=True, eq=False)
@@ -148,6 +212,9 @@ class Results:
     interval_check : IntervalCheck or None
         Signs that a parameter's normal interval may not hold (:mod:`orthoccp.interval_checks`);
         None for the plug-in estimator.
+    model_ccp_steps : int
+        Model-implied CCP steps after the cross-fitted first stage (0: none); the summary
+        then labels ``plugin_params`` as the learner's first stage.
     """
 
     params: pd.Series
@@ -176,6 +243,7 @@ class Results:
     split_params: pd.DataFrame | None = field(default=None, repr=False)
     plugin_params: pd.Series | None = None
     nuisance_source: str = "cross-fitted"
+    model_ccp_steps: int = 0
     moments: str = "standard"
     diagnostics: Any = field(default=None, repr=False)
     fallback: dict[str, str] = field(default_factory=dict)
@@ -267,22 +335,10 @@ class Results:
             Include the line with the plug-in estimates that the debiased solve starts from
             (leave it out when a separate plug-in estimate is shown beside the summary).
         """
-        t = self.to_frame(level)
-        pct = int(round(level * 100))
-        head = f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}{f'[{pct}% conf. int.]':>24}"
-        lines = [
+        lines = estimates_block([
             f"orthoccp {self.version}: {self.method}",
             f"model: {self.model['kind']}, anchor {show_label(self.model['anchor'])}, discount {self.model['discount']}",
-            "=" * len(head),
-            head,
-            "-" * len(head),
-        ]
-        for name, r in t.iterrows():
-            lines.append(
-                f"{str(name):<18}{r.estimate:>11.4f}{r.std_error:>11.4f}{r.z:>8.2f}{r.p_value:>8.3f}"
-                f"{r.ci_lower:>12.4f}{r.ci_upper:>12.4f}"
-            )
-        lines.append("-" * len(head))
+        ], self.to_frame(level), level)
         lines.append(f"units {self.n_units}; {self.accounting.describe()}")
         fs = (
             f"first stage: {self.nuisance_source}; CCP learner {self.learner}, continuation "
@@ -292,11 +348,8 @@ class Results:
         lines.append(fs)
         clipped = ", ".join(f"{k}: {v}" for k, v in self.clipped.items())
         lines.append(f"probabilities clipped to [{self.clip:g}, {1 - self.clip:g}]; rows clipped per choice: {clipped}")
-        lines.append(
-            f"covariance: {self.cov_type} by unit"
-            + (" with n/(n-1) factor" if self.small_sample else "")
-            + ("" if self.debiased else " (first-stage noise ignored)")
-        )
+        lines.append(covariance_line(self.cov_type, self.small_sample)
+                     + ("" if self.debiased else " (first-stage noise ignored)"))
         if self.moments == "renewal_robust":
             lines.append(
                 "moments: renewal_robust (instruments residualised on the persistent states "
@@ -319,7 +372,7 @@ class Results:
             for k, note in enumerate(self.solve_notes):
                 if note:
                     lines.append(f"  split {k + 1}: {' '.join(note.split())}")
-        stepped = "model-implied" in self.nuisance_source
+        stepped = self.model_ccp_steps > 0
         if plugin and self.plugin_params is not None and (self.debiased or stepped):
             if stepped:
                 label = ("plug-in estimates (the learner's first stage, before the model-implied "
@@ -332,15 +385,9 @@ class Results:
             lines.append(
                 label + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items())
             )
-        if self.decomposition.shape[1] > 1:
-            lines.append(
-                "variance shares, Cov(part, psi)/Var(psi), adding up to 100% (m: identifying "
-                "moment, phi_mu: continuation correction, phi_P: CCP correction):"
-            )
-            for name, r in self.decomposition.iterrows():
-                lines.append(
-                    f"  {str(name):<16}" + "  ".join(f"{c} {v:6.1%}" for c, v in r.items())
-                )
+        lines.extend(variance_share_lines(
+            self.decomposition, "variance shares, Cov(part, psi)/Var(psi), adding up to 100% "
+            "(m: identifying moment, phi_mu: continuation correction, phi_P: CCP correction):"))
         if self.interval_check is not None:
             lines.extend(self.interval_check.readings())
         if self.diagnostics is not None:
@@ -389,18 +436,7 @@ class Results:
         """JSON-safe dictionary (NaN and infinities become ``None``)."""
         t = self.to_frame(level)
         return {
-            "params": [
-                {
-                    "name": str(k),
-                    "estimate": _num(r.estimate),
-                    "std_error": _num(r.std_error),
-                    "ci_lower": _num(r.ci_lower),
-                    "ci_upper": _num(r.ci_upper),
-                    "z": _num(r.z),
-                    "p_value": _num(r.p_value),
-                }
-                for k, r in t.iterrows()
-            ],
+            "params": param_records(t),
             "level": level,
             "debiased": self.debiased,
             "moments": self.moments,
@@ -420,7 +456,7 @@ class Results:
             "regressor": self.regressor,
             "nuisance_source": self.nuisance_source,
             "plugin_params": (None if self.plugin_params is None else
-                              {str(k): _num(v) for k, v in self.plugin_params.items()}),
+                              {str(k): json_number(v) for k, v in self.plugin_params.items()}),
             "folds": self.folds,
             "splits": self.splits,
             "scheme": self.scheme,
@@ -428,13 +464,13 @@ class Results:
             "clip": self.clip,
             "cov_type": self.cov_type,
             "small_sample": self.small_sample,
-            "timings": {k: _num(v) for k, v in self.timings.items()},
+            "timings": {k: json_number(v) for k, v in self.timings.items()},
             "n_learner_fits": self.n_learner_fits,
             "clipped": {str(k): int(v) for k, v in self.clipped.items()},
             "variance_shares": {
-                str(p): {c: _num(v) for c, v in row.items()} for p, row in self.decomposition.iterrows()
+                str(p): {c: json_number(v) for c, v in row.items()} for p, row in self.decomposition.iterrows()
             },
-            "cov": [[_num(v) for v in row] for row in self.cov.to_numpy()],
+            "cov": [[json_number(v) for v in row] for row in self.cov.to_numpy()],
             "hansen_j": {"applicable": False, "reason": self.hansen_j.reason},
             "assumptions": list(ASSUMPTIONS),
             "version": self.version,

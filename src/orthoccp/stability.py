@@ -31,7 +31,8 @@ import pandas as pd
 from ._errors import InputError
 from ._progress import progress_bar
 from .data import Panel
-from .estimate import _check_options, _check_scheme, _choose_moments, estimate
+from ._options import check_options
+from .estimate import _check_scheme, _choose_moments, estimate
 from .folds import unit_folds
 from .instruments import persistent_feature_columns
 from .learners import resolve_learners
@@ -148,7 +149,7 @@ def fold_stability(
     for key in ("nuisances", "splits"):
         if key in options:
             raise InputError(f"fold_stability refits the first stage itself; drop {key}=.")
-    _check_options(folds, 1, clip, seed)
+    check_options(folds=folds, clip=clip, seed=seed)
     _check_scheme(scheme, folds)
     bound = model.bind(panel)
     if not bound.has_next_stage:

@@ -22,6 +22,7 @@ import pandas as pd
 from scipy.special import expit, logit
 
 from .._errors import InputError
+from .._options import check_option
 from ._crossfit import FittedNuisance, evaluate_target
 from ._dictionary import Dictionary, build_dictionary
 from ._estimate import MomentFit, MomentResults
@@ -187,8 +188,7 @@ def check_orthogonality(
         )
     if isinstance(directions, bool) or not isinstance(directions, (int, np.integer)) or directions < 1:
         raise InputError(f"directions must be a positive integer, got {directions!r}.")
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise InputError(f"seed must be a non-negative integer, got {seed!r}.")
+    check_option("seed", seed)
     for name, v in (("step", step), ("tol", tol)):
         if isinstance(v, bool) or not isinstance(v, (int, float)) or not (np.isfinite(v) and v > 0):
             raise InputError(f"{name} must be a positive number, got {v!r}.")

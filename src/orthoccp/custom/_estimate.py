@@ -13,12 +13,13 @@ import pandas as pd
 
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._numeric import central_jacobian
+from .._options import check_options
 from .._version import __version__
 from ..covariance import check_cov_name, cluster_codes, estimate_covariance
 from ..data import Panel
 from ..folds import unit_folds
 from ..learners import LearnerPair, resolve_learners
-from ..results import NotApplicable, Results, RowAccounting
+from ..results import NotApplicable, Results, RowAccounting, covariance_line, estimates_block
 from ._crossfit import FittedNuisance, crossfit
 from ._functions import MomentFunction
 from ._gmm import GMMFit, HansenJ, anderson_step, cluster_sums, two_step_gmm
@@ -86,25 +87,17 @@ class MomentResults(Results):
         return "GMM with user moments, plug-in (NOT debiased; standard errors ignore first-stage noise)"
 
     def summary(self, level: float = 0.95) -> str:
-        t = self.to_frame(level)
-        pct = int(round(level * 100))
-        head = f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}{f'[{pct}% conf. int.]':>24}"
-        lines = [f"orthoccp {self.version}: {self.method}",
-                 f"moments: {self.model['n_moments']} for {len(self.params)} parameters; "
-                 f"nuisances: {', '.join(self.model['nuisances'])}",
-                 "=" * len(head), head, "-" * len(head)]
-        for name, r in t.iterrows():
-            lines.append(
-                f"{str(name):<18}{r.estimate:>11.4f}{r.std_error:>11.4f}{r.z:>8.2f}{r.p_value:>8.3f}"
-                f"{r.ci_lower:>12.4f}{r.ci_upper:>12.4f}"
-            )
-        lines.append("-" * len(head))
+        lines = estimates_block([
+            f"orthoccp {self.version}: {self.method}",
+            f"moments: {self.model['n_moments']} for {len(self.params)} parameters; "
+            f"nuisances: {', '.join(self.model['nuisances'])}",
+        ], self.to_frame(level), level)
         lines.append(f"units {self.n_units}; {self.accounting.describe()}")
         lines.append(f"first stage: {self.learner}; {self.folds} folds by unit, seed {self.seed}; "
                      f"{self.n_learner_fits} learner fits")
         if self.debiased:
             lines.append(f"correction: {self.model['riesz']}")
-        lines.append(f"covariance: {self.cov_type} by unit" + (" with n/(n-1) factor" if self.small_sample else ""))
+        lines.append(covariance_line(self.cov_type, self.small_sample))
         h = self.hansen
         lines.append(f"Hansen J: {h}" if isinstance(h, HansenJ) else f"Hansen J: not applicable ({h.reason}).")
         lines.append("Inference is valid only under the assumptions:")
@@ -128,12 +121,7 @@ class MomentResults(Results):
 
 
 def _check_options(folds: Any, seed: Any, clip: Any, parameters: Any, start: Any) -> np.ndarray:
-    if isinstance(folds, bool) or not isinstance(folds, (int, np.integer)) or folds < 2:
-        raise InputError(f"folds must be an integer >= 2, got {folds!r}.")
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise InputError(f"seed must be a non-negative integer, got {seed!r}.")
-    if not isinstance(clip, (float, int)) or isinstance(clip, bool) or not (0 < float(clip) < 0.5):
-        raise InputError(f"clip must be a probability in (0, 0.5), got {clip!r}.")
+    check_options(folds=folds, seed=seed, clip=clip)
     if isinstance(parameters, str) or not isinstance(parameters, Sequence) or not parameters or not all(
         isinstance(p, str) and p for p in parameters
     ) or len(set(parameters)) != len(parameters):

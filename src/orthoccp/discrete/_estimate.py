@@ -14,6 +14,7 @@ from scipy import sparse
 
 from .._arrays import label_index
 from .._errors import EstimationError, InputError, OrthoCCPWarning
+from .._options import check_option
 from .._version import __version__
 from ..covariance import CovarianceEstimate, check_cov_name, estimate_covariance
 from ..data import Panel
@@ -89,10 +90,7 @@ def build_problem(
     """
     if not isinstance(panel, Panel):
         raise InputError(f"panel must be an orthoccp.Panel, got {type(panel).__name__}.")
-    if isinstance(discount, bool) or not isinstance(discount, (int, float, np.integer, np.floating)) \
-            or not 0.0 <= float(discount) < 1.0:
-        raise InputError(f"discount must be a number in [0, 1), got {discount!r}.")
-    beta = float(discount)
+    beta = check_option("discount", discount)
     choices = tuple(panel.choices)
     J = len(choices)
     if J < 2:
@@ -189,8 +187,7 @@ def _check_options(
             raise InputError(f"{name} must be an integer >= {lo}, got {v!r}.")
     if not isinstance(tol, (int, float)) or not 0 < tol < 1:
         raise InputError(f"tol must be a number in (0, 1), got {tol!r}.")
-    if not isinstance(clip, (int, float)) or not 0 < clip < 0.5:
-        raise InputError(f"clip must be in (0, 0.5), got {clip!r}.")
+    check_option("clip", clip)
     check_cov_name(cov)
 
 
@@ -370,6 +367,7 @@ def estimate_discrete(
     """
     t_start = time.perf_counter()
     _check_options(estimator, values, max_iterations, tol, clip, cov, steps)
+    check_option("small_sample", small_sample)
     if isinstance(sieve_degree, bool) or not isinstance(sieve_degree, (int, np.integer)) \
             or sieve_degree < 1:
         raise InputError(f"sieve_degree must be an integer >= 1, got {sieve_degree!r}.")

@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..results import Results, _num
+from ..results import Results, covariance_line, estimates_block, json_number, variance_share_lines
 from ._transitions import TransitionMatrices
 
 __all__ = ["DISCRETE_ASSUMPTIONS", "DiscreteResults"]
@@ -93,22 +93,11 @@ class DiscreteResults(Results):
 
     def summary(self, level: float = 0.95) -> str:
         """Plain-text summary: estimates, iterations, transitions, variance sources, assumptions."""
-        t = self.to_frame(level)
-        pct = int(round(level * 100))
-        head = (f"{'parameter':<18}{'estimate':>11}{'std.err':>11}{'z':>8}{'p':>8}"
-                f"{f'[{pct}% conf. int.]':>24}")
-        lines = [
+        lines = estimates_block([
             f"orthoccp {self.version}: {self.method}",
             f"model: discrete states ({self.n_states}), discount {self.model['discount']}; "
             f"no renewal or terminal choice needed",
-            "=" * len(head), head, "-" * len(head),
-        ]
-        for name, r in t.iterrows():
-            lines.append(
-                f"{str(name):<18}{r.estimate:>11.4f}{r.std_error:>11.4f}{r.z:>8.2f}"
-                f"{r.p_value:>8.3f}{r.ci_lower:>12.4f}{r.ci_upper:>12.4f}"
-            )
-        lines.append("-" * len(head))
+        ], self.to_frame(level), level)
         lines.append(f"units {self.n_units}; rows {self.n_rows} (all enter the likelihood); "
                      f"log-likelihood {self.loglik:.4f}")
         if self.estimator == "npl":
@@ -124,15 +113,12 @@ class DiscreteResults(Results):
             lines.append(f"transitions: {tm.method}{extra} from {tm.n_transitions} observed "
                          f"transitions")
         lines.append(
-            f"covariance: {self.cov_type} by unit"
-            + (" with n/(n-1) factor" if self.small_sample else "")
+            covariance_line(self.cov_type, self.small_sample)
             + "; includes the transition estimate's noise"
             + (" and the simulation noise" if self.values == "simulation" else "")
         )
-        if self.decomposition.shape[1] > 1:
-            lines.append("variance shares (choices: pseudo-score, transitions: first step):")
-            for name, r in self.decomposition.iterrows():
-                lines.append(f"  {str(name):<16}" + "  ".join(f"{c} {v:6.1%}" for c, v in r.items()))
+        lines.extend(variance_share_lines(
+            self.decomposition, "variance shares (choices: pseudo-score, transitions: first step):"))
         lines.append("Inference is valid only under the model's assumptions:")
         lines.extend(f"  - {a}" for a in DISCRETE_ASSUMPTIONS)
         return "\n".join(lines)
@@ -146,9 +132,9 @@ class DiscreteResults(Results):
             "values": self.values,
             "converged": self.converged,
             "iterations": self.iterations,
-            "last_change": _num(self.last_change),
-            "changes": [_num(c) for c in self.changes],
-            "loglik": _num(self.loglik),
+            "last_change": json_number(self.last_change),
+            "changes": [json_number(c) for c in self.changes],
+            "loglik": json_number(self.loglik),
             "n_states": self.n_states,
             "n_paths": self.n_paths,
             "horizon": self.horizon,

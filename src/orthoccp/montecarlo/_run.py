@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import numbers
 import os
 import time
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from typing import Any
 
-from .._errors import InputError
 from .._progress import progress_bar
+from .._options import check_option
 from ._replicate import run_replication
 from ._results import MonteCarloResults, _replications_frame
 from ._settings import (
@@ -22,10 +21,7 @@ from ._settings import (
 
 
 def _workers(jobs: int) -> int:
-    if isinstance(jobs, bool) or not isinstance(jobs, numbers.Integral) or not (
-        jobs >= 1 or jobs == -1
-    ):
-        raise InputError(f"jobs must be a positive integer or -1 (all cores), got {jobs!r}.")
+    check_option("jobs", jobs)
     return (os.cpu_count() or 1) if jobs == -1 else int(jobs)
 
 

@@ -8,7 +8,7 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 from .._errors import EstimationError, InputError
-from ..learners import learner_names
+from .._options import check_option
 
 ESTIMATORS: tuple[str, ...] = ("naive", "debiased", "oracle", "oracle_debiased")
 """Every estimator name, in the order they are run and reported."""
@@ -214,7 +214,7 @@ def _check_settings(settings: MonteCarloSettings) -> None:
             f"unknown scenario {settings.scenario!r}; valid scenarios are {valid}, or a family "
             f"design id such as 'F07'."
         )
-    folds = _integer("folds", settings.folds, minimum=2)
+    folds = check_option("folds", settings.folds)
     if folds < 3:
         raise InputError(
             f"folds must be >= 3 (the default nested cross-fitting fits the CCP on the folds "
@@ -222,12 +222,8 @@ def _check_settings(settings: MonteCarloSettings) -> None:
         )
     _integer("units", settings.units, minimum=folds)
     _integer("periods", settings.periods, minimum=2)
-    _integer("seed", settings.seed, minimum=0)
-    if not isinstance(settings.learner, str) or settings.learner not in learner_names():
-        raise InputError(
-            f"learner {settings.learner!r} is unknown; the Monte Carlo takes a registry name: "
-            f"{', '.join(learner_names())}."
-        )
+    check_option("seed", settings.seed)
+    check_option("learner", settings.learner, note="the Monte Carlo takes registry names only")
     if settings.moments is not None and settings.moments not in _MOMENTS:
         raise InputError(
             f"moments must be 'standard', 'renewal_robust' or None (estimate's default), got "

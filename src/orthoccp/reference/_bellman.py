@@ -8,11 +8,10 @@ Notation (S states, J choices, p parameters):
 * ``value[s]`` -- the ex-ante (integrated) value
   :math:`V(s) = \\ln \\sum_j \\exp v_j(s) + \\gamma_E`.
 
-The solver runs successive approximations (a contraction of modulus :math:`\\beta`) until the
-change is small and then Newton--Kantorovich steps on :math:`\\Phi(V) = V - T(V)` with the exact
-Fréchet derivative :math:`\\Phi'(V) = I - \\beta F^P`, :math:`F^P = \\sum_j \\mathrm{diag}(P_j) F_j`
-(Rust 1987, 2000: the "poly-algorithm"); with logit shocks one such step is one step of smoothed
-policy iteration.
+The solve itself is :func:`orthoccp.dp.solve_values` (the one Bellman solver, shared with the
+simulators); this module supplies the dense choice values and the Newton matrix
+:math:`I - \\beta F^P`, :math:`F^P = \\sum_j \\mathrm{diag}(P_j) F_j`, and the derivatives of the
+solution in the parameters.
 """
 
 from __future__ import annotations
@@ -25,7 +24,7 @@ import numpy as np
 from scipy.linalg import lu_factor, lu_solve
 from threadpoolctl import threadpool_limits
 
-from .._errors import EstimationError
+from ..dp import logsumexp, solve_values
 from ..model import EULER_GAMMA
 
 __all__ = ["BellmanSolution", "bellman_operator", "solve_bellman", "value_derivative"]
@@ -62,9 +61,7 @@ class BellmanSolution:
     @property
     def log_ccp(self) -> np.ndarray:
         """(S, J) :math:`\\ln P_j = v_j - \\ln\\sum_k \\exp v_k`, computed without underflow."""
-        v = self.choice_values
-        m = v.max(axis=1, keepdims=True)
-        return v - (m + np.log(np.exp(v - m).sum(axis=1, keepdims=True)))
+        return self.choice_values - logsumexp(self.choice_values)[:, None]
 
 
 def blas_limit(threads: int | None) -> AbstractContextManager[Any]:
@@ -157,11 +154,9 @@ def solve_bellman(
         :math:`\\beta \\in [0, 1)`.
     value0 : numpy.ndarray, optional
         Starting guess (e.g. the previous outer iteration's solution); zeros by default.
-    tol : float, default=1e-12
-        Stop when :math:`\\lVert T(V) - V \\rVert_\\infty < \\mathrm{tol}`.
-    switch_tol : float, default=5e-2
-        Successive approximations run until the sup-norm change falls below this (or for
-        ``max_contraction`` steps), then Newton--Kantorovich steps take over.
+    tol, switch_tol : float, default=1e-12, 5e-2
+        As in :func:`orthoccp.dp.solve_values`: the sup-norm tolerance on
+        :math:`T(V) - V`, and the change below which Newton steps take over.
     max_contraction : int, default=20
         Cap on the successive approximations before the first Newton step: one step costs
         about a seventh of a Newton step at S = 175 but gains only a factor :math:`\beta`.
@@ -183,21 +178,11 @@ def solve_bellman(
 
     Notes
     -----
-    Successive approximation :math:`V_{k+1} = T(V_k)` converges linearly at rate
-    :math:`\\beta`. The Newton--Kantorovich step solves
-
-    .. math::
-
-        (I - \\beta F^{P(V)})\\,\\Delta = T(V) - V, \\qquad V \\leftarrow V + \\Delta,
-
-    and converges quadratically near the fixed point (Rust 1987, §4; Rust 2000, "NFXP
-    manual"). With logit shocks the new :math:`V` is exactly the value of the logit policy
-    :math:`P(V)` (:math:`T(V) = \\sum_j P_j (u_j + \\beta F_j V) - \\sum_j P_j \\ln P_j + \\gamma_E`),
-    so the steps are smoothed policy iteration: they improve monotonically after the first
-    step and converge from any start. In the bus design they reach 1e-12 in three to eight
-    steps from a cold start. If rounding stops the residual just above ``tol``, the solution
-    is accepted when the residual is below :math:`64\\,\\epsilon \\max_s |V(s)|` (the floating
-    point floor), and refused otherwise.
+    The solve is :func:`orthoccp.dp.solve_values` (its Notes give the algorithm, the
+    poly-algorithm of Rust 1987, 2000, and the rounding floor). With logit shocks
+    :math:`T(V) = \\sum_j P_j (u_j + \\beta F_j V) - \\sum_j P_j \\ln P_j + \\gamma_E`, so each
+    Newton step is a smoothed policy-iteration step. In the bus design the steps reach 1e-12
+    in three to eight steps from a cold start.
 
     References
     ----------
@@ -216,83 +201,26 @@ def solve_bellman(
     transitions = np.asarray(transitions, dtype=np.float64)
     discount = float(discount)
     _check_inputs(utility, transitions, discount)
-    with blas_limit(blas_threads):
-        return _solve(utility, transitions, discount, value0, tol, switch_tol, max_contraction,
-                      max_newton)
-
-
-def _solve(
-    utility: np.ndarray,
-    transitions: np.ndarray,
-    discount: float,
-    value0: np.ndarray | None,
-    tol: float,
-    switch_tol: float,
-    max_contraction: int,
-    max_newton: int,
-) -> BellmanSolution:
     S = utility.shape[0]
-    V = np.zeros(S) if value0 is None else np.array(value0, dtype=np.float64, copy=True)
-    if V.shape != (S,) or not np.all(np.isfinite(V)):
-        V = np.zeros(S)
+    V0 = np.zeros(S) if value0 is None else np.array(value0, dtype=np.float64, copy=True)
+    if V0.shape != (S,) or not np.all(np.isfinite(V0)):
+        V0 = np.zeros(S)
 
-    n_con = 0
-    n_newton = 0
-    TV, v, P = bellman_operator(V, utility, transitions, discount)
-    resid = float(np.max(np.abs(TV - V)))
-    while resid >= max(switch_tol, tol) and n_con < max_contraction:
-        V = TV
-        TV, v, P = bellman_operator(V, utility, transitions, discount)
-        resid = float(np.max(np.abs(TV - V)))
-        n_con += 1
-    # Newton-Kantorovich steps. Each one is an exact smoothed policy-iteration step (evaluate
-    # the logit policy of the current V), so the iterates improve monotonically after the
-    # first step and converge from any start; the sup-norm residual may rise at a first step
-    # taken far from the fixed point, so steps are not screened by it.
-    best = (resid, V, TV, v, P)
-    stalls = 0
-    while resid >= tol and n_newton < max_newton:
-        step = np.linalg.solve(_newton_matrix(P, transitions, discount), TV - V)
-        V = V + step
-        TV, v, P = bellman_operator(V, utility, transitions, discount)
-        resid_new = float(np.max(np.abs(TV - V)))
-        n_newton += 1
-        stalls = stalls + 1 if resid_new >= 0.5 * resid and resid_new < 1e-6 else 0
-        resid = resid_new
-        if resid < best[0]:
-            best = (resid, V, TV, v, P)
-        if stalls >= 2:
-            break
-    resid, V, TV, v, P = best
-    if resid >= tol:
-        # Rounding floor reached: contraction steps never increase the sup-norm error.
-        for _ in range(50):
-            V = TV
-            TV, v, P = bellman_operator(V, utility, transitions, discount)
-            resid = float(np.max(np.abs(TV - V)))
-            n_con += 1
-            if resid < tol:
-                break
+    def choice_values(V: np.ndarray) -> np.ndarray:
+        return (utility + discount * (transitions @ V[0]).T)[None]
 
-    if resid >= tol:
-        # The returned V is within resid / (1 - beta) of the fixed point; accept rounding-level
-        # shortfalls and refuse anything larger.
-        scale = max(1.0, float(np.max(np.abs(V))))
-        if resid > 64 * np.finfo(float).eps * scale:
-            raise EstimationError(
-                f"Bellman equation not solved: sup-norm residual {resid:.3g} after {n_con} "
-                f"successive approximations and {n_newton} Newton-Kantorovich steps "
-                f"(tolerance {tol:g})."
-            )
-    # Report the choice values and probabilities at the returned V (consistent with V).
-    TV, v, P = bellman_operator(V, utility, transitions, discount)
+    def newton_matrix(P: np.ndarray) -> np.ndarray:
+        return _newton_matrix(P[0], transitions, discount)[None]
+
+    with blas_limit(blas_threads):
+        sol = solve_values(choice_values, newton_matrix, V0[None], tol=tol,
+                           switch_tol=switch_tol, max_contraction=max_contraction,
+                           max_newton=max_newton)
+    V = sol.value[0]
+    _, v, P = bellman_operator(V, utility, transitions, discount)
     return BellmanSolution(
-        value=V,
-        choice_values=v,
-        ccp=P,
-        residual=float(np.max(np.abs(TV - V))),
-        contraction_steps=n_con,
-        newton_steps=n_newton,
+        value=V, choice_values=v, ccp=P, residual=sol.residual,
+        contraction_steps=sol.contraction_steps, newton_steps=sol.newton_steps,
     )
 
 

@@ -12,6 +12,7 @@ Newton--Kantorovich steps) to sup-norm 1e-12, warm-started from the previous tri
 
 from __future__ import annotations
 
+import json
 import time
 from collections.abc import Hashable, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -23,7 +24,10 @@ from scipy import optimize, stats
 from scipy.linalg import lu_factor, lu_solve
 
 from .._errors import EstimationError, InputError
+from .._options import check_option
 from .._labels import find_label, match_keys, match_label, show_label, show_labels
+from .._version import __version__
+from ..results import estimates_block, json_number, param_records
 from ._bellman import BellmanSolution, _newton_matrix, blas_limit, solve_bellman
 from ._transitions import TransitionEstimate, estimate_transitions
 
@@ -264,24 +268,53 @@ class NFXPResults:
             {"lower": self.params - z * self.std_errors, "upper": self.params + z * self.std_errors}
         )
 
-    def summary(self) -> str:
-        """A plain-text table of estimates and fit information."""
-        ci = self.conf_int()
-        lines = [
-            "Nested fixed point MLE (Rust 1987): full-solution benchmark",
+    def to_dict(self, level: float = 0.95) -> dict[str, Any]:
+        """JSON-safe dictionary (NaN and infinities become ``None``).
+
+        ``params`` has the layout of :meth:`orthoccp.Results.to_dict`'s.
+        """
+        return {
+            "params": param_records(self.to_frame(level)),
+            "level": level,
+            "method": "nfxp",
+            "cov_type": self.cov_type,
+            "cov": [[json_number(v) for v in row] for row in self.cov.to_numpy()],
+            "n_units": self.n_units,
+            "n_obs": self.n_obs,
+            "n_states": self.n_states,
+            "loglik": json_number(self.loglik),
+            "converged": bool(self.converged),
+            "iterations": int(self.iterations),
+            "transitions": self.transitions.method,
+            "version": __version__,
+        }
+
+    def to_json(self, level: float = 0.95, **kwargs: Any) -> str:
+        """:meth:`to_dict` serialised (``allow_nan=False``: never writes NaN)."""
+        return json.dumps(self.to_dict(level), allow_nan=False, **kwargs)
+
+    def to_frame(self, level: float = 0.95) -> pd.DataFrame:
+        """Tidy table: one row per parameter (the columns of :meth:`orthoccp.Results.to_frame`)."""
+        ci = self.conf_int(level)
+        z = self.params / self.std_errors
+        return pd.DataFrame({
+            "estimate": self.params, "std_error": self.std_errors, "z": z,
+            "p_value": 2 * stats.norm.sf(np.abs(z)), "ci_lower": ci["lower"],
+            "ci_upper": ci["upper"],
+        }).rename_axis("parameter")
+
+    def summary(self, level: float = 0.95) -> str:
+        """A plain-text table of estimates (the one layout of every summary) and fit information."""
+        lines = estimates_block(["Nested fixed point MLE (Rust 1987): full-solution benchmark"],
+                                self.to_frame(level), level)
+        lines += [
             f"observations {self.n_obs}   units {self.n_units}   states {self.n_states}   "
             f"log-likelihood {self.loglik:.4f}",
             f"transitions: {self.transitions.method} (standard errors condition on them)   "
             f"cov: {self.cov_type}",
             f"outer iterations {self.iterations}   Bellman solves {self.inner['solves']}   "
             f"converged {self.converged}   {self.seconds:.3f} s",
-            f"{'parameter':<14}{'estimate':>12}{'std.err':>12}{'[0.025':>12}{'0.975]':>12}",
         ]
-        for k in self.params.index:
-            lines.append(
-                f"{str(k):<14}{self.params[k]:>12.5f}{self.std_errors[k]:>12.5f}"
-                f"{ci.loc[k, 'lower']:>12.5f}{ci.loc[k, 'upper']:>12.5f}"
-            )
         return "\n".join(lines)
 
 
@@ -525,9 +558,7 @@ def nfxp_estimate(
     choices = tuple(choices)
     if len(choices) < 2 or len(set(map(str, choices))) != len(choices):
         raise InputError(f"choices must list at least two distinct labels, got {choices!r}.")
-    beta = float(discount)
-    if not 0.0 <= beta < 1.0:
-        raise InputError(f"discount must be in [0, 1), got {discount!r}.")
+    beta = check_option("discount", discount)
     if cov not in ("hessian", "opg"):
         raise InputError(f"cov must be 'hessian' or 'opg', got {cov!r}.")
     if not isinstance(utility, Mapping) or not utility:

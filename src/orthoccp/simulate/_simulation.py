@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from .._errors import InputError
+from .._options import check_option
 from ._scenarios import SCENARIOS, Scenario, draw_covariates
 from ._solve import Solution, solve
 
@@ -227,14 +228,7 @@ def _count(name: str, value: object, *, minimum: int) -> int:
 
 def _discount(value: object) -> float:
     """Validate the discount factor."""
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise InputError(f"discount must be a real number in [0, 1); got {value!r}")
-    beta = float(value)
-    if not 0.0 <= beta < 1.0:  # also rejects NaN
-        raise InputError(
-            f"discount must lie in [0, 1) (0 gives a static logit); got {value!r}"
-        )
-    return beta
+    return float(check_option("discount", value))
 
 
 def _draw_choices(rng: np.random.Generator, ccp: np.ndarray) -> np.ndarray:

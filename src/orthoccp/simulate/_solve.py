@@ -20,6 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..dp import EULER_GAMMA, logsumexp, solve_values
+
 __all__ = [
     "EULER_GAMMA",
     "Model",
@@ -29,10 +31,6 @@ __all__ = [
     "logsumexp",
     "solve",
 ]
-
-#: Euler--Mascheroni constant, the mean of a standard type-I extreme value shock.
-EULER_GAMMA: float = 0.5772156649015329
-
 
 @dataclass(frozen=True, eq=False)
 class Transition:
@@ -222,9 +220,10 @@ class Solution:
     iterations : int
         Number of value-iteration (successive approximation) steps.
     newton_steps : int
-        Number of Newton--Kantorovich steps taken before value iteration.
+        Number of Newton--Kantorovich steps.
     change : float
-        Sup-norm change of ``V`` in the last value-iteration step.
+        Sup-norm residual ``|bellman(V) - V|`` at the returned ``V`` (the change one more
+        value-iteration step would make).
     """
 
     model: Model
@@ -256,23 +255,6 @@ class Solution:
         return out
 
 
-def logsumexp(v: np.ndarray) -> np.ndarray:
-    """Numerically stable ``log(sum(exp(v)))`` over the last axis.
-
-    Parameters
-    ----------
-    v : numpy.ndarray
-        Array of shape ``(..., J)`` with finite entries.
-
-    Returns
-    -------
-    numpy.ndarray
-        Array of shape ``(...)``.
-    """
-    top = v.max(axis=-1)
-    return top + np.log(np.exp(v - top[..., None]).sum(axis=-1))
-
-
 def bellman(model: Model, V: np.ndarray) -> np.ndarray:
     """Apply the logit Bellman operator once.
 
@@ -291,17 +273,13 @@ def bellman(model: Model, V: np.ndarray) -> np.ndarray:
     return logsumexp(model.choice_values(V)) + EULER_GAMMA
 
 
-def _newton_step(model: Model, V: np.ndarray) -> np.ndarray:
-    """One Newton--Kantorovich step on ``V - bellman(V) = 0``.
+def _newton_matrix(model: Model, ccp: np.ndarray) -> np.ndarray:
+    """``I - discount * sum_j diag(P_j) T_j`` per unit, shape ``(N, S, S)``.
 
-    The derivative of the Bellman operator is ``discount * sum_j P_j T_j``
-    (CCP-weighted transition matrices), so each step solves one small linear
-    system per unit.
+    The derivative of ``V - bellman(V)``: the CCP-weighted transition matrices of the
+    non-terminal choices.
     """
     n_units, n_states, _ = model.shape
-    v = model.choice_values(V)
-    lse = logsumexp(v)
-    ccp = np.exp(v - lse[..., None])
     system = np.broadcast_to(np.eye(n_states), (n_units, n_states, n_states)).copy()
     rows = np.arange(n_states)
     for j, tr in enumerate(model.transitions):
@@ -310,8 +288,7 @@ def _newton_step(model: Model, V: np.ndarray) -> np.ndarray:
         weight = model.discount * ccp[:, :, j]
         for k in range(tr.dest.shape[1]):
             system[:, rows, tr.dest[:, k]] -= weight * tr.prob[:, :, k]
-    residual = lse + EULER_GAMMA - V
-    return V + np.linalg.solve(system, residual[..., None])[..., 0]
+    return system
 
 
 def solve(
@@ -324,23 +301,22 @@ def solve(
 ) -> Solution:
     """Solve the Bellman equation of ``model`` for all units at once.
 
-    Value iteration (successive approximation of the Bellman operator) runs
-    until the sup-norm change of ``V`` over all units and states is below
-    ``tol``.  With ``newton=True`` the iteration starts from the point reached
-    by Newton--Kantorovich steps (smoothed policy iteration), which makes the
-    final value-iteration phase take only a few steps; the stopping rule and
-    the fixed point are the same either way.
+    The solve is :func:`orthoccp.dp.solve_values`, the one Bellman solver of the package:
+    successive approximations from ``V = 0`` until the change is small, then
+    Newton--Kantorovich steps (smoothed policy iteration) until the sup-norm residual
+    ``|bellman(V) - V|`` over all units and states is below ``tol``. With ``newton=False``
+    it is plain value iteration to the same tolerance and the same fixed point.
 
     Parameters
     ----------
     model : Model
         The model to solve.
     tol : float, default 1e-12
-        Sup-norm tolerance on the change of ``V`` in one value-iteration step.
+        Sup-norm tolerance on ``bellman(V) - V`` (the change of one value-iteration step).
     max_iter : int, default 100000
-        Maximum number of value-iteration steps.
+        Maximum number of value-iteration steps when ``newton=False``.
     newton : bool, default True
-        Whether to start value iteration from Newton--Kantorovich steps.
+        Whether Newton--Kantorovich steps take over from value iteration.
     newton_max : int, default 50
         Maximum number of Newton--Kantorovich steps.
 
@@ -351,39 +327,20 @@ def solve(
 
     Raises
     ------
-    RuntimeError
-        If value iteration does not reach ``tol`` within ``max_iter`` steps.
+    orthoccp.EstimationError
+        If the residual stays above ``tol`` (and above the rounding floor).
     """
     n_units, n_states, _ = model.shape
-    V = np.zeros((n_units, n_states))
-    newton_steps = 0
-    if newton and model.discount > 0.0:
-        for newton_steps in range(1, newton_max + 1):
-            V_next = _newton_step(model, V)
-            step = float(np.max(np.abs(V_next - V)))
-            V = V_next
-            if step < 1e-10:
-                break
-    change = np.inf
-    for iterations in range(1, max_iter + 1):
-        V_next = bellman(model, V)
-        change = float(np.max(np.abs(V_next - V)))
-        V = V_next
-        if change < tol:
-            break
-    else:
-        raise RuntimeError(
-            f"value iteration did not reach tol={tol:g} in {max_iter} steps "
-            f"(last change {change:.3g})"
-        )
-    values = model.choice_values(V)
-    log_ccp = values - logsumexp(values)[..., None]
+    steps = dict(max_newton=newton_max) if newton and model.discount > 0.0 else dict(
+        max_newton=0, switch_tol=0.0, max_contraction=max_iter)
+    sol = solve_values(model.choice_values, lambda ccp: _newton_matrix(model, ccp),
+                       np.zeros((n_units, n_states)), tol=tol, **steps)
     return Solution(
         model=model,
-        V=V,
-        values=values,
-        log_ccp=log_ccp,
-        iterations=iterations,
-        newton_steps=newton_steps,
-        change=change,
+        V=sol.value,
+        values=sol.choice_values,
+        log_ccp=sol.log_ccp,
+        iterations=sol.contraction_steps,
+        newton_steps=sol.newton_steps,
+        change=sol.residual,
     )

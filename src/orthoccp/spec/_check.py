@@ -10,9 +10,10 @@ from typing import Any
 import numpy as np
 
 from .._errors import InputError
+from .._options import OPTIONS, check_option, describe_value
 
 KINDS = ("renewal", "terminal")
-SCHEMES = ("plain", "nested")
+SCHEMES = OPTIONS["scheme"].valid_choices()
 MOMENTS = ("standard", "renewal_robust")
 MISSING = ("error", "drop")
 METHODS = ("orthogonal", "npl", "pml")
@@ -41,28 +42,7 @@ def _where(source: Path | None) -> str:
     return f"{source}: " if source is not None else ""
 
 
-def _type_name(value: Any) -> str:
-    """The TOML name of a parsed value's type."""
-    if isinstance(value, bool):
-        return "boolean"
-    if isinstance(value, int):
-        return "integer"
-    if isinstance(value, float):
-        return "float"
-    if isinstance(value, str):
-        return "string"
-    if isinstance(value, (list, tuple)):
-        return "array"
-    if isinstance(value, Mapping):
-        return "table"
-    return type(value).__name__
-
-
-def _show(value: Any) -> str:
-    text = repr(value)
-    if len(text) > 60:
-        text = text[:57] + "..."
-    return f"{text} ({_type_name(value)})"
+_show = describe_value
 
 
 class _Checker:
@@ -73,6 +53,13 @@ class _Checker:
 
     def fail(self, key: str, message: str) -> SpecError:
         return SpecError(f"{_where(self.source)}{message}", key=key)
+
+    def option(self, key: str, name: str, value: Any) -> Any:
+        """A shared option (:data:`orthoccp._options.OPTIONS`), with its one message."""
+        try:
+            return check_option(name, value, label=key)
+        except InputError as exc:
+            raise self.fail(key, str(exc)) from None
 
     def table(self, key: str, value: Any) -> Mapping[str, Any]:
         if not isinstance(value, Mapping):

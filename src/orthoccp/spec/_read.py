@@ -11,14 +11,12 @@ from typing import Any
 
 from .._outputs import writing
 from ..covariance import covariance_names
-from ..learners import learner_names
 from ._check import (
     INITIAL_CCPS,
     KINDS,
     METHODS,
     MISSING,
     MOMENTS,
-    SCHEMES,
     TRANSITIONS,
     VALUES,
     SpecError,
@@ -130,15 +128,10 @@ def parse_spec(
         anchor = chk.label(
             "model.anchor", chk.required("model", model, "anchor", "the anchor choice")
         )
-    discount = chk.number(
-        "model.discount", chk.required("model", model, "discount", "a number in [0, 1)")
+    discount = chk.option(
+        "model.discount", "discount",
+        chk.required("model", model, "discount", "a number in [0, 1)"),
     )
-    if not 0.0 <= discount < 1.0:
-        raise chk.fail(
-            "model.discount",
-            f"model.discount must be in [0, 1) (the infinite-horizon model needs a discount "
-            f"below 1; 0 gives a static logit), got {model['discount']!r}.",
-        )
     persistent = chk.strings("model.persistent", model.get("persistent", []), allow_empty=True)
     for s in persistent:
         if s not in states:
@@ -176,27 +169,23 @@ def parse_spec(
     # [first_stage]
     fs_doc = chk.table("first_stage", doc.get("first_stage", {}))
     chk.keys("first_stage", fs_doc, _FIRST_STAGE_KEYS)
-    learners = learner_names()
-
-    def fs(name: str, check: Callable[[str, Any], Any]) -> Any:
+    def fs(name: str, check: Callable[[str, Any], Any] | None = None) -> Any:
         value = fs_doc.get(name)
-        return None if value is None else check(f"first_stage.{name}", value)
+        if value is None:
+            return None
+        key = f"first_stage.{name}"
+        return chk.option(key, name, value) if check is None else check(key, value)
 
     first_stage = FirstStageSpec(
-        learner=fs("learner", lambda k, v: chk.choice(k, v, learners)),
-        regressor=fs("regressor", lambda k, v: chk.choice(k, v, learners)),
-        folds=fs("folds", lambda k, v: chk.integer(k, v, minimum=2)),
-        seed=fs("seed", lambda k, v: chk.integer(k, v, minimum=0)),
-        splits=fs("splits", lambda k, v: chk.integer(k, v, minimum=1)),
-        scheme=fs("scheme", lambda k, v: chk.choice(k, v, SCHEMES)),
-        clip=fs("clip", chk.number),
+        learner=fs("learner"),
+        regressor=fs("regressor"),
+        folds=fs("folds"),
+        seed=fs("seed"),
+        splits=fs("splits"),
+        scheme=fs("scheme"),
+        clip=fs("clip"),
         model_ccp_steps=fs("model_ccp_steps", lambda k, v: chk.integer(k, v, minimum=0)),
     )
-    if first_stage.clip is not None and not 0.0 < first_stage.clip < 0.5:
-        raise chk.fail(
-            "first_stage.clip",
-            f"first_stage.clip must be a probability in (0, 0.5), got {fs_doc['clip']!r}.",
-        )
 
     # [inference]
     inf_doc = chk.table("inference", doc.get("inference", {}))
@@ -208,8 +197,8 @@ def parse_spec(
 
     inference = InferenceSpec(
         cov=inf("cov", lambda k, v: chk.choice(k, v, covariance_names())),
-        small_sample=inf("small_sample", chk.boolean),
-        debias=inf("debias", chk.boolean),
+        small_sample=inf("small_sample", lambda k, v: chk.option(k, "small_sample", v)),
+        debias=inf("debias", lambda k, v: chk.option(k, "debias", v)),
         moments=inf("moments", lambda k, v: chk.choice(k, v, MOMENTS)),
     )
 

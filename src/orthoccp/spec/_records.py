@@ -16,7 +16,6 @@ from pandas.api import types as ptypes
 from .._errors import InputError
 from .._labels import check_declared, match_label, plain_label, show_label
 from ..data import Panel, missing_column_hint
-from ..learners import learner_names
 from ..model import CONSTANT, Model
 from ._check import SpecError, _Checker, _where
 from ._data import read_data
@@ -259,14 +258,14 @@ class Spec:
         fs = self.first_stage
         chk = _Checker(None)
         if learner is not None:
-            fs = dataclasses.replace(fs, learner=chk.choice("--learner", learner, learner_names()))
+            fs = dataclasses.replace(fs, learner=chk.option("--learner", "learner", learner))
         if folds is not None:
-            fs = dataclasses.replace(fs, folds=chk.integer("--folds", folds, minimum=2))
+            fs = dataclasses.replace(fs, folds=chk.option("--folds", "folds", folds))
         if seed is not None:
-            fs = dataclasses.replace(fs, seed=chk.integer("--seed", seed, minimum=0))
+            fs = dataclasses.replace(fs, seed=chk.option("--seed", "seed", seed))
         inf = self.inference
         if debias is not None:
-            inf = dataclasses.replace(inf, debias=chk.boolean("debias", debias))
+            inf = dataclasses.replace(inf, debias=chk.option("debias", "debias", debias))
         return dataclasses.replace(self, first_stage=fs, inference=inf)
 
     def estimate_options(self) -> dict[str, Any]:
