@@ -686,3 +686,18 @@ def test_sensitivity_page_matches_its_csv() -> None:
         assert got == [round(v, 4) for v in want], (r.parameter, r.discount)
     assert "wear_cost −0.9747, swap_cost −4.9387" in text
     assert (DOCS / "beta_sensitivity.png").stat().st_size > 10_000
+
+
+def test_interval_calibration_table_matches_its_json() -> None:
+    """The checks' detection and false-alarm counts are benchmarks/results/interval_calibration.json's."""
+    report = _json("interval_calibration.json")
+    assert report["role"] == "tuning"
+    text = _page("validation.md")
+    rows = _tables(text[text.index("**How well the checks separate the breaking cells**"):])[0]
+    assert len(rows) == 3
+    for row in rows:
+        s = report["rules"][row["rule"]]["score"]
+        assert row["cells below 0.90 flagged"] == f"{s['detected']} of {s['low_cells']}"
+        assert row["cells at 0.93 or above flagged"] == f"{s['false_alarms']} of {s['high_cells']}"
+        _assert_printed(row["pooled coverage of unflagged cells"], s["unflagged_pooled_coverage"],
+                        row["rule"])

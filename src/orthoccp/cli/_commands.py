@@ -14,7 +14,6 @@ import pandas as pd
 
 import orthoccp as oc
 
-from .._options import check_option
 from .._outputs import check_outputs
 from ..spec import (
     Spec,
@@ -502,7 +501,6 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     from ..simulate import simulate
 
     progress = _Progress()
-    check_option("folds", args.folds, label="--folds")
     if args.folds < 3:
         raise oc.InputError(
             f"--folds must be an integer >= 3 (the demo's nested cross-fitting fits the CCP on "
