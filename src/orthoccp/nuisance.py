@@ -141,6 +141,11 @@ class FoldFit:
         regressor.
     weight : numpy.ndarray or None
         Sample weights of the training rows.
+    blocks : tuple of int, optional
+        Sizes of consecutive blocks of ``predict`` that are predicted by separate calls (the
+        evaluation points of a user nuisance); one call for all rows when None. Learners'
+        arithmetic (BLAS blocking) may depend on how many rows one call holds, so the split
+        is part of the task.
     """
 
     est: Any
@@ -153,6 +158,7 @@ class FoldFit:
     fold: int = 0
     n_classes: int = 0
     weight: np.ndarray | None = None
+    blocks: tuple[int, ...] | None = None
 
 
 def fit_predict(shared: np.ndarray, task: FoldFit, threads: int | None) -> tuple[np.ndarray, float, float]:
@@ -169,17 +175,25 @@ def fit_predict(shared: np.ndarray, task: FoldFit, threads: int | None) -> tuple
         _fit_weighted(est, X_train, task.y, task.weight)
     fit_s = time.perf_counter() - t0
     del X_train
-    X_pred = take_rows(shared, task.predict, task.cols, task.dtype)
     t1 = time.perf_counter()
-    if task.n_classes:
-        out = checked_proba(est, X_pred, task.n_classes, task.fold)
-    else:
+    sizes = task.blocks if task.blocks is not None else (task.predict.size,)
+    parts = []
+    for rows in np.split(task.predict, np.cumsum(sizes)[:-1]):
+        if rows.size == 0:  # nothing held out here (learners refuse zero rows)
+            parts.append(np.empty((0, task.n_classes) if task.n_classes else 0))
+            continue
+        X_pred = take_rows(shared, rows, task.cols, task.dtype)
+        if task.n_classes:
+            parts.append(checked_proba(est, X_pred, task.n_classes, task.fold))
+            continue
         out = np.asarray(est.predict(X_pred), dtype=np.float64).reshape(-1)
-        if out.shape[0] != task.predict.size or not np.all(np.isfinite(out)):
+        if out.shape[0] != rows.size or not np.all(np.isfinite(out)):
             raise InputError(
                 f"regressor {type(est).__name__}.predict returned a bad result for {task.what} "
                 f"(shape {out.shape}, finite={bool(np.all(np.isfinite(out)))})."
             )
+        parts.append(out)
+    out = parts[0] if len(parts) == 1 else np.concatenate(parts)
     return out, fit_s, time.perf_counter() - t1
 
 

@@ -16,9 +16,9 @@ import numpy as np
 
 from .._errors import InputError
 from .._labels import show_label
-from ..learners import LearnerPair, _check_methods, _describe, checked_proba, resolve_learners
-from ..backends import take_rows
-from ..nuisance import learner_dtype
+from ..backends import Backend, resolve_backend
+from ..learners import LearnerPair, _check_methods, _describe, resolve_learners
+from ..nuisance import FoldFit, fit_predict, learner_dtype
 from ._spec import NuisanceDesign, Rows
 
 __all__ = ["FittedNuisance", "crossfit", "evaluate_target", "learner_template"]
@@ -112,56 +112,39 @@ def evaluate_target(
     return y
 
 
-def _fit_predict(
-    pair: LearnerPair,
-    design: NuisanceDesign,
-    y: np.ndarray,
-    train: np.ndarray,
-    targets: list[tuple[str, np.ndarray, np.ndarray]],
-    rng: np.random.Generator,
-    clip: float,
-    where: str,
-) -> list[np.ndarray]:
+def _check_training(design: NuisanceDesign, y: np.ndarray, train: np.ndarray, where: str) -> None:
     spec = design.spec
     if train.size < 2:
         raise InputError(
             f"Nuisance {spec.name!r}: only {train.size} training row(s) in {where}; use fewer "
             f"folds or more units."
         )
-    # The feature dtype rule of the built-in first stage (float32 for tree ensembles), so the
-    # same learner, seed and folds give the same fits as orthoccp.estimate.
-    dtype = learner_dtype(pair.classifier, pair.regressor)
-    X_train = take_rows(design.X, train, None, dtype)
-    if spec.binary:
-        codes = y[train].astype(np.int64)
-        if np.unique(codes).size < 2:
-            raise InputError(
-                f"Nuisance {spec.name!r}: the target takes one value only in the training rows "
-                f"of {where}; a probability needs both 0 and 1 outside each fold."
-            )
-        est = pair.new_classifier(rng)
-        est.fit(X_train, codes)
-    else:
-        est = pair.new_regressor(rng)
-        est.fit(X_train, y[train])
-    out = []
-    for label, Xp, idx in targets:
-        if idx.size == 0:
-            out.append(np.empty(0))
+    if spec.binary and np.unique(y[train]).size < 2:
+        raise InputError(
+            f"Nuisance {spec.name!r}: the target takes one value only in the training rows "
+            f"of {where}; a probability needs both 0 and 1 outside each fold."
+        )
+
+
+def _shared_matrix(design: NuisanceDesign) -> tuple[np.ndarray, dict[str, int]]:
+    """The nuisance's features and every evaluation point's, stacked into one matrix.
+
+    The cross-fitting engine names rows of one shared matrix (:class:`~orthoccp.nuisance.
+    FoldFit`); a point that reads the rows themselves shares the training block.
+    Returns the matrix and the offset of each point's block.
+    """
+    blocks = [design.X]
+    offsets: dict[str, int] = {}
+    at = design.X.shape[0]
+    for label, pt in design.points.items():
+        if pt.X is design.X:
+            offsets[label] = 0
             continue
-        Xq = take_rows(Xp, idx, None, dtype)
-        if spec.binary:
-            pred = checked_proba(est, Xq, 2, 0)[:, 1]
-        else:
-            pred = np.asarray(est.predict(Xq), dtype=np.float64).reshape(-1)
-        if pred.shape[0] != idx.size or not np.all(np.isfinite(pred)):
-            raise InputError(
-                f"Nuisance {spec.name!r}: {type(est).__name__}.predict returned a bad result at "
-                f"{label!r} in {where} (shape {pred.shape}, finite="
-                f"{bool(np.all(np.isfinite(pred)))})."
-            )
-        out.append(pred)
-    return out
+        offsets[label] = at
+        blocks.append(pt.X)
+        at += pt.X.shape[0]
+    shared = blocks[0] if len(blocks) == 1 else np.vstack(blocks)
+    return shared, offsets
 
 
 def crossfit(
@@ -172,9 +155,18 @@ def crossfit(
     rng: np.random.Generator,
     *,
     clip: float,
+    backend: Backend | None = None,
 ) -> list[FittedNuisance]:
-    """Fit every nuisance on K-1 folds and predict its values on the held-out fold."""
+    """Fit every nuisance on K-1 folds and predict its values on the held-out fold.
+
+    The fits run on the one cross-fitting engine of the built-in first stage
+    (:func:`orthoccp.nuisance.fit_predict` on a :mod:`orthoccp.backends` session): training
+    rows in the panel's canonical order, the feature dtype of :func:`~orthoccp.nuisance.
+    learner_dtype`, every learner seeded from ``rng`` before any fit, in the order
+    nuisance, stratum, fold.
+    """
     K = int(folds.max()) + 1
+    backend = backend if backend is not None else resolve_backend("sequential")
     fitted: list[FittedNuisance] = []
     nu: dict[str, np.ndarray] = {}
     for design in designs:
@@ -184,23 +176,41 @@ def crossfit(
         train = np.isfinite(y) & (design.stratum >= 0)
         if not train.any():
             raise InputError(f"Nuisance {spec.name!r}: the target is NaN on every row.")
+        dtype = learner_dtype(pair.classifier, pair.regressor)
+        shared, offsets = _shared_matrix(design)
         values = {label: np.full(rows.n_rows, np.nan) for label in design.points}
-        n_fits = 0
+        # Every check and every seed before any fit, in the order of the sequential loops.
+        tasks: list[FoldFit] = []
+        placed: list[list[tuple[str, np.ndarray]]] = []
         for s, stratum in enumerate(design.strata):
             in_s = train & (design.stratum == s)
             if not in_s.any():
                 continue
             for k in range(K):
                 tr = canon[(in_s & (folds != k))[canon]]
+                where = f"fold {k}" + ("" if spec.by is None else f", {spec.by}={show_label(stratum)}")
+                _check_training(design, y, tr, where)
                 targets = []
                 for label, pt in design.points.items():
                     idx = np.flatnonzero((folds == k) & pt.defined & (pt.stratum == s))
-                    targets.append((label, pt.X, idx))
-                where = f"fold {k}" + ("" if spec.by is None else f", {spec.by}={show_label(stratum)}")
-                preds = _fit_predict(pair, design, y, tr, targets, rng, clip, where)
-                n_fits += 1
-                for (label, _, idx), pred in zip(targets, preds):
-                    values[label][idx] = pred
+                    targets.append((label, idx))
+                predict = np.concatenate([offsets[label] + idx for label, idx in targets])
+                if spec.binary:
+                    est, ty, n_classes = pair.new_classifier(rng), y[tr].astype(np.int64), 2
+                else:
+                    est, ty, n_classes = pair.new_regressor(rng), y[tr], 0
+                tasks.append(FoldFit(est, tr, predict, ty, None, dtype,
+                                     f"nuisance {spec.name!r} in {where}", k, n_classes,
+                                     blocks=tuple(idx.size for _, idx in targets)))
+                placed.append(targets)
+        with backend.session(shared, dtype=dtype) as session:
+            for targets, pred in zip(placed, session.map(fit_predict, tasks)):
+                if spec.binary:
+                    pred = pred[:, 1]
+                at = 0
+                for label, idx in targets:
+                    values[label][idx] = pred[at : at + idx.size]
+                    at += idx.size
         clipped = 0
         if spec.binary:
             for label, v in values.items():
@@ -210,6 +220,6 @@ def crossfit(
                 values[label] = np.clip(v, clip, 1 - clip)
         for v in values.values():
             v.setflags(write=False)
-        fitted.append(FittedNuisance(design, y, train, values, clipped, n_fits, lname))
+        fitted.append(FittedNuisance(design, y, train, values, clipped, len(tasks), lname))
         nu.update(values)
     return fitted

@@ -53,7 +53,9 @@ import numpy as np
 
 from .._errors import InputError
 from .._labels import find_label, keys_by_label, show_label, show_labels
-from ..learners import LearnerPair, checked_proba
+from ..backends import resolve_backend
+from ..learners import LearnerPair
+from ..nuisance import FoldFit, fit_predict, learner_dtype
 from ._crossfit import FittedNuisance, evaluate_target
 from ._dictionary import build_dictionary
 from ._functions import MomentFunction, fd_steps, rowwise_derivative
@@ -245,33 +247,46 @@ def _learner_alpha(
         Ds = [D[own][train]]
         Fs = [folds[train]]
     Xe, Se, De, Fe = np.vstack(Xs), np.concatenate(Ss), np.vstack(Ds), np.concatenate(Fs)
+    # One shared matrix for the engine: the evaluation points, then the nuisance's own rows.
+    shared = np.vstack([Xe, design.X])
+    own_at = Xe.shape[0]
+    dtype = learner_dtype(pair.classifier, pair.regressor)
     alpha = np.zeros((folds.size, k))
-    n_fits = 0
+    # Every seed before any fit, in the order stratum, fold, component (then the classifier).
+    tasks: list[FoldFit] = []
+    cells: list[tuple[np.ndarray, int]] = []  # (target rows, component or -1 for the ratio)
     for s in range(len(design.strata)):
         for f in range(K):
             target_rows = np.flatnonzero(train & (design.stratum == s) & (folds == f))
-            ev = (Se == s) & (Fe != f)
-            if target_rows.size == 0 or not ev.any():
+            ev = np.flatnonzero((Se == s) & (Fe != f))
+            if target_rows.size == 0 or ev.size == 0:
                 continue
-            Xt = design.X[target_rows]
-            reg = np.zeros((target_rows.size, k))
+            where = f"the Riesz weight of {design.name!r}, fold {f}"
             for c in range(k):
-                est = pair.new_regressor(rng)
-                est.fit(Xe[ev], De[ev, c])
-                reg[:, c] = np.asarray(est.predict(Xt), dtype=np.float64).reshape(-1)
-                n_fits += 1
+                tasks.append(FoldFit(pair.new_regressor(rng), ev, own_at + target_rows,
+                                     De[ev, c], None, dtype, where, f))
+                cells.append((target_rows, c))
             if same_population:
-                alpha[target_rows] = reg
                 continue
             tr_other = np.flatnonzero(train & (design.stratum == s) & (folds != f))
-            Xc = np.vstack([Xe[ev], design.X[tr_other]])
-            yc = np.concatenate([np.ones(int(ev.sum()), dtype=np.int64), np.zeros(tr_other.size, dtype=np.int64)])
-            clf = pair.new_classifier(rng)
-            clf.fit(Xc, yc)
-            pr = np.clip(checked_proba(clf, Xt, 2, f)[:, 1], clip, 1 - clip)
+            yc = np.concatenate([np.ones(ev.size, dtype=np.int64), np.zeros(tr_other.size, dtype=np.int64)])
+            tasks.append(FoldFit(pair.new_classifier(rng), np.concatenate([ev, own_at + tr_other]),
+                                 own_at + target_rows, yc, None, dtype, where, f, 2))
+            cells.append((target_rows, -1))
+    reg: np.ndarray | None = None
+    with resolve_backend("sequential").session(shared, dtype=dtype) as session:
+        for (target_rows, c), pred in zip(cells, session.map(fit_predict, tasks)):
+            if c == 0:
+                reg = np.zeros((target_rows.size, k))
+            assert reg is not None, "components are fitted in order"
+            if c >= 0:
+                reg[:, c] = pred
+                if c == k - 1 and same_population:
+                    alpha[target_rows] = reg
+                continue
+            pr = np.clip(pred[:, 1], clip, 1 - clip)
             alpha[target_rows] = reg * (pr / (1 - pr))[:, None]
-            n_fits += 1
-    return alpha, n_fits
+    return alpha, len(tasks)
 
 
 def _model_weights(
