@@ -20,6 +20,7 @@ from .data import Panel
 from .diagnostics import Diagnostics
 from .discrete import DiscreteResults, bin_states, check_anchor_probability, estimate_discrete
 from .estimate import estimate
+from .first_stage import FirstStage, first_stage
 from .interval_checks import IntervalCheck
 from .learners import learner_names
 from .model import EULER_GAMMA, Model
@@ -39,6 +40,7 @@ __all__ = [
     "DiscreteResults",
     "EULER_GAMMA",
     "EstimationError",
+    "FirstStage",
     "FoldStability",
     "HansenJ",
     "InputError",
@@ -66,6 +68,7 @@ __all__ = [
     "estimate",
     "estimate_discrete",
     "estimate_moments",
+    "first_stage",
     "fold_stability",
     "learner_names",
     "nuisances_from_truth",

@@ -400,6 +400,10 @@ class Panel:
         of a categorical state.
     feature_states : tuple of str
         The state each feature column comes from (matched exactly, never by name prefix).
+    source_index : pandas.Index
+        The index label, in the frame as passed in, of each row of :attr:`frame` (so a
+        per-row result can be put back on the user's rows: ``frame.index`` is a fresh
+        ``RangeIndex``).
 
     Examples
     --------
@@ -429,6 +433,7 @@ class Panel:
     feature_states: tuple[str, ...] = field(init=False, repr=False)
     n_input_rows: int = field(init=False, repr=False)
     dropped_rows: dict[str, int] = field(init=False, repr=False)
+    source_index: pd.Index = field(init=False, repr=False)
 
     def __init__(
         self,
@@ -502,10 +507,12 @@ class Panel:
 
         try:
             if _in_panel_order(frame[unit], periods):
-                sorted_frame = frame.reset_index(drop=True)  # the same rows a stable sort gives
+                source_index = frame.index  # the same rows a stable sort gives
+                sorted_frame = frame.reset_index(drop=True)
             else:
-                sorted_frame = frame.sort_values([unit, period], kind="mergesort").reset_index(
-                    drop=True)
+                sorted_frame = frame.sort_values([unit, period], kind="mergesort")
+                source_index = sorted_frame.index
+                sorted_frame = sorted_frame.reset_index(drop=True)
                 periods = _check_periods(sorted_frame[period], period)
             unit_labels, unit_codes = _sorted_runs(sorted_frame[unit].to_numpy())
         except TypeError as exc:
@@ -569,6 +576,7 @@ class Panel:
         object.__setattr__(self, "feature_states", feature_states)
         object.__setattr__(self, "n_input_rows", int(n_input))
         object.__setattr__(self, "dropped_rows", dropped)
+        object.__setattr__(self, "source_index", source_index)
 
     @functools.cached_property
     def unit_keys(self) -> np.ndarray:

@@ -49,7 +49,7 @@ Scheme = Literal["plain", "nested"]
 
 @dataclass(frozen=True, eq=False)
 class Nuisances:
-    """First-stage values at every row of the panel.
+    r"""First-stage values at every row of the panel.
 
     Attributes
     ----------
@@ -58,6 +58,11 @@ class Nuisances:
     mu : numpy.ndarray
         (n_rows, J, d) continuation expectations at each row's state; NaN for choices
         without one (the anchor of a terminal model) or when ``discount == 0``.
+        ``mu[t, j, c]`` is :math:`E[q_c(x_{t+1}) \mid x_t, a_t = j]` with
+        :math:`q = (z_R` data columns, :math:`\ln P_R)`: first the next-period value of
+        the anchor's utility column of every parameter that reads one (in parameter
+        order), last the log anchor probability. :func:`orthoccp.first_stage` names the
+        components (``FirstStage.components``).
     clipped : dict
         Per choice label, the number of rows whose probability was clipped.
     n_fits : int
@@ -67,6 +72,8 @@ class Nuisances:
         scheme's pair fits) and the continuation regressions (``continuation_s``).
     folds : numpy.ndarray or None
         Fold of each row (None for externally supplied nuisances).
+    clipped_rows : numpy.ndarray or None
+        (n_rows,) whether any probability of the row was clipped.
     """
 
     ccp: np.ndarray
