@@ -256,6 +256,29 @@ def test_estimate_reproduces_and_matches_the_api(
     capsys.readouterr()
 
 
+def test_functions_of_the_parameters_in_summary_and_json(
+    files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """``--function``: the delta-method row equals Results.derive on the same estimate, and a
+    bad expression or name fails before any estimation with exit code 2."""
+    argv = ["estimate", str(files["data"]), "--spec", str(fast_spec),
+            "--function", "gap=wear_cost - swap_cost"]
+    doc = _estimates(argv, tmp_path, "fn")
+    row = doc["functions"][0]
+    est = {p["name"]: p["estimate"] for p in doc["params"]}
+    assert row["name"] == "gap" and row["expression"] == "wear_cost - swap_cost"
+    assert row["estimate"] == pytest.approx(est["wear_cost"] - est["swap_cost"], rel=1e-12)
+    sim = simulate("ebike", units=UNITS, periods=PERIODS, seed=SEED, n_covariates=COVARIATES)
+    panel = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states))
+    model = oc.Model(anchor=sim.anchor, kind=sim.kind, discount=sim.discount, utility=sim.utility, persistent=sim.persistent)  # type: ignore[arg-type]
+    ref = oc.estimate(panel, model, learner="logit", folds=3, seed=SEED).derive({"gap": "wear_cost - swap_cost"})
+    assert row["std_error"] == pytest.approx(ref.loc["gap", "std_error"], rel=1e-10)
+    assert "functions of the parameters (delta method" in capsys.readouterr().out
+    for bad, message in (("gap=price / 2", "'price' is not a parameter"), ("gap", "NAME=EXPRESSION")):
+        assert main(["estimate", str(files["data"]), "--spec", str(fast_spec), "--function", bad]) == 2
+        assert message in capsys.readouterr().err
+
+
 def test_naive_and_overrides(files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     doc = _estimates(["estimate", str(files["data"]), "--spec", str(fast_spec), "--naive", "--folds", "4"], tmp_path, "naive")
     check_results_json(doc, debiased=False, n_units=UNITS)

@@ -15,6 +15,7 @@ import pandas as pd
 import orthoccp as oc
 
 from .._outputs import check_outputs
+from ..functions import check_functions
 from ..spec import (
     Spec,
     SpecError,
@@ -34,6 +35,7 @@ from ._plumbing import (
     _output_path,
     _Progress,
     _write_text,
+    parse_functions,
     results_payload,
 )
 
@@ -164,6 +166,7 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
     json_path = _output_path("--json", args.json)
     latex_path = _output_path("--latex", args.latex)
     check_outputs({"--json": json_path, "--latex": latex_path})  # before reading anything
+    functions = parse_functions(args.function)
     overrides = dict(learner=args.learner, debias=False if args.naive else None)
     spec = _read_spec(args, progress, **overrides)
     data_path, panel = _load_panel(args, spec, progress,
@@ -175,6 +178,8 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
         )
     else:
         model = spec.build_model(panel)
+        if functions:  # names and syntax checked before the estimate runs
+            check_functions(functions, list(model.parameters))
         options = spec.estimate_options()
         method = "debiased" if options.get("debias", True) else "plug-in"
         progress.stage(
@@ -183,13 +188,14 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
         )
         res = oc.estimate(panel, model, **options)
     progress.stage("writing the results")
-    payload = results_payload(res, inputs={"data": str(data_path), "spec": str(args.spec)})
+    payload = results_payload(res, inputs={"data": str(data_path), "spec": str(args.spec)},
+                              functions=functions)
     # With '--json -' stdout carries the JSON document only.
     json_on_stdout = args.json == "-"
     if json_on_stdout:
         sys.stdout.write(_dumps(payload))
     else:
-        print(res.summary())
+        print(res.summary(functions=functions))
     if args.latex == "-":
         sys.stdout.write(res.to_latex() + "\n")
     for path, text in ((json_path, _dumps(payload)), (latex_path, res.to_latex() + "\n")):

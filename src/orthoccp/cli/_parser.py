@@ -331,6 +331,14 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="write a LaTeX table of the estimates ('-' for stdout)",
     )
+    est.add_argument(
+        "--function",
+        metavar="NAME=EXPR",
+        action="append",
+        default=None,
+        help="a function of the parameters to report with a delta-method interval, e.g. "
+        "'wear_in_swaps=wear_cost/swap_cost' (+ - * / **, numbers, exp, log, sqrt; repeatable)",
+    )
     _add_spec_overrides(est, learners)
     est.set_defaults(handler=_cmd_estimate)
 

@@ -19,6 +19,7 @@ import numpy as np
 import orthoccp as oc
 
 from .._outputs import writing
+from ..results import param_records
 
 PROG = "orthoccp"
 DEMO_SCENARIO = "ebike"
@@ -172,7 +173,27 @@ def _json_safe(value: Any, where: str, nulls: dict[str, str]) -> Any:
     return str(value)
 
 
-def results_payload(res: oc.Results, *, inputs: dict[str, str] | None = None) -> dict[str, Any]:
+def parse_functions(items: list[str] | None) -> dict[str, str] | None:
+    """``--function NAME=EXPR`` options as a mapping (None when there are none)."""
+    if not items:
+        return None
+    out: dict[str, str] = {}
+    for item in items:
+        name, sep, expr = item.partition("=")
+        name = name.strip()
+        if not sep or not name or not expr.strip():
+            raise oc.InputError(
+                f"--function {item!r}: write NAME=EXPRESSION, e.g. "
+                f"--function 'wear_in_swaps=wear_cost/swap_cost'."
+            )
+        if name in out:
+            raise oc.InputError(f"--function: the name {name!r} is given twice.")
+        out[name] = expr
+    return out
+
+
+def results_payload(res: oc.Results, *, inputs: dict[str, str] | None = None,
+                    functions: dict[str, str] | None = None) -> dict[str, Any]:
     """The JSON document written by ``orthoccp estimate --json``.
 
     Parameters
@@ -181,6 +202,9 @@ def results_payload(res: oc.Results, *, inputs: dict[str, str] | None = None) ->
         An estimation result.
     inputs : dict, optional
         Names of the input files (``{"data": ..., "spec": ...}``), recorded under ``inputs``.
+    functions : dict, optional
+        Functions of the parameters (``--function``), recorded under ``functions`` with
+        delta-method intervals (:meth:`Results.derive`).
 
     Returns
     -------
@@ -191,6 +215,9 @@ def results_payload(res: oc.Results, *, inputs: dict[str, str] | None = None) ->
         location (``"params[0].std_error"``) to the reason. ``inputs`` echoes the files.
     """
     raw = res.to_dict(0.95)
+    if functions:
+        raw["functions"] = [dict(r, expression=functions[r["name"]])
+                            for r in param_records(res.derive(functions, level=0.95))]
     nulls: dict[str, str] = {}
     doc = _json_safe(raw, "", nulls)
     doc["inputs"] = dict(inputs or {})

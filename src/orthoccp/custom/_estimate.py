@@ -18,6 +18,7 @@ from .._version import __version__
 from ..covariance import check_cov_name, cluster_codes, estimate_covariance
 from ..data import Panel
 from ..folds import unit_folds
+from ..functions import Function
 from ..learners import LearnerPair, resolve_learners
 from ..results import NotApplicable, Results, RowAccounting, covariance_line, estimates_block
 from ._crossfit import FittedNuisance, crossfit
@@ -86,12 +87,14 @@ class MomentResults(Results):
             return "GMM with user moments, automatically debiased (Riesz regression)"
         return "GMM with user moments, plug-in (NOT debiased; standard errors ignore first-stage noise)"
 
-    def summary(self, level: float = 0.95) -> str:
+    def summary(self, level: float = 0.95, *,
+                functions: Mapping[str, Function] | None = None) -> str:
+        """Plain-text summary; ``functions`` adds delta-method rows (:meth:`derive`)."""
         lines = estimates_block([
             f"orthoccp {self.version}: {self.method}",
             f"moments: {self.model['n_moments']} for {len(self.params)} parameters; "
             f"nuisances: {', '.join(self.model['nuisances'])}",
-        ], self.to_frame(level), level)
+        ], self.to_frame(level), level) + self._function_block(functions, level)
         lines.append(f"units {self.n_units}; {self.accounting.describe()}")
         lines.append(f"first stage: {self.learner}; {self.folds} folds by unit, seed {self.seed}; "
                      f"{self.n_learner_fits} learner fits")

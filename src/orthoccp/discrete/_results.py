@@ -3,12 +3,14 @@ iteration record, the state-space solution and the right description of the meth
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from ..functions import Function
 from ..results import Results, covariance_line, estimates_block, json_number, variance_share_lines
 from ._transitions import TransitionMatrices
 
@@ -91,13 +93,15 @@ class DiscreteResults(Results):
             text += f", forward-simulated values ({self.n_paths} paths, horizon {self.horizon})"
         return text
 
-    def summary(self, level: float = 0.95) -> str:
-        """Plain-text summary: estimates, iterations, transitions, variance sources, assumptions."""
+    def summary(self, level: float = 0.95, *,
+                functions: Mapping[str, Function] | None = None) -> str:
+        """Plain-text summary: estimates, iterations, transitions, variance sources, assumptions;
+        ``functions`` adds delta-method rows (:meth:`derive`)."""
         lines = estimates_block([
             f"orthoccp {self.version}: {self.method}",
             f"model: discrete states ({self.n_states}), discount {self.model['discount']}; "
             f"no renewal or terminal choice needed",
-        ], self.to_frame(level), level)
+        ], self.to_frame(level), level) + self._function_block(functions, level)
         lines.append(f"units {self.n_units}; rows {self.n_rows} (all enter the likelihood); "
                      f"log-likelihood {self.loglik:.4f}")
         if self.estimator == "npl":
