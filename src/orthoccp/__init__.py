@@ -26,6 +26,7 @@ from .learners import learner_names
 from .model import EULER_GAMMA, Model
 from .montecarlo import MonteCarloResults, run_montecarlo
 from .nuisance import Nuisances, nuisances_from_truth
+from .pieces import MomentPieces
 from ._progress import set_progress
 from .report import write_report
 from .results import ASSUMPTIONS, NotApplicable, Results, RowAccounting
@@ -46,6 +47,7 @@ __all__ = [
     "InputError",
     "IntervalCheck",
     "Model",
+    "MomentPieces",
     "MomentResults",
     "MonteCarloResults",
     "NotApplicable",

@@ -27,6 +27,7 @@ from .instruments import persistent_feature_columns, plan_robust, renewal_robust
 from .learners import resolve_learners
 from .model import BoundModel, Model
 from .moments import build_moment_system
+from .pieces import MomentPieces
 from .nuisance import Nuisances, clip_probabilities, crossfit_nuisances, refit_anchor_target
 from .interval_checks import identification_strength, interval_check
 from .results import Results, RowAccounting
@@ -251,6 +252,7 @@ def estimate(
     if nuisances is not None:
         splits = 1
     thetas, covs, influences, decomps, plugins = [], [], [], [], []
+    pieces: list[MomentPieces] = []
     routes: list[str] = []
     route_notes: list[str] = []
     one_steps: list[np.ndarray] = []
@@ -361,6 +363,10 @@ def estimate(
                 influence=ce.influence if cov == "clustered" else None,
                 influence_units=panel.unit_labels[ce.clusters] if cov == "clustered" else None,
             )
+        pieces.append(MomentPieces(
+            system=system, index=panel.source_index[rows], units=panel.unit_labels[system.units],
+            choices=panel.choices, parameters=params, theta=np.array(theta, dtype=np.float64),
+            debiased=bool(debias and not static)))
         thetas.append(theta)
         plugins.append(theta0)
         covs.append(ce.cov)
@@ -454,6 +460,7 @@ def estimate(
         solve_notes=tuple(route_notes),
         interval_check=checks,
         version=__version__,
+        pieces=tuple(pieces),
     )
     return results
 

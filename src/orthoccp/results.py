@@ -7,7 +7,7 @@ import math
 from dataclasses import dataclass, field
 from functools import cached_property
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -16,6 +16,9 @@ from scipy import stats
 from ._errors import InputError
 from ._labels import show_label
 from .functions import Function, delta_method, function_lines
+
+if TYPE_CHECKING:
+    from .pieces import MomentPieces
 
 __all__ = ["Results", "RowAccounting", "NotApplicable", "ASSUMPTIONS"]
 
@@ -256,6 +259,7 @@ class Results:
     solve_notes: tuple[str, ...] = ()
     interval_check: Any = field(default=None, repr=False)
     version: str = ""
+    pieces: tuple[MomentPieces, ...] = field(default=(), repr=False)
 
     @cached_property
     def split_spread(self) -> pd.Series | None:
@@ -359,6 +363,32 @@ class Results:
         >>> res.derive({"wear_in_swaps": "wear_cost / swap_cost"})  # doctest: +SKIP
         """
         return delta_method(self.params, self.cov, functions, level=level)[0]
+
+    def moment_pieces(self, split: int = 1) -> MomentPieces:
+        r"""The per-row pieces of the moment the estimate solved (one fold split).
+
+        Parameters
+        ----------
+        split : int, default=1
+            Which fold split (1 to ``splits``).
+
+        Returns
+        -------
+        MomentPieces
+            Constructed regressors :math:`X_j`, offsets :math:`o_j`, instruments
+            :math:`A_j`, and :math:`m`, :math:`\phi_\mu`, :math:`\phi_P`, :math:`\psi` at
+            the split's solution or any :math:`\theta` (:mod:`orthoccp.pieces`).
+        """
+        if not self.pieces:
+            raise InputError(
+                "this result holds no per-row moment pieces: they are kept by "
+                "orthoccp.estimate (not by user moments, discrete estimators or reloaded "
+                "results)."
+            )
+        if isinstance(split, bool) or not isinstance(split, (int, np.integer)) or not (
+                1 <= split <= len(self.pieces)):
+            raise InputError(f"split must be an integer from 1 to {len(self.pieces)}, got {split!r}.")
+        return self.pieces[int(split) - 1]
 
     def _function_block(self, functions: Mapping[str, Function] | None, level: float) -> list[str]:
         if functions is None:
