@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import json
 import math
+import os
 from dataclasses import dataclass, field
 from functools import cached_property
+from pathlib import Path
 from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
@@ -14,7 +16,7 @@ import pandas as pd
 from scipy import stats
 
 from ._errors import InputError
-from ._labels import show_label
+from ._labels import plain_label, show_label
 from .functions import Function, delta_method, function_lines
 
 if TYPE_CHECKING:
@@ -192,6 +194,13 @@ def param_records(table: pd.DataFrame) -> list[dict[str, Any]]:
     return [{"name": str(k), **{c: json_number(r[c]) for c in columns}} for k, r in table.iterrows()]
 
 
+RESULTS_FORMAT = "orthoccp.results/1"
+"""Format tag of the results JSON (:meth:`Results.to_json`)."""
+
+_NOT_REBUILT = ("diagnostics", "interval_check", "hansen_j", "assumptions", "method",
+                "result_type", "solution")
+
+
 @dataclass(frozen=True, eq=False)
 class Results:
     """Results of a CCP estimation.
@@ -260,6 +269,7 @@ class Results:
     interval_check: Any = field(default=None, repr=False)
     version: str = ""
     pieces: tuple[MomentPieces, ...] = field(default=(), repr=False)
+    reloaded: dict[str, Any] | None = field(default=None, repr=False)
 
     @cached_property
     def split_spread(self) -> pd.Series | None:
@@ -329,6 +339,8 @@ class Results:
     # ----------------------------------------------------------------- views
     @property
     def method(self) -> str:
+        if self.reloaded is not None and "method" in self.reloaded:
+            return str(self.reloaded["method"])
         if self.debiased:
             return "orthogonal (debiased) CCP estimator"
         return "plug-in CCP estimator (NOT debiased; standard errors ignore first-stage noise)"
@@ -410,10 +422,15 @@ class Results:
             Functions of the parameters shown under the estimates, with delta-method
             intervals (:meth:`derive`).
         """
+        if self.reloaded is not None and self.reloaded.get("result_type") != "Results":
+            return self._reloaded_summary(level, functions)
         lines = estimates_block([
             f"orthoccp {self.version}: {self.method}",
             f"model: {self.model['kind']}, anchor {show_label(self.model['anchor'])}, discount {self.model['discount']}",
         ], self.to_frame(level), level) + self._function_block(functions, level)
+        if self.reloaded is not None:
+            lines.append("reloaded from JSON: the diagnostics and interval checks are records in "
+                         ".to_dict(); the per-row moment pieces are not kept")
         lines.append(f"units {self.n_units}; {self.accounting.describe()}")
         fs = (
             f"first stage: {self.nuisance_source}; CCP learner {self.learner}, continuation "
@@ -473,6 +490,18 @@ class Results:
         lines.extend(f"  - {a}" for a in ASSUMPTIONS)
         return "\n".join(lines)
 
+    def _reloaded_summary(self, level: float, functions: Mapping[str, Function] | None) -> str:
+        """The summary of a reloaded user-moment or discrete result: its numbers and settings."""
+        doc = self.reloaded or {}
+        lines = estimates_block([f"orthoccp {self.version}: {self.method}",
+                                 f"reloaded from JSON ({doc.get('result_type')})"],
+                                self.to_frame(level), level) + self._function_block(functions, level)
+        lines.append(f"units {self.n_units}; {self.accounting.describe()}")
+        lines.append(covariance_line(self.cov_type, self.small_sample))
+        lines.append("Inference is valid only under the assumptions:")
+        lines.extend(f"  - {a}" for a in doc.get("assumptions", ASSUMPTIONS))
+        return "\n".join(lines)
+
     def __str__(self) -> str:
         return self.summary()
 
@@ -508,7 +537,20 @@ class Results:
         )
 
     def to_dict(self, level: float = 0.95) -> dict[str, Any]:
-        """JSON-safe dictionary (NaN and infinities become ``None``)."""
+        """JSON-safe dictionary (NaN and infinities become ``None``).
+
+        Holds every number of the result, the per-unit influence terms included
+        (``influence``: unit labels and an n_units x p table), so :meth:`from_dict` rebuilds
+        it. A reloaded result writes back the records it did not rebuild unchanged.
+        """
+        out = self._own_dict(level)
+        if self.reloaded is not None:
+            for key, value in self.reloaded.items():
+                if key in _NOT_REBUILT or key not in out:
+                    out[key] = value
+        return out
+
+    def _own_dict(self, level: float) -> dict[str, Any]:
         t = self.to_frame(level)
         return {
             "params": param_records(t),
@@ -549,8 +591,129 @@ class Results:
             "hansen_j": {"applicable": False, "reason": self.hansen_j.reason},
             "assumptions": list(ASSUMPTIONS),
             "version": self.version,
+            "format": RESULTS_FORMAT,
+            "result_type": type(self).__name__,
+            "method": self.method,
+            "iterations": self.iterations,
+            "model_ccp_steps": self.model_ccp_steps,
+            "n_corrected": self.accounting.n_corrected,
+            "n_terminal": self.accounting.n_terminal,
+            "split_params": (None if self.split_params is None else
+                             [[json_number(v) for v in row] for row in self.split_params.to_numpy()]),
+            "influence": {
+                "units": [plain_label(u) for u in self.influence_units],
+                "values": [[json_number(v) for v in row] for row in np.asarray(self.influence)],
+            },
         }
 
     def to_json(self, level: float = 0.95, **kwargs: Any) -> str:
-        """:meth:`to_dict` serialised (``allow_nan=False``: never writes NaN)."""
+        """:meth:`to_dict` serialised (``allow_nan=False``: never writes NaN).
+
+        :meth:`from_json` reads it back: every number (estimates, covariance, per-unit
+        influence terms, split estimates, variance shares) round-trips exactly.
+        """
         return json.dumps(self.to_dict(level), allow_nan=False, **kwargs)
+
+    @classmethod
+    def from_json(cls, source: str | bytes | os.PathLike[str]) -> Results:
+        """A result written by :meth:`to_json` (or ``orthoccp estimate --json``), read back.
+
+        Parameters
+        ----------
+        source : str, bytes or path
+            The JSON text, or the path of a file holding it.
+
+        Returns
+        -------
+        Results
+            The numbers of the original (estimates, covariance, influence terms, settings,
+            row accounting), so :func:`~orthoccp.difference_test`, :meth:`derive` and the
+            summary work on it. Objects that are not rebuilt (diagnostics tables, interval
+            checks, Hansen's J, the per-row moment pieces) are kept as the JSON records under
+            their keys, and :meth:`to_dict` writes them back unchanged.
+        """
+        if isinstance(source, os.PathLike) or (isinstance(source, str) and not source.lstrip().startswith("{")):
+            path = Path(source)
+            try:
+                text = path.read_text(encoding="utf-8")
+            except OSError as exc:
+                raise InputError(f"cannot read results file {str(path)!r}: {exc.strerror or exc}.") from exc
+        else:
+            text = source.decode("utf-8") if isinstance(source, bytes) else source
+        try:
+            doc = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise InputError(f"the results JSON does not parse: {exc}.") from exc
+        return cls.from_dict(doc)
+
+    @classmethod
+    def from_dict(cls, doc: Mapping[str, Any]) -> Results:
+        """The inverse of :meth:`to_dict` (see :meth:`from_json`)."""
+        if not isinstance(doc, Mapping) or doc.get("format") != RESULTS_FORMAT:
+            found = doc.get("format") if isinstance(doc, Mapping) else type(doc).__name__
+            raise InputError(
+                f"not an orthoccp results record (format {found!r}; expected "
+                f"{RESULTS_FORMAT!r}); write it with Results.to_json or 'orthoccp estimate "
+                f"--json' from orthoccp 0.1 or later."
+            )
+
+        def num(v: Any) -> float:
+            return float("nan") if v is None else float(v)
+
+        names = [p["name"] for p in doc["params"]]
+        index = pd.Index(names, name="parameter")
+        cov = np.array([[num(v) for v in row] for row in doc["cov"]], dtype=np.float64)
+        infl = doc["influence"]
+        shares = doc.get("variance_shares") or {}
+        decomposition = pd.DataFrame(
+            {c: [num(shares[p][c]) for p in names] for c in (shares[names[0]] if names and names[0] in shares else {})},
+            index=pd.Index(names),
+        )
+        split = doc.get("split_params")
+        plugin = doc.get("plugin_params")
+        accounting = RowAccounting(
+            n_rows=int(doc["n_rows"]), n_moment_rows=int(doc["n_moment_rows"]),
+            n_corrected=int(doc["n_corrected"]), n_terminal=int(doc["n_terminal"]),
+            excluded={str(k): int(v) for k, v in doc.get("rows_excluded", {}).items()},
+            dropped={str(k): int(v) for k, v in doc.get("rows_dropped", {}).items()},
+        )
+        solution = doc.get("solution") or {}
+        return Results(
+            params=pd.Series([num(p["estimate"]) for p in doc["params"]], index=index, name="estimate"),
+            std_errors=pd.Series([num(p["std_error"]) for p in doc["params"]], index=index,
+                                 name="std_error"),
+            cov=pd.DataFrame(cov, index=index, columns=index),
+            debiased=bool(doc["debiased"]),
+            model=dict(doc["model"]),
+            learner=str(doc["learner"]),
+            regressor=str(doc["regressor"]),
+            folds=int(doc["folds"]),
+            splits=int(doc["splits"]),
+            scheme=str(doc["scheme"]),
+            seed=int(doc["seed"]),
+            clip=float(doc["clip"]),
+            cov_type=str(doc["cov_type"]),
+            small_sample=bool(doc["small_sample"]),
+            n_units=int(doc["n_units"]),
+            accounting=accounting,
+            clipped={str(k): int(v) for k, v in doc.get("clipped", {}).items()},
+            decomposition=decomposition,
+            influence=np.array([[num(v) for v in row] for row in infl["values"]],
+                               dtype=np.float64).reshape(len(infl["units"]), len(names)),
+            influence_units=np.array(infl["units"], dtype=object),
+            timings={str(k): num(v) for k, v in doc.get("timings", {}).items()},
+            n_learner_fits=int(doc.get("n_learner_fits", 0)),
+            iterations=int(doc.get("iterations", 0)),
+            split_params=(None if split is None else
+                          pd.DataFrame([[num(v) for v in row] for row in split], columns=index)),
+            plugin_params=(None if plugin is None else
+                           pd.Series([num(plugin[n]) for n in names], index=index, name="plug-in")),
+            nuisance_source=str(doc.get("nuisance_source", "")),
+            model_ccp_steps=int(doc.get("model_ccp_steps", 0)),
+            moments=str(doc.get("moments", "standard")),
+            fallback={str(k): str(v) for k, v in doc.get("moments_fallback", {}).items()},
+            solve_routes=tuple(solution.get("routes", ())),
+            solve_notes=tuple(solution.get("notes", ())),
+            version=str(doc.get("version", "")),
+            reloaded=dict(doc),
+        )
