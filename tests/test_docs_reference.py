@@ -701,3 +701,19 @@ def test_interval_calibration_table_matches_its_json() -> None:
         assert row["cells at 0.93 or above flagged"] == f"{s['false_alarms']} of {s['high_cells']}"
         _assert_printed(row["pooled coverage of unflagged cells"], s["unflagged_pooled_coverage"],
                         row["rule"])
+
+
+def test_counterfactual_accuracy_table_matches_its_json() -> None:
+    """The averagers' errors are benchmarks/results/counterfactual_accuracy.json's."""
+    doc = _json("counterfactual_accuracy.json")
+    rows = _tables(_section(_page("validation.md"), "## Counterfactuals"))[0]
+    assert len(rows) == len(doc["summary"]) == 9
+    for row in rows:
+        s = doc["summary"][f"{row['scenario']}|{row['averager']}"]
+        where = f"{row['scenario']} {row['averager']}"
+        _assert_printed(row["exact change"], s["exact_change_mean"], where)
+        _assert_printed(row["mean abs. relative error"].removesuffix(" %"),
+                        100 * s["mean_abs_relative_error"], where)
+        _assert_printed(row["max"].removesuffix(" %"), 100 * s["max_abs_relative_error"], where)
+        _assert_printed(row["baseline CCP MAE"], s["baseline_mae"], where)
+        _assert_printed(row["time / estimate"], s["seconds_over_estimate"], where)

@@ -7,6 +7,7 @@ from . import discrete
 from ._errors import EstimationError, InputError, OrthoCCPWarning
 from ._version import __version__
 from .compare import Comparison, compare, difference_test
+from .counterfactual import Counterfactual, counterfactual
 from .covariance import covariance_names
 from .custom import (
     HansenJ,
@@ -36,6 +37,7 @@ from .stability import FoldStability, fold_stability
 __all__ = [
     "ASSUMPTIONS",
     "Comparison",
+    "Counterfactual",
     "Diagnostics",
     "DiscountSensitivity",
     "DiscreteResults",
@@ -63,6 +65,7 @@ __all__ = [
     "check_anchor_probability",
     "check_orthogonality",
     "compare",
+    "counterfactual",
     "covariance_names",
     "difference_test",
     "discount_sensitivity",
