@@ -274,8 +274,36 @@ def test_functions_of_the_parameters_in_summary_and_json(
     ref = oc.estimate(panel, model, learner="logit", folds=3, seed=SEED).derive({"gap": "wear_cost - swap_cost"})
     assert row["std_error"] == pytest.approx(ref.loc["gap", "std_error"], rel=1e-10)
     assert "functions of the parameters (delta method" in capsys.readouterr().out
-    for bad, message in (("gap=price / 2", "'price' is not a parameter"), ("gap", "NAME=EXPRESSION")):
+    for bad, message in (("gap=price / 2", "'price' is not a parameter"), ("gap", "NAME=VALUE")):
         assert main(["estimate", str(files["data"]), "--spec", str(fast_spec), "--function", bad]) == 2
+        assert message in capsys.readouterr().err
+
+
+def test_counterfactual_command_from_a_saved_estimate(
+    files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """``orthoccp counterfactual --results r.json`` equals the API on the same estimate, and
+    without --results it estimates first (same options, same numbers)."""
+    saved = tmp_path / "r.json"
+    assert main(["estimate", str(files["data"]), "--spec", str(fast_spec), "--json", str(saved)]) == 0
+    argv = ["counterfactual", str(files["data"]), "--spec", str(fast_spec), "--shift", "swap=1",
+            "--money=-swap_cost"]
+    assert main([*argv, "--results", str(saved), "--csv", str(tmp_path / "a.csv")]) == 0
+    assert main([*argv, "--json", str(tmp_path / "b.json")]) == 0
+    a = pd.read_csv(tmp_path / "a.csv")
+    b = pd.DataFrame(strict_json((tmp_path / "b.json").read_text())["rows"])
+    np.testing.assert_allclose(a["estimate"], b["estimate"], rtol=1e-10)
+    np.testing.assert_allclose(a["std_error"], b["std_error"], rtol=1e-8)
+    sim = simulate("ebike", units=UNITS, periods=PERIODS, seed=SEED, n_covariates=COVARIATES)
+    panel = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states))
+    model = oc.Model(anchor=sim.anchor, kind=sim.kind, discount=sim.discount, utility=sim.utility, persistent=sim.persistent)  # type: ignore[arg-type]
+    res = oc.estimate(panel, model, learner="logit", folds=3, seed=SEED)
+    ref = oc.counterfactual(res, panel, model, shift={"swap": 1.0}, money="-swap_cost", seed=SEED)
+    np.testing.assert_allclose(a["estimate"], ref.table["estimate"].to_numpy(), rtol=1e-10)
+    assert "value per unit (money)" in capsys.readouterr().out
+    for bad, message in ((["--shift", "swap"], "write NAME=VALUE"), (["--shift", "swap=x"], "finite number"),
+                         ([], "give at least one change")):
+        assert main(["counterfactual", str(files["data"]), "--spec", str(fast_spec), *bad]) == 2
         assert message in capsys.readouterr().err
 
 

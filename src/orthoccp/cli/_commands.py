@@ -10,6 +10,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TypeVar
 
+import numpy as np
 import pandas as pd
 
 import orthoccp as oc
@@ -35,8 +36,10 @@ from ._plumbing import (
     _output_path,
     _Progress,
     _write_text,
+    name_value_pairs,
     parse_functions,
     results_payload,
+    write_outputs,
 )
 
 
@@ -207,6 +210,55 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
     return 0
 
 
+# --------------------------------------------------------------------------- counterfactual
+def _assignments(items: list[str] | None, option: str, example: str) -> dict[str, float]:
+    """``--set a=1 --shift swap=0.5`` as a mapping of names to finite numbers."""
+    out: dict[str, float] = {}
+    for name, value in name_value_pairs(items, option, example).items():
+        try:
+            out[name] = float(value)
+        except ValueError:
+            out[name] = float("nan")
+        if not np.isfinite(out[name]):
+            raise oc.InputError(f"{option} {name}={value}: the value must be a finite number.")
+    return out
+
+
+def _cmd_counterfactual(args: argparse.Namespace) -> int:
+    progress = _Progress()
+    outputs = {"--json": _output_path("--json", args.json),
+               "--csv": _output_path("--csv", args.csv)}
+    check_outputs(outputs)
+    changes = _assignments(args.set, "--set", "swap_cost=-4")
+    shifts = _assignments(args.shift, "--shift", "swap=1.0")
+    if not changes and not shifts:
+        raise oc.InputError("give at least one change: --set PARAM=VALUE or --shift CHOICE=UTILS.")
+    data_path, panel, model, options = _read_inputs(
+        args, progress, outputs, learner=args.learner, debias=False if args.naive else None)
+    # A choice label given on the command line is text; match it to the panel's labels.
+    labels = {str(c): c for c in panel.choices}
+    shift = {labels.get(k, k): v for k, v in shifts.items()}
+    if args.results is not None:
+        res = oc.Results.from_json(Path(args.results))
+    else:
+        progress.stage(f"estimating with {options.get('learner', 'the default learner')}")
+        res = oc.estimate(panel, model, **options)
+    progress.stage(f"solving the baseline and the counterfactual ({args.averager} averager)")
+    cf = oc.counterfactual(res, panel, model, set=changes or None, shift=shift or None,
+                           money=args.money, averager=args.averager,
+                           seed=int(options.get("seed", 0)))
+    print(cf.summary())
+    table = cf.table.reset_index()
+    doc = {"inputs": {"data": str(data_path), "spec": str(args.spec),
+                      "results": args.results},
+           "changes": cf.changes, "noise": cf.noise, "averager": cf.averager.kind,
+           "iterations": cf.iterations, "rows": table.to_dict(orient="records")}
+    write_outputs(outputs, {"--json": lambda p: _write_text(p, _dumps(doc)),
+                            "--csv": lambda p: _write_text(p, table.to_csv(index=False))})
+    progress.stage(f"done in {progress.elapsed:.1f}s")
+    return 0
+
+
 # --------------------------------------------------------------------------- sensitivity
 def _discount_list(text: str) -> list[float]:
     """``--discounts 0.9,0.95,0.99``: numbers separated by commas (checked by the function)."""
@@ -245,15 +297,11 @@ def _cmd_sensitivity(args: argparse.Namespace) -> int:
         "first_stage_fits": sens.first_stage_fits,
         "rows": table.to_dict(orient="records"),
     }
-    writers = {
+    write_outputs(outputs, {
         "--json": lambda p: _write_text(p, _dumps(doc)),
         "--csv": lambda p: _write_text(p, table.to_csv(index=False)),
         "--plot": lambda p: sens.plot(path=p),
-    }
-    for option, path in outputs.items():
-        if path is not None:
-            writers[option](path)
-            print(f"wrote {path}")
+    })
     progress.stage(f"done in {progress.elapsed:.1f}s")
     return 0
 

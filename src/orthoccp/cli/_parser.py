@@ -13,6 +13,7 @@ from ._commands import (
     _cmd_estimate,
     _cmd_montecarlo,
     _cmd_report,
+    _cmd_counterfactual,
     _cmd_sensitivity,
     _cmd_simulate,
     _discount_list,
@@ -108,6 +109,21 @@ spec file (TOML):
 """
 
 
+_COUNTERFACTUAL_EPILOG = """\
+examples:
+  orthoccp counterfactual panel.csv --spec panel.toml --shift swap=1.0
+  orthoccp counterfactual panel.csv --spec panel.toml --set swap_cost=-4 --money=-swap_cost \\
+      --results results.json --csv cf.csv
+
+Solves the estimated model at the changed payoffs on the data's own states (fitted value
+iteration) and prints the choice shares, expected discounted counts and welfare for the
+baseline, the counterfactual and their difference, with intervals. The estimate comes from
+--results (a JSON written by 'orthoccp estimate --json' on the same data and spec) or is made
+first. The intervals include the parameters' estimation noise and the sampling of units, not
+the noise of the transition averager. See docs/counterfactuals.md.
+"""
+
+
 _SENSITIVITY_EPILOG = """\
 examples:
   orthoccp sensitivity panel.csv --spec panel.toml --discounts 0.9,0.925,0.95,0.975
@@ -177,7 +193,7 @@ def _add_spec_overrides(parser: argparse.ArgumentParser, learners: tuple[str, ..
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The ``orthoccp`` argument parser with its seven sub-commands.
+    """The ``orthoccp`` argument parser with its eight sub-commands.
 
     Returns
     -------
@@ -367,6 +383,35 @@ def build_parser() -> argparse.ArgumentParser:
     )
     _add_spec_overrides(sens, learners)
     sens.set_defaults(handler=_cmd_sensitivity)
+
+    cfp = sub.add_parser(
+        "counterfactual",
+        parents=[common],
+        help="the estimated model re-solved at changed payoffs: shares, counts, welfare",
+        description=(
+            "Re-solve the model of SPEC, estimated on DATA, at changed flow payoffs and print "
+            "the baseline, the counterfactual and their difference with intervals."
+        ),
+        epilog=_COUNTERFACTUAL_EPILOG,
+        formatter_class=_Formatter,
+    )
+    _add_data_and_spec(cfp)
+    cfp.add_argument("--set", metavar="PARAM=VALUE", action="append", default=None,
+                     help="set a parameter to a counterfactual value (repeatable)")
+    cfp.add_argument("--shift", metavar="CHOICE=UTILS", action="append", default=None,
+                     help="add utils to a choice's payoff at every state (repeatable)")
+    cfp.add_argument("--money", metavar="EXPR", default=None,
+                     help="the utility of one unit of money as an expression of the parameters, "
+                     "e.g. -price (adds the welfare in money)")
+    cfp.add_argument("--averager", choices=("forest", "knn", "cells"), default="forest",
+                     help="how the transitions are averaged (cells: discrete states)")
+    cfp.add_argument("--results", metavar="JSON", default=None,
+                     help="use this estimate (from 'orthoccp estimate --json') instead of "
+                     "estimating first")
+    cfp.add_argument("--json", metavar="OUT", default=None, help="write the table as JSON")
+    cfp.add_argument("--csv", metavar="OUT", default=None, help="write the table as CSV")
+    _add_spec_overrides(cfp, learners)
+    cfp.set_defaults(handler=_cmd_counterfactual)
 
     for name in ("compare", "report"):
         is_report = name == "report"

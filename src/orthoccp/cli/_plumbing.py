@@ -173,23 +173,31 @@ def _json_safe(value: Any, where: str, nulls: dict[str, str]) -> Any:
     return str(value)
 
 
+def name_value_pairs(items: list[str] | None, option: str, example: str) -> dict[str, str]:
+    """Repeated ``--option NAME=VALUE`` arguments as a mapping (names unique, values non-empty)."""
+    out: dict[str, str] = {}
+    for item in items or []:
+        name, sep, value = item.partition("=")
+        name = name.strip()
+        if not sep or not name or not value.strip():
+            raise oc.InputError(f"{option} {item!r}: write NAME=VALUE, e.g. {option} {example}.")
+        if name in out:
+            raise oc.InputError(f"{option}: the name {name!r} is given twice.")
+        out[name] = value
+    return out
+
+
 def parse_functions(items: list[str] | None) -> dict[str, str] | None:
     """``--function NAME=EXPR`` options as a mapping (None when there are none)."""
-    if not items:
-        return None
-    out: dict[str, str] = {}
-    for item in items:
-        name, sep, expr = item.partition("=")
-        name = name.strip()
-        if not sep or not name or not expr.strip():
-            raise oc.InputError(
-                f"--function {item!r}: write NAME=EXPRESSION, e.g. "
-                f"--function 'wear_in_swaps=wear_cost/swap_cost'."
-            )
-        if name in out:
-            raise oc.InputError(f"--function: the name {name!r} is given twice.")
-        out[name] = expr
-    return out
+    return name_value_pairs(items, "--function", "'wear_in_swaps=wear_cost/swap_cost'") or None
+
+
+def write_outputs(outputs: dict[str, Path | None], writers: dict[str, Callable[[Path], Any]]) -> None:
+    """Write each requested output with its writer and say so."""
+    for option, path in outputs.items():
+        if path is not None:
+            writers[option](path)
+            print(f"wrote {path}")
 
 
 def results_payload(res: oc.Results, *, inputs: dict[str, str] | None = None,
