@@ -138,6 +138,21 @@ def test_a_subsidy_against_the_simulators_exact_re_solve(ebike_cf) -> None:  # t
     assert got == pytest.approx(want, abs=0.01)
 
 
+def test_the_demand_curve_is_the_counterfactual_at_each_amount(ebike_cf, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """Each point equals counterfactual(shift={choice: amount}); the share rises with the
+    subsidy; amount 0 is the baseline (change 0); the figure is written."""
+    _, panel, model, res = ebike_cf
+    curve = oc.demand_curve(res, panel, model, choice="swap", amounts=[0.0, 0.5, 1.5])
+    t = curve.table
+    one = counterfactual(res, panel, model, shift={"swap": 1.5})
+    assert t["share"].iloc[-1] == pytest.approx(one.table.loc[("share[swap]", "counterfactual"), "estimate"], rel=1e-10)
+    assert t["std_error"].iloc[-1] == pytest.approx(one.table.loc[("share[swap]", "counterfactual"), "std_error"], rel=1e-8)
+    assert np.all(np.diff(t["share"]) > 0)
+    assert t["change"].iloc[0] == 0.0
+    curve.plot(path=tmp_path / "demand.png")
+    assert (tmp_path / "demand.png").stat().st_size > 1000
+
+
 @pytest.mark.parametrize("options, message", [
     (dict(set={"price": 1.0}), "'price' is not a parameter"),
     (dict(shift={"sell": 1.0}), "'sell' is not a choice"),

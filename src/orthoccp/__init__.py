@@ -7,7 +7,7 @@ from . import discrete
 from ._errors import EstimationError, InputError, OrthoCCPWarning
 from ._version import __version__
 from .compare import Comparison, compare, difference_test
-from .counterfactual import Counterfactual, counterfactual
+from .counterfactual import Counterfactual, DemandCurve, counterfactual, demand_curve
 from .covariance import covariance_names
 from .custom import (
     HansenJ,
@@ -38,6 +38,7 @@ __all__ = [
     "ASSUMPTIONS",
     "Comparison",
     "Counterfactual",
+    "DemandCurve",
     "Diagnostics",
     "DiscountSensitivity",
     "DiscreteResults",
@@ -66,6 +67,7 @@ __all__ = [
     "check_orthogonality",
     "compare",
     "counterfactual",
+    "demand_curve",
     "covariance_names",
     "difference_test",
     "discount_sensitivity",

@@ -97,8 +97,8 @@ from .instruments import persistent_feature_columns
 from .model import EULER_GAMMA, BoundModel, Model
 from .results import Results
 
-__all__ = ["Counterfactual", "TransitionAverager", "Weights", "counterfactual", "fit_averager",
-           "solve_on_rows"]
+__all__ = ["Counterfactual", "DemandCurve", "TransitionAverager", "Weights", "counterfactual",
+           "demand_curve", "fit_averager", "solve_on_rows"]
 
 AVERAGERS = ("forest", "knn", "cells")
 
@@ -548,7 +548,7 @@ def counterfactual(
     set: Mapping[str, float] | None = None,  # noqa: A002 - the natural name of the option
     shift: Mapping[Any, float] | None = None,
     money: str | None = None,
-    averager: str = "forest",
+    averager: str | TransitionAverager = "forest",
     neighbours: int = 10,
     folds: int = 5,
     seed: int = 0,
@@ -571,8 +571,9 @@ def counterfactual(
         The utility of one unit of money as an expression of the parameters (e.g.
         ``"-price"`` when ``price`` multiplies a price column): adds the value in money.
         A shift in money is ``shift={choice: amount * utility of money}`` written by hand.
-    averager : {"forest", "knn", "cells"}, default="forest"
+    averager : {"forest", "knn", "cells"} or TransitionAverager, default="forest"
         How the transitions are averaged (module docstring); ``"cells"`` for discrete states.
+        A fitted :class:`TransitionAverager` (:func:`fit_averager`) is reused as it is.
     neighbours, folds, seed : int
         The nearest-neighbour averager's neighbours and its fold split of units.
     level : float, default=0.95
@@ -615,7 +616,8 @@ def counterfactual(
     money_fn = None if money is None else _compile("money", money, params)
     _warn_if_normalisation_moves(bound, shifts)
 
-    avg = fit_averager(bound, averager=averager, neighbours=neighbours, folds=folds, seed=seed)
+    avg = (averager if isinstance(averager, TransitionAverager) else
+           fit_averager(bound, averager=averager, neighbours=neighbours, folds=folds, seed=seed))
     Z = bound.Z
     beta = float(bound.model.discount)
     theta_hat = results.params.to_numpy(dtype=np.float64)
@@ -730,3 +732,93 @@ def _warn_if_normalisation_moves(bound: BoundModel, shifts: Mapping[int, float])
                 f"Souza-Rodrigues 2021).",
                 OrthoCCPWarning, stacklevel=3,
             )
+
+
+@dataclass(frozen=True, eq=False)
+class DemandCurve:
+    """A choice's share against a subsidy of its payoff (:func:`demand_curve`).
+
+    Attributes
+    ----------
+    table : pandas.DataFrame
+        One row per amount: ``amount`` (utils added to the choice's payoff), ``share``,
+        ``std_error``, ``ci_lower``, ``ci_upper``, and ``change`` with ``change_se`` (the
+        difference from the baseline, amount 0).
+    choice : str
+        The choice subsidised.
+    noise : str
+        Which noise the intervals include.
+    """
+
+    table: pd.DataFrame
+    choice: str
+    noise: str
+    level: float
+
+    def plot(self, *, path: Any = None) -> Any:
+        """The share against the amount with its interval (:func:`orthoccp.figures.demand_plot`)."""
+        from .figures import demand_plot
+
+        return demand_plot(self, path=path)
+
+
+def demand_curve(
+    results: Results,
+    panel: Panel,
+    model: Model,
+    *,
+    choice: Any,
+    amounts: Any,
+    averager: str | TransitionAverager = "forest",
+    seed: int = 0,
+    level: float = 0.95,
+) -> DemandCurve:
+    r"""The predicted share of ``choice`` as its payoff is shifted by each of ``amounts`` utils.
+
+    Each point is :func:`counterfactual` with ``shift={choice: amount}``, on one fitted
+    averager; with the anchor as ``choice`` this is the demand curve for renewals (Rust
+    1987's replacement demand).
+
+    Parameters
+    ----------
+    results, panel, model
+        As for :func:`counterfactual`.
+    choice : label
+        The choice whose payoff is shifted and whose share is reported.
+    amounts : sequence of float
+        Utils added to its payoff (at least two; 0 is the baseline).
+    averager, seed, level
+        As for :func:`counterfactual`.
+
+    Returns
+    -------
+    DemandCurve
+    """
+    try:
+        values = [float(a) for a in amounts]
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"amounts must be a list of numbers, got {amounts!r}.") from exc
+    if len(values) < 2 or not np.all(np.isfinite(values)):
+        raise InputError(f"amounts needs at least two finite numbers, got {amounts!r}.")
+    bound = model.bind(panel)
+    j = find_label(choice, panel.choices, role="choice")
+    if j is None:
+        raise InputError(f"choice {show_label(choice)} is not a choice (choices: {show_labels(panel.choices)}).")
+    label = str(panel.choices[j])
+    avg = (averager if isinstance(averager, TransitionAverager)
+           else fit_averager(bound, averager=averager, seed=seed))
+    rows = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", OrthoCCPWarning)  # one normalisation warning below
+        for amount in values:
+            cf = counterfactual(results, panel, model, shift={panel.choices[j]: amount},
+                                averager=avg, seed=seed, level=level)
+            r = cf.table.loc[f"share[{label}]"]
+            rows.append({"amount": amount, "share": r.loc["counterfactual", "estimate"],
+                         "std_error": r.loc["counterfactual", "std_error"],
+                         "ci_lower": r.loc["counterfactual", "ci_lower"],
+                         "ci_upper": r.loc["counterfactual", "ci_upper"],
+                         "change": r.loc["difference", "estimate"],
+                         "change_se": r.loc["difference", "std_error"]})
+    _warn_if_normalisation_moves(bound, {j: 1.0})
+    return DemandCurve(pd.DataFrame(rows), label, cf.noise, level)

@@ -218,6 +218,26 @@ def discount_plot(sensitivity: Any, *, path: str | Path | None = None) -> Any:
 
 
 @_styled
+def demand_plot(curve: Any, *, path: str | Path | None = None) -> Any:
+    """A choice's predicted share against the utils added to its payoff, with its interval.
+
+    ``curve`` is a :class:`~orthoccp.counterfactual.DemandCurve`; the shaded band is the
+    interval (estimation noise and sampling of units, not the transition averager's noise).
+    """
+    t = curve.table
+    fig, ax = _subplots(figsize=(4.2, 3.0))
+    ax.fill_between(t["amount"], t["ci_lower"], t["ci_upper"], color="0.85", lw=0)
+    ax.plot(t["amount"], t["share"], "o-", color="black", ms=3.5, lw=1.2)
+    ax.axvline(0.0, color="0.3", ls=":", lw=0.9)
+    ax.set_xlabel(f"utils added to the payoff of {curve.choice!r}")
+    ax.set_ylabel(f"predicted share of {curve.choice!r}")
+    pct = f"{curve.level * 100:g}%"
+    ax.set_title(f"Demand for {curve.choice!r}\n(shaded: {pct} interval; dotted: today)")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+@_styled
 def variance_plot(res: Results, *, path: str | Path | None = None) -> Any:
     """Shares of each parameter's variance by moment component, Cov(part, psi)/Var(psi).
 
