@@ -137,3 +137,26 @@ def test_robust_needs_persistent_and_renewal(small_ebike) -> None:  # type: igno
         warnings.simplefilter("ignore")
         res = oc.estimate(panel, model, learner="logit", folds=3)
     assert res.moments == "standard"
+
+
+def test_a_column_of_ones_is_a_constant_like_the_literal_one() -> None:
+    """A renewal cost written as a data column of ones (``"one"``) instead of the constant
+    ``"1"``: its residualised instrument is zero either way, so both fall back to the standard
+    corrected moment for it and give the same estimate. (Before, the data column stayed on the
+    renewal-robust moment and the solve stopped on a singular Jacobian; found by an outside
+    design written without reading the code.)"""
+    import orthoccp as oc
+    from orthoccp.simulate import simulate
+
+    sim = simulate("ebike", units=300, periods=6, seed=8)
+    data = sim.data.assign(one=1.0)
+    panel = oc.Panel(data, unit=sim.unit, period=sim.period, choice=sim.choice, states=list(sim.states))
+    literal = sim.model()
+    column = oc.Model(anchor=sim.anchor, kind=sim.kind, discount=sim.discount,
+                      utility={"keep": dict(sim.utility["keep"]), "swap": {"swap_cost": "one"}},
+                      persistent=sim.persistent)
+    a = oc.estimate(panel, literal, learner="logit", folds=3)
+    b = oc.estimate(panel, column, learner="logit", folds=3)
+    np.testing.assert_allclose(b.params.to_numpy(), a.params.to_numpy(), rtol=1e-10)
+    np.testing.assert_allclose(b.std_errors.to_numpy(), a.std_errors.to_numpy(), rtol=1e-10)
+    assert "swap_cost" in b.fallback and "a constant" in b.fallback["swap_cost"]

@@ -72,14 +72,24 @@ def plan_robust(bound: BoundModel) -> RobustPlan:
             columns[name].add(col)
     flow = bound.Z - bound.Z[:, R : R + 1, :]
     others = [j for j in range(bound.Z.shape[1]) if j != R]
+
+    def constant(col: str) -> bool:
+        # The constant "1", or a data column that takes one value on every row (a column of
+        # ones written into the data): its residualised instrument is zero just the same.
+        if col == CONSTANT:
+            return True
+        values = np.asarray(bound.panel.column(col), dtype=np.float64)
+        return values.size > 0 and float(np.ptp(values)) == 0.0
+
     for k, name in enumerate(params):
-        f_only = all(c == CONSTANT or c in persistent for c in columns[name])
+        f_only = all(constant(c) or c in persistent for c in columns[name])
         if k in set(bound.zR_params.tolist()):
-            f_only = f_only and all(c in persistent for c in columns[name] if c != CONSTANT)
+            f_only = f_only and all(c in persistent for c in columns[name] if not constant(c))
         same = np.ptp(flow[:, others, k], axis=1).max() == 0.0 if len(others) > 1 else True
         if f_only and same:
             robust[k] = False
-            what = "a constant" if columns[name] <= {CONSTANT} else "a function of the persistent states only"
+            what = ("a constant" if all(constant(c) for c in columns[name])
+                    else "a function of the persistent states only")
             reasons[name] = (
                 f"its regressor is {what} and the same for every non-anchor choice, so the "
                 f"residualised instrument is zero; it uses the standard corrected moment"
