@@ -131,3 +131,19 @@ def test_split_spread_is_reported_with_several_splits(small_ebike) -> None:  # t
     assert "fold splits: across 3 splits the estimates spread by wear_cost" in res.summary()
     one = oc.estimate(panel, model, learner="logit", folds=3, seed=0)
     assert one.split_spread is None and "fold splits:" not in one.summary()
+
+
+def test_a_singular_jacobian_names_the_parameters_it_cannot_move() -> None:
+    """The null direction of G (its last right singular vector) names the parameters."""
+    from types import SimpleNamespace
+
+    from orthoccp._errors import EstimationError
+    from orthoccp.estimate import _name_the_unidentified
+
+    G = np.array([[2.0, 0.0, 0.0], [0.0, 1.0, 1.0], [0.0, 1.0, 1.0]])  # b and c move together
+    system = SimpleNamespace(jacobian=lambda theta: G)
+    exc = EstimationError("orthogonal solve: the Jacobian is singular or ill-conditioned (x)")
+    with pytest.raises(EstimationError, match=r"direction (b|c) \([+-]0\.71\), (b|c) \([+-]0\.71\)"):
+        _name_the_unidentified(exc, system, np.zeros(3), ("a", "b", "c"))
+    # other errors pass through untouched
+    _name_the_unidentified(EstimationError("something else"), system, np.zeros(3), ("a", "b", "c"))

@@ -311,6 +311,7 @@ def estimate(
             except EstimationError as exc:
                 if robust:
                     _raise_if_reset(bound, exc)
+                _name_the_unidentified(exc, system, theta0, params)
                 raise
         iterations += info.iterations
         for _ in range(int(model_ccp_steps)):
@@ -565,6 +566,29 @@ def _choose_moments(bound: BoundModel, moments: str | None, debias: bool) -> str
         if not debias:
             raise InputError("moments='renewal_robust' is a debiased moment; use debias=True.")
     return moments
+
+
+def _name_the_unidentified(exc: EstimationError, system: Any, theta: np.ndarray,
+                           params: tuple[str, ...]) -> None:
+    """A singular Jacobian: raise again naming the parameters its null direction moves.
+
+    The right singular vector of :math:`G` for its smallest singular value is the direction in
+    which the parameters move without changing the moment; its large entries name them.
+    """
+    if "singular or ill-conditioned" not in str(exc):
+        return
+    G = system.jacobian(theta)
+    if not np.all(np.isfinite(G)):
+        return
+    _, sv, vt = np.linalg.svd(G)
+    v = vt[-1]
+    named = [f"{params[k]} ({v[k]:+.2f})" for k in np.argsort(-np.abs(v)) if abs(v[k]) >= 0.3]
+    raise EstimationError(
+        f"{exc} The moment does not move along the direction {', '.join(named)} (smallest "
+        f"singular value of G {sv[-1]:.3g} against the largest {sv[0]:.3g}): check that those "
+        f"parameters' utility columns vary across rows and choices, and that no two of them are "
+        f"proportional."
+    ) from exc
 
 
 def _changed_after_renewal(bound: BoundModel) -> tuple[dict[str, int], int]:
