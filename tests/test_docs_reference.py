@@ -717,3 +717,14 @@ def test_counterfactual_accuracy_table_matches_its_json() -> None:
         _assert_printed(row["max"].removesuffix(" %"), 100 * s["max_abs_relative_error"], where)
         _assert_printed(row["baseline CCP MAE"], s["baseline_mae"], where)
         _assert_printed(row["time / estimate"], s["seconds_over_estimate"], where)
+
+
+def test_outside_counterfactual_paragraph_matches_its_json() -> None:
+    """The outside design's counterfactual numbers are benchmarks/results/outside_counterfactual.json's."""
+    d = _json("outside_counterfactual.json")["summary"]
+    text = _section(_page("validation.md"), "## Counterfactuals")
+    for value in (f"{d['truth']:.4f}", f"{d['mean_change']:.4f}", f"{d['sd']:.4f}",
+                  f"{d['mean_se']:.4f}", f"SD/s.e. {d['sd_over_se']:.2f}",
+                  f"in {d['covered']} of {d['draws']} draws",
+                  f"{100 * d['bias_over_truth']:+.1f} % of the truth"):
+        assert value in text, value
