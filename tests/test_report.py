@@ -206,3 +206,21 @@ def test_data_section_counts_gaps_and_shares(small_ebike, comparison) -> None:  
     share = (kept[kept[sim.period] == periods[3]][sim.choice] == "swap").mean()
     n_rows = int((~holes & (data[sim.period] == periods[3])).sum())
     assert f"{100 * share:.1f}%" in text and f"<td>{n_rows}</td>" in text
+
+
+def test_the_counterfactual_section(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """``counterfactual=``: the changes in words, the solver's record and the difference rows,
+    as the Counterfactual's own table has them."""
+    from orthoccp.simulate import simulate
+
+    sim = simulate("ebike", units=250, periods=6, seed=2)
+    panel, model = sim.panel(), sim.model()
+    res = oc.estimate(panel, model, learner="logit", folds=3)
+    cf = oc.counterfactual(res, panel, model, shift={"swap": 1.0})
+    path = oc.write_report(res, tmp_path / "r.html", counterfactual=cf)
+    html = path.read_text()
+    section = html[html.index("<h2 id='counterfactual'>"):html.index("<h2 id='provenance'>")]
+    assert "swap +1 util" in section and "forest averager" in section
+    d = cf.table.loc[("share[swap]", "difference"), "estimate"]
+    assert f"{d:.4f}" in section
+    assert "not the noise of the transition averager" in section

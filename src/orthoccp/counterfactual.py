@@ -488,11 +488,21 @@ class Counterfactual:
     averager: TransitionAverager
     level: float
     seconds: float
+    learner: str = ""
+
+    def describe_changes(self) -> str:
+        """The changes in words: ``swap_cost set to -4; swap +1 util``."""
+        parts = [f"{k} set to {v:g}" for k, v in self.changes.get("set", {}).items()]
+        parts += [f"{k} {v:+g} util{'s' if abs(v) != 1 else ''}"
+                  for k, v in self.changes.get("shift", {}).items()]
+        if self.changes.get("money"):
+            parts.append(f"money valued at {self.changes['money']} utils per unit")
+        return "; ".join(parts)
 
     def summary(self) -> str:
-        r"""Plain text: the changes, the table, the noise the intervals include."""
+        """Plain text: the changes, the table, the noise the intervals include."""
         pct = int(round(self.level * 100))
-        lines = ["counterfactual: " + "; ".join(f"{k} {v}" for k, v in self.changes.items() if v)]
+        lines = ["counterfactual: " + self.describe_changes()]
         head = f"{'statistic':<28}{'scenario':<16}{'estimate':>11}{'std.err':>11}{f'[{pct}% conf. int.]':>24}"
         lines += ["=" * len(head), head, "-" * len(head)]
         for (stat, scen), r in self.table.iterrows():
@@ -705,7 +715,7 @@ def counterfactual(
              "the sampling of units; not the noise of the transition averager")
     return Counterfactual(table=table, ccp=ccp, changes=changes, noise=noise,
                           iterations=iterations, averager=avg, level=level,
-                          seconds=time.perf_counter() - t0)
+                          seconds=time.perf_counter() - t0, learner=results.learner)
 
 
 def _money(fn: Any, theta: np.ndarray, params: list[str]) -> float:

@@ -399,6 +399,26 @@ def _sensitivity_section(sens: DiscountSensitivity) -> str:
     ])
 
 
+def _counterfactual_section(cf: Any) -> str:
+    """The counterfactual's changes, its difference table, its record and what it includes."""
+    pct = f"{cf.level * 100:g}%"
+    t = cf.table
+    rows = []
+    for stat in dict.fromkeys(t.index.get_level_values("statistic")):
+        b, c, d = (t.loc[(stat, s)] for s in ("baseline", "counterfactual", "difference"))
+        rows.append([stat, b.estimate, c.estimate, d.estimate, d.std_error, d.ci_lower, d.ci_upper])
+    changes = cf.describe_changes()
+    return "\n".join([
+        "<h2 id='counterfactual'>Counterfactual</h2>",
+        f"<p>The estimated model ({_e(cf.learner)} first stage) re-solved at changed payoffs "
+        f"on the data's own states: {_e(changes)}. Fitted value iteration with the "
+        f"{_e(cf.averager.kind)} averager ({cf.iterations['baseline']} and "
+        f"{cf.iterations['counterfactual']} steps). The intervals include {_e(cf.noise)}.</p>",
+        _table(["statistic", "baseline", "counterfactual", "difference", "s.e.",
+                f"{pct} lower", f"{pct} upper"], rows),
+    ])
+
+
 def _provenance_section(comparison: Comparison, provenance: Mapping[str, str] | None) -> str:
     base = next(iter(comparison.results.values()))
     info: dict[str, str] = {
@@ -429,6 +449,7 @@ def render_report(
     sensitivity: DiscountSensitivity | None = None,
     provenance: Mapping[str, str] | None = None,
     level: float = 0.95,
+    counterfactual: Any = None,
 ) -> str:
     """The report as an HTML string.
 
@@ -452,6 +473,8 @@ def render_report(
         version, seed, first stages and model are added from the results.
     level : float, default=0.95
         Confidence level of the intervals.
+    counterfactual : Counterfactual, optional
+        :func:`~orthoccp.counterfactual` result: adds its changes and table.
     """
     if not comparison.results:
         raise InputError("the comparison holds no result; there is nothing to report.")
@@ -485,6 +508,8 @@ def render_report(
         parts.append(_first_stage_section(label, res, stability.get(label)))
     if sensitivity is not None:
         parts.append(_sensitivity_section(sensitivity))
+    if counterfactual is not None:
+        parts.append(_counterfactual_section(counterfactual))
     parts.append(_provenance_section(comparison, provenance))
     parts.append("<h2 id='assumptions'>Assumptions</h2><p>The intervals and tests are valid "
                  "only under:</p><ul>")
@@ -503,6 +528,7 @@ def write_report(
     panel: Panel | None = None,
     sensitivity: DiscountSensitivity | None = None,
     provenance: Mapping[str, str] | None = None,
+    counterfactual: Any = None,
 ) -> Path:
     """Write :func:`render_report` to ``path`` (a single results object is accepted too).
 
@@ -515,7 +541,8 @@ def write_report(
         raise InputError(f"path must be a file name such as 'report.html', got {path!r}.")
     p = check_output(path, option="path")
     text = render_report(comparison, title=title, stability=stability, truth=truth, panel=panel,
-                         sensitivity=sensitivity, provenance=provenance)
+                         sensitivity=sensitivity, provenance=provenance,
+                         counterfactual=counterfactual)
     with writing(p):
         p.parent.mkdir(parents=True, exist_ok=True)
         p.write_text(text, encoding="utf-8")

@@ -389,6 +389,8 @@ def _cmd_report(args: argparse.Namespace) -> int:
     if out.suffix.lower() not in (".html", ".htm"):
         raise oc.InputError(f"--out {args.out!r} must be an .html file name.")
     _require_matplotlib("the report's figures")
+    changes = _assignments(args.set, "--set", "swap_cost=-4")  # checked before any work
+    shifts = _assignments(args.shift, "--shift", "swap=1.0")
     data_path, panel, model, options, cmp = _run_comparison(args, progress, {"--out": out})
     stability = {}
     if args.stability:
@@ -406,11 +408,21 @@ def _cmd_report(args: argparse.Namespace) -> int:
         progress.stage(f"sensitivity to the discount factor with {label}")
         sensitivity = discount_sensitivity(panel, model, discounts=args.discounts,
                                            learner=label, **options)
+    cf = None
+    if changes or shifts:
+        from ..report import favoured_first_stage
+
+        label = favoured_first_stage(cmp, stability=stability)[0] or list(cmp.results)[-1]
+        progress.stage(f"counterfactual with {label}")
+        labels = {str(c): c for c in panel.choices}
+        cf = oc.counterfactual(cmp.results[label], panel, model, set=changes or None,
+                               shift={labels.get(k, k): v for k, v in shifts.items()} or None,
+                               seed=int(options.get("seed", 0)))
     progress.stage(f"writing {out}")
     provenance = {"data file": str(data_path), "spec file": str(args.spec),
                   "command": shlex.join(getattr(args, "command_line", [PROG, "report"]))}
     write_report(cmp, out, stability=stability, panel=panel, sensitivity=sensitivity,
-                 provenance=provenance)
+                 provenance=provenance, counterfactual=cf)
     print(cmp.summary())
     for label, fs in stability.items():
         print(f"{label}: {fs.reading()}")

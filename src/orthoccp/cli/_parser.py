@@ -463,6 +463,16 @@ def build_parser() -> argparse.ArgumentParser:
                 help="add the sensitivity to the discount factor at these values (e.g. "
                 "0.9,0.95,0.99), with the first stage the report favours",
             )
+            cp.add_argument(
+                "--shift", metavar="CHOICE=UTILS", action="append", default=None,
+                help="add a counterfactual section: utils added to a choice's payoff "
+                "(repeatable), with the first stage the report favours",
+            )
+            cp.add_argument(
+                "--set", metavar="PARAM=VALUE", action="append", default=None,
+                help="add a counterfactual section: a parameter's counterfactual value "
+                "(repeatable)",
+            )
             cp.set_defaults(handler=_cmd_report)
         else:
             for opt, what in (("--json", "JSON"), ("--latex", "a LaTeX table"), ("--html", "an HTML table")):
