@@ -142,9 +142,10 @@ def test_the_demand_curve_is_the_counterfactual_at_each_amount(ebike_cf, tmp_pat
     """Each point equals counterfactual(shift={choice: amount}); the share rises with the
     subsidy; amount 0 is the baseline (change 0); the figure is written."""
     _, panel, model, res = ebike_cf
-    curve = oc.demand_curve(res, panel, model, choice="swap", amounts=[0.0, 0.5, 1.5])
+    curve = oc.demand_curve(res, panel, model, choice="swap", amounts=[0.0, 0.5, 1.5],
+                            averager="knn")
     t = curve.table
-    one = counterfactual(res, panel, model, shift={"swap": 1.5})
+    one = counterfactual(res, panel, model, shift={"swap": 1.5}, averager="knn")
     assert t["share"].iloc[-1] == pytest.approx(one.table.loc[("share[swap]", "counterfactual"), "estimate"], rel=1e-10)
     assert t["std_error"].iloc[-1] == pytest.approx(one.table.loc[("share[swap]", "counterfactual"), "std_error"], rel=1e-8)
     assert np.all(np.diff(t["share"]) > 0)
