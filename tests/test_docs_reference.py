@@ -728,3 +728,22 @@ def test_outside_counterfactual_paragraph_matches_its_json() -> None:
                   f"in {d['covered']} of {d['draws']} draws",
                   f"{100 * d['bias_over_truth']:+.1f} % of the truth"):
         assert value in text, value
+
+
+def test_paired_rerun_table_matches_its_json() -> None:
+    """The headline cells rerun on the same panels: benchmarks/results/paired_rerun.json."""
+    doc = _json("paired_rerun.json")
+    rows = _tables(_section(_page("validation.md"), "### The headline cells after the canonical fold key"))[0]
+    expected = {(k.replace("|", ", "), p["parameter"]): p for k, c in doc["cells"].items()
+                for p in c["parameters"]}
+    assert len(rows) == len(expected) == 7
+    for row in rows:
+        p = expected[(row["cell"], row["parameter"])]
+        where = f"{row['cell']} {row['parameter']}"
+        assert int(row["replications"]) == p["reps"] and int(row["changed"]) == p["coverage_changed"]
+        _assert_printed(row["coverage before"], p["old"]["coverage"], where)
+        _assert_printed(row["coverage after"], p["new"]["coverage"], where)
+        _assert_printed(row["SD/s.e. before"], p["old"]["sd"] / p["old"]["mean_se"], where)
+        _assert_printed(row["SD/s.e. after"], p["new"]["sd"] / p["new"]["mean_se"], where)
+        _assert_printed(row["shift mean"], p["shift_mean"], where)
+        _assert_printed(row["shift SD"], p["shift_sd"], where)
