@@ -747,3 +747,19 @@ def test_paired_rerun_table_matches_its_json() -> None:
         _assert_printed(row["SD/s.e. after"], p["new"]["sd"] / p["new"]["mean_se"], where)
         _assert_printed(row["shift mean"], p["shift_mean"], where)
         _assert_printed(row["shift SD"], p["shift_sd"], where)
+
+
+def test_counterfactual_coverage_table_matches_its_json() -> None:
+    """The counterfactual Monte Carlo: benchmarks/results/counterfactual_coverage.json."""
+    doc = _json("counterfactual_coverage.json")
+    cell = next(iter(doc["cells"].values()))["summary"]
+    section = _section(_page("validation.md"), "## Counterfactuals")
+    rows = [t for t in _tables(section) if "statistic (difference)" in t[0]][0]
+    assert len(rows) == len(cell) == 2
+    for row in rows:
+        s = cell[row["statistic (difference)"]]
+        where = row["statistic (difference)"]
+        assert int(row["replications"]) == s["reps"]
+        for column, key in (("truth", "truth"), ("bias", "bias"), ("bias / SD", "bias_over_sd"),
+                            ("SD", "sd"), ("mean s.e.", "mean_se"), ("coverage", "coverage")):
+            _assert_printed(row[column], s[key], where)
