@@ -550,6 +550,26 @@ def _check_changes(bound: BoundModel, set_: Mapping[str, float] | None,
     return new, shifts
 
 
+def _checked_inputs(results: Results, panel: Panel, model: Model, level: Any) -> BoundModel:
+    """The model bound to the panel, after checking that ``results`` estimate it."""
+    if not isinstance(results, Results):
+        raise InputError(f"results must be an orthoccp Results, got {type(results).__name__}.")
+    if not isinstance(panel, Panel) or not isinstance(model, Model):
+        raise InputError("panel and model must be the orthoccp.Panel and orthoccp.Model of the estimate.")
+    if not (isinstance(level, float) and 0 < level < 1):
+        raise InputError(f"level must be a number in (0, 1), got {level!r}.")
+    bound = model.bind(panel)
+    params = list(bound.parameters)
+    if list(results.params.index) != params:
+        raise InputError(
+            f"the results estimate {', '.join(results.params.index)}, the model has "
+            f"{', '.join(params)}: pass the model and panel the estimate was made on."
+        )
+    if bound.model.discount <= 0:
+        raise InputError("the counterfactual needs a dynamic model (discount > 0).")
+    return bound
+
+
 def counterfactual(
     results: Results,
     panel: Panel,
@@ -607,27 +627,32 @@ def counterfactual(
     Economics 12.
     """
     t0 = time.perf_counter()
-    if not isinstance(results, Results):
-        raise InputError(f"results must be an orthoccp Results, got {type(results).__name__}.")
-    if not isinstance(panel, Panel) or not isinstance(model, Model):
-        raise InputError("panel and model must be the orthoccp.Panel and orthoccp.Model of the estimate.")
-    if not (isinstance(level, float) and 0 < level < 1):
-        raise InputError(f"level must be a number in (0, 1), got {level!r}.")
-    bound = model.bind(panel)
+    bound = _checked_inputs(results, panel, model, level)
     params = list(bound.parameters)
-    if list(results.params.index) != params:
-        raise InputError(
-            f"the results estimate {', '.join(results.params.index)}, the model has "
-            f"{', '.join(params)}: pass the model and panel the estimate was made on."
-        )
-    if bound.model.discount <= 0:
-        raise InputError("the counterfactual needs a dynamic model (discount > 0).")
     new, shifts = _check_changes(bound, set, shift)
     money_fn = None if money is None else _compile("money", money, params)
     _warn_if_normalisation_moves(bound, shifts)
-
     avg = (averager if isinstance(averager, TransitionAverager) else
            fit_averager(bound, averager=averager, neighbours=neighbours, folds=folds, seed=seed))
+    return _solve_changes(results, panel, bound, avg, [(new, shifts)], money=money,
+                          money_fn=money_fn, level=level, t0=t0)[0]
+
+
+def _solve_changes(
+    results: Results,
+    panel: Panel,
+    bound: BoundModel,
+    avg: TransitionAverager,
+    changes: list[tuple[dict[str, float], dict[int, float]]],
+    *,
+    money: str | None,
+    money_fn: Any,
+    level: float,
+    t0: float,
+) -> list[Counterfactual]:
+    r"""One :class:`Counterfactual` per change (checked ``(set, shift)`` pairs), all against
+    one baseline: the baseline and its gradient are solved once."""
+    params = list(bound.parameters)
     Z = bound.Z
     beta = float(bound.model.discount)
     theta_hat = results.params.to_numpy(dtype=np.float64)
@@ -637,52 +662,37 @@ def counterfactual(
     rows_per_unit = np.bincount(unit, minlength=n_units).astype(np.float64)
     J = len(panel.choices)
     names = [str(c) for c in panel.choices]
-    starts: dict[str, np.ndarray | None] = {"baseline": None, "counterfactual": None}
-    iterations: dict[str, int] = {}
 
-    def theta_of(theta: np.ndarray, scenario: str) -> np.ndarray:
-        t = theta.copy()
-        if scenario == "counterfactual":
-            for name, value in new.items():
+    class _Scenario:
+        """One set of payoffs: its solve, warm start, per-unit statistics and gradient."""
+
+        def __init__(self, new: Mapping[str, float], shifts: Mapping[int, float]) -> None:
+            self.new, self.shifts = new, shifts
+            self.start: np.ndarray | None = None
+            self.stats = self.unit_stats(theta_hat, keep=True)
+            self.mean = self.stats.mean(axis=0)
+            self.grad = central_jacobian(lambda t: self.unit_stats(t).mean(axis=0), theta_hat)
+
+        def unit_stats(self, theta: np.ndarray, *, keep: bool = False) -> np.ndarray:
+            r"""(n_units, q) per-unit contributions a_i of every statistic."""
+            t = theta.copy()
+            for name, value in self.new.items():
                 t[params.index(name)] = value
-        return t
-
-    def solve(theta: np.ndarray, scenario: str) -> tuple[RowSolution, np.ndarray]:
-        u = Z @ theta_of(theta, scenario)
-        if scenario == "counterfactual":
-            for j, amount in shifts.items():
+            u = Z @ t
+            for j, amount in self.shifts.items():
                 u[:, j] = u[:, j] + amount
-        sol = solve_on_rows(u, avg, beta, start=starts[scenario])
-        return sol, _discounted_counts(sol.ccp, avg, beta)
+            sol = solve_on_rows(u, avg, beta, start=self.start)
+            counts = _discounted_counts(sol.ccp, avg, beta)
+            if keep:
+                self.start, self.solution = sol.value, sol
+            share = np.zeros((n_units, J))
+            np.add.at(share, unit, sol.ccp)
+            cols = [share / panel.n_rows * n_units,  # so that the mean over units is the row share
+                    counts[first], sol.value[first][:, None]]
+            if money_fn is not None:
+                cols.append((sol.value[first] / _money(money_fn, theta, params))[:, None])
+            return np.hstack(cols)
 
-    def unit_stats(theta: np.ndarray, scenario: str, *, keep: bool = False) -> np.ndarray:
-        r"""(n_units, q) per-unit contributions a_i of every statistic."""
-        sol, counts = solve(theta, scenario)
-        if keep:
-            starts[scenario] = sol.value
-            iterations[scenario] = sol.iterations
-            solved[scenario] = sol
-        P = sol.ccp
-        share = np.zeros((n_units, J))
-        np.add.at(share, unit, P)
-        cols = [share / panel.n_rows * n_units,  # so that the mean over units is the row share
-                counts[first], sol.value[first][:, None]]
-        if money_fn is not None:
-            cols.append((sol.value[first] / _money(money_fn, theta, params))[:, None])
-        return np.hstack(cols)
-
-    solved: dict[str, RowSolution] = {}
-    a_base = unit_stats(theta_hat, "baseline", keep=True)
-    a_cf = unit_stats(theta_hat, "counterfactual", keep=True)
-    # weights: share statistics are row-weighted ratios, the others unit means
-    weight = np.ones((n_units, a_base.shape[1]))
-    weight[:, :J] = (rows_per_unit / rows_per_unit.mean())[:, None]
-
-    def aggregate(theta: np.ndarray, scenario: str) -> np.ndarray:
-        return unit_stats(theta, scenario).mean(axis=0)
-
-    g = {"baseline": a_base.mean(axis=0), "counterfactual": a_cf.mean(axis=0)}
-    grad = {s: central_jacobian(lambda t, s=s: aggregate(t, s), theta_hat) for s in g}
     # per-unit influence terms, in the results' unit order
     pos = pd.Index(panel.unit_labels).get_indexer(pd.Index(results.influence_units))
     if (pos < 0).any():
@@ -691,31 +701,43 @@ def counterfactual(
         )
     infl = np.zeros((n_units, len(params)))
     infl[pos] = results.influence
-    a = {"baseline": a_base, "counterfactual": a_cf}
-    psi = {s: (a[s] - weight * g[s]) / n_units + infl @ grad[s].T for s in g}
-    psi["difference"] = psi["counterfactual"] - psi["baseline"]
-    g["difference"] = g["counterfactual"] - g["baseline"]
+    base = _Scenario({}, {})
+    # weights: share statistics are row-weighted ratios, the others unit means
+    weight = np.ones((n_units, base.stats.shape[1]))
+    weight[:, :J] = (rows_per_unit / rows_per_unit.mean())[:, None]
     factor = n_units / (n_units - 1) if results.small_sample else 1.0
     crit = stats.norm.ppf(0.5 + level / 2)
     labels = ([f"share[{c}]" for c in names] + [f"discounted count[{c}]" for c in names]
               + ["value per unit (utils)"] + (["value per unit (money)"] if money_fn else []))
-    records = []
-    for k, stat in enumerate(labels):
-        for scen in ("baseline", "counterfactual", "difference"):
-            se = float(np.sqrt(factor * np.sum(psi[scen][:, k] ** 2)))
-            est = float(g[scen][k])
-            records.append({"statistic": stat, "scenario": scen, "estimate": est, "std_error": se,
-                            "ci_lower": est - crit * se, "ci_upper": est + crit * se})
-    table = pd.DataFrame.from_records(records).set_index(["statistic", "scenario"])
-    ccp = {s: pd.DataFrame(solved[s].ccp, columns=names, index=panel.source_index.copy())
-           for s in ("baseline", "counterfactual")}
-    changes = {"set": dict(new), "shift": {names[j]: v for j, v in shifts.items()},
-               "money": money}
     noise = ("the parameters' estimation noise (through their per-unit influence terms) and "
              "the sampling of units; not the noise of the transition averager")
-    return Counterfactual(table=table, ccp=ccp, changes=changes, noise=noise,
-                          iterations=iterations, averager=avg, level=level,
-                          seconds=time.perf_counter() - t0, learner=results.learner)
+    out = []
+    for new, shifts in changes:
+        cf = _Scenario(new, shifts)
+        psi = {name: (obj.stats - weight * obj.mean) / n_units + infl @ obj.grad.T
+               for name, obj in (("baseline", base), ("counterfactual", cf))}
+        psi["difference"] = psi["counterfactual"] - psi["baseline"]
+        g = {"baseline": base.mean, "counterfactual": cf.mean, "difference": cf.mean - base.mean}
+        records = []
+        for k, stat in enumerate(labels):
+            for scen in ("baseline", "counterfactual", "difference"):
+                se = float(np.sqrt(factor * np.sum(psi[scen][:, k] ** 2)))
+                est = float(g[scen][k])
+                records.append({"statistic": stat, "scenario": scen, "estimate": est,
+                                "std_error": se, "ci_lower": est - crit * se,
+                                "ci_upper": est + crit * se})
+        table = pd.DataFrame.from_records(records).set_index(["statistic", "scenario"])
+        ccp = {s: pd.DataFrame(obj.solution.ccp, columns=names, index=panel.source_index.copy())
+               for s, obj in (("baseline", base), ("counterfactual", cf))}
+        described = {"set": dict(new), "shift": {names[j]: v for j, v in shifts.items()},
+                     "money": money}
+        out.append(Counterfactual(
+            table=table, ccp=ccp, changes=described, noise=noise,
+            iterations={"baseline": base.solution.iterations,
+                        "counterfactual": cf.solution.iterations},
+            averager=avg, level=level, seconds=time.perf_counter() - t0,
+            learner=results.learner))
+    return out
 
 
 def _money(fn: Any, theta: np.ndarray, params: list[str]) -> float:
@@ -785,9 +807,9 @@ def demand_curve(
 ) -> DemandCurve:
     r"""The predicted share of ``choice`` as its payoff is shifted by each of ``amounts`` utils.
 
-    Each point is :func:`counterfactual` with ``shift={choice: amount}``, on one fitted
-    averager; with the anchor as ``choice`` this is the demand curve for renewals (Rust
-    1987's replacement demand).
+    Each point is :func:`counterfactual` with ``shift={choice: amount}`` (the same numbers),
+    on one fitted averager and one baseline, solved once with its gradient. With the anchor
+    as ``choice`` this is the demand curve for renewals (Rust 1987's replacement demand).
 
     Parameters
     ----------
@@ -810,25 +832,24 @@ def demand_curve(
         raise InputError(f"amounts must be a list of numbers, got {amounts!r}.") from exc
     if len(values) < 2 or not np.all(np.isfinite(values)):
         raise InputError(f"amounts needs at least two finite numbers, got {amounts!r}.")
-    bound = model.bind(panel)
+    t0 = time.perf_counter()
+    bound = _checked_inputs(results, panel, model, level)
     j = find_label(choice, panel.choices, role="choice")
     if j is None:
         raise InputError(f"choice {show_label(choice)} is not a choice (choices: {show_labels(panel.choices)}).")
     label = str(panel.choices[j])
     avg = (averager if isinstance(averager, TransitionAverager)
            else fit_averager(bound, averager=averager, seed=seed))
+    points = _solve_changes(results, panel, bound, avg, [({}, {j: a}) for a in values],
+                            money=None, money_fn=None, level=level, t0=t0)
     rows = []
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", OrthoCCPWarning)  # one normalisation warning below
-        for amount in values:
-            cf = counterfactual(results, panel, model, shift={panel.choices[j]: amount},
-                                averager=avg, seed=seed, level=level)
-            r = cf.table.loc[f"share[{label}]"]
-            rows.append({"amount": amount, "share": r.loc["counterfactual", "estimate"],
-                         "std_error": r.loc["counterfactual", "std_error"],
-                         "ci_lower": r.loc["counterfactual", "ci_lower"],
-                         "ci_upper": r.loc["counterfactual", "ci_upper"],
-                         "change": r.loc["difference", "estimate"],
-                         "change_se": r.loc["difference", "std_error"]})
+    for amount, cf in zip(values, points):
+        r = cf.table.loc[f"share[{label}]"]
+        rows.append({"amount": amount, "share": r.loc["counterfactual", "estimate"],
+                     "std_error": r.loc["counterfactual", "std_error"],
+                     "ci_lower": r.loc["counterfactual", "ci_lower"],
+                     "ci_upper": r.loc["counterfactual", "ci_upper"],
+                     "change": r.loc["difference", "estimate"],
+                     "change_se": r.loc["difference", "std_error"]})
     _warn_if_normalisation_moves(bound, {j: 1.0})
-    return DemandCurve(pd.DataFrame(rows), label, cf.noise, level)
+    return DemandCurve(pd.DataFrame(rows), label, points[0].noise, level)
