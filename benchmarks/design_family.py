@@ -211,6 +211,53 @@ def run_design(
     return "ran"
 
 
+# --------------------------------------------------------------------------- recheck
+SIGNAL_COLUMNS = ("linearity_gap", "correction_shift", "effective_units", "unseen_variance",
+                  "flagged")
+
+
+def recheck_design(doc: dict[str, Any], path: Path, key: str, *, checkpoint: int) -> int:
+    """Rerun the debiased estimator of every stored replication of ``key`` and store the
+    current interval-check signals and flag in place of the old ones (the old flag is kept
+    as ``flagged_previous``, for :mod:`interval_calibration`'s candidate rules).
+
+    The estimate is deterministic in the replication's seeds, so it must reproduce the stored
+    one (to 1e-8 relative); the run stops otherwise. Replications that already hold every
+    signal are skipped, so the recheck resumes. Returns the number of replications rerun.
+    """
+    from dataclasses import replace
+
+    from orthoccp.montecarlo._replicate import run_replication
+
+    entry = doc["designs"][key]
+    records = entry["mc"]["replications"]
+    settings = replace(MonteCarloResults.from_dict(entry["mc"]).settings,
+                       estimators=("debiased",))
+    todo = sorted({r["rep"] for r in records if r["estimator"] == "debiased"
+                   and r.get("unseen_variance") is None and not r["failed"]})
+    t0 = time.perf_counter()
+    for i, rep in enumerate(todo, 1):
+        new = {r["parameter"]: r for r in run_replication(settings, rep)}
+        for r in records:
+            if r["estimator"] != "debiased" or r["rep"] != rep:
+                continue
+            fresh = new[r["parameter"]]
+            if not math.isclose(fresh["estimate"], r["estimate"], rel_tol=1e-8, abs_tol=1e-12):
+                sys.exit(f"design_family.py: {key} replication {rep} {r['parameter']}: the "
+                         f"rerun gives {fresh['estimate']!r}, the store {r['estimate']!r}; the "
+                         f"estimator changed, so rerun the design instead.")
+            r.setdefault("flagged_previous", r["flagged"])  # the rule before the recheck
+            for col in SIGNAL_COLUMNS:
+                value = fresh[col]
+                r[col] = None if isinstance(value, float) and math.isnan(value) else value
+        if i % checkpoint == 0 or i == len(todo):
+            entry["summary"] = summarise(MonteCarloResults.from_dict(entry["mc"]))
+            save(path, doc)
+            print(f"{key}: rechecked {i}/{len(todo)} ({time.perf_counter() - t0:.0f} s)",
+                  flush=True)
+    return len(todo)
+
+
 # --------------------------------------------------------------------------- report
 def _fmt(value: Any, spec: str) -> str:
     return "–" if value is None else format(value, spec)
@@ -270,6 +317,10 @@ def parse(argv: Sequence[str] | None = None) -> argparse.Namespace:
     ap.add_argument("--resummarise", action="store_true",
                     help="recompute every stored design's summary from its replications "
                          "(after a change to the summary), then rewrite the table")
+    ap.add_argument("--recheck", action="store_true",
+                    help="rerun the debiased estimator of every stored replication (the same "
+                         "estimate) to record the current interval-check signals and flag; "
+                         "resumable")
     ap.add_argument("--table-only", action="store_true",
                     help="only rewrite design_family.md from the stored designs")
     a = ap.parse_args(argv)
@@ -297,6 +348,16 @@ def main(argv: Sequence[str] | None = None) -> int:
                 entry["summary"] = summarise(MonteCarloResults.from_dict(entry["mc"]))
             save(path, doc)
         print(f"wrote {path}")
+    if a.recheck:
+        with lock(path):
+            doc = load(path)
+            keys = [k for k, e in doc.get("designs", {}).items()
+                    if not a.designs or e["id"] in a.designs]
+            for key in keys:
+                recheck_design(doc, path, key, checkpoint=a.checkpoint)
+                table.write_text(markdown(doc), encoding="utf-8")
+        print(f"wrote {path} and {table}")
+        return 0
     if a.table_only or a.resummarise:
         table.write_text(markdown(load(path)), encoding="utf-8")
         print(f"wrote {table}")

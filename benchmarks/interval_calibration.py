@@ -10,7 +10,8 @@ fires in at least half of its replications:
 * fewer than 10 % of the cells whose coverage is 0.93 or above (``false_alarms``).
 
 Besides the shipped rule (the ``flagged`` column each replication recorded), candidate rules
-add one recorded signal to it: the correction's shift (``correction_shift`` above a limit) or
+add the unseen variance of the CCP correction to the previous rule at several limits, or add
+one recorded signal to the shipped rule: the correction's shift (``correction_shift`` above a limit) or
 heavy-tailed unit scores (``effective_units`` below a limit). They are computed from the stored
 signals, so trying a limit costs no estimation. A rule is chosen on the tuning designs only;
 the evaluation designs judge it.
@@ -46,8 +47,17 @@ Rule = Callable[[pd.DataFrame], pd.Series]
 
 
 def rules() -> dict[str, Rule]:
-    """The shipped rule and the candidates, each mapping replication rows to a bool Series."""
-    out: dict[str, Rule] = {"shipped": lambda r: r["flagged"]}
+    """The shipped rule and the candidates, each mapping replication rows to a bool Series.
+
+    ``previous`` is the rule before the unseen-variance signal (the flag each replication
+    recorded before ``design_family.py --recheck``); the ``unseen_variance`` candidates add
+    that signal to it at several limits, so that its limit is chosen here.
+    """
+    out: dict[str, Rule] = {"shipped": lambda r: r["flagged"],
+                            "previous": lambda r: r["flagged_previous"]}
+    for u in (0.5, 1.0, 2.0, 4.0):
+        out[f"previous or unseen_variance > {u:g}"] = (
+            lambda r, u=u: r["flagged_previous"] | (r["unseen_variance"] > u))
     for s in (2.0, 3.0, 4.0):
         out[f"shipped or correction_shift > {s:g}"] = (
             lambda r, s=s: r["flagged"] | (r["correction_shift"] > s))
@@ -71,9 +81,14 @@ def debiased_rows(doc: dict[str, Any], role: str | None) -> pd.DataFrame:
     if not frames:
         raise SystemExit("interval_calibration.py: no stored design matches.")
     rows = pd.concat(frames, ignore_index=True)
-    for col in ("linearity_gap", "correction_shift", "effective_units"):
+    for col in ("linearity_gap", "correction_shift", "effective_units", "unseen_variance"):
+        if col not in rows:
+            rows[col] = float("nan")
         rows[col] = pd.to_numeric(rows[col], errors="coerce")
     rows["flagged"] = rows["flagged"].fillna(False).astype(bool)
+    if "flagged_previous" not in rows:
+        rows["flagged_previous"] = rows["flagged"]
+    rows["flagged_previous"] = rows["flagged_previous"].fillna(rows["flagged"]).astype(bool)
     rows["covers"] = rows["covers"].astype(bool)
     return rows
 

@@ -205,6 +205,10 @@ OPTIONS: Mapping[str, Option] = {
                "False)"),
         Option("debias", "boolean", True,
                "add the first-stage correction (False gives the plug-in estimator)"),
+        Option("correction_weights", "choice", "solution",
+               "where the correction's weights are evaluated: 'solution' solves "
+               "sum m(theta) + phi(theta) = 0, 'plugin' fixes them at the plug-in solution",
+               choices=("solution", "plugin")),
     )
 }
 

@@ -29,7 +29,7 @@ from .model import BoundModel, Model
 from .moments import build_moment_system
 from .pieces import MomentPieces
 from .nuisance import Nuisances, clip_probabilities, crossfit_nuisances, refit_anchor_target
-from .interval_checks import identification_strength, interval_check
+from .interval_checks import identification_strength, interval_check, unseen_variance
 from .results import Results, RowAccounting
 from .solver import solve_orthogonal, solve_plugin
 
@@ -123,6 +123,7 @@ def estimate(
     moments: str | None = None,
     nuisances: Nuisances | None = None,
     model_ccp_steps: int = 0,
+    correction_weights: str = "solution",
     backend: Any = None,
     n_jobs: int | None = None,
 ) -> Results:
@@ -182,6 +183,17 @@ def estimate(
         CCPs the final moment uses, while ``diagnostics`` and ``plugin_params`` describe the
         learner's first stage. The refits' seeds come from the run's one generator, so with
         ``splits`` > 1 the later splits' folds differ from those of a run without steps.
+    correction_weights : {"solution", "plugin"}, default="solution"
+        Where the corrections' weights :math:`A_a - \\bar A(\\theta)` (and :math:`g(\\theta)`)
+        are evaluated. ``"solution"`` solves :math:`\\sum_i m_i(\\theta) + \\phi_i(\\theta) = 0`.
+        ``"plugin"`` fixes them at the plug-in solution :math:`\\tilde\\theta` and solves
+        :math:`\\sum_i m_i(\\theta) + \\phi_i(\\tilde\\theta) = 0`; the two are first-order
+        equivalent because :math:`E[\\partial\\phi/\\partial\\theta] = 0` at the truth and
+        :math:`\\tilde\\theta` is consistent (the one-step argument of Newey & McFadden 1994,
+        §3.4). With fixed weights the estimator cannot move :math:`\\theta` to shrink the
+        weight of a rare large correction term, which it does with ``"solution"`` when the
+        anchor choice is rare at some next states (measured in ``docs/validation.md``). The
+        covariance uses the same fixed corrections.
     backend : {"sequential", "joblib", "dask"}, distributed.Client or str, optional
         Where the cross-fitting's learner fits run: in this process, in ``n_jobs`` joblib
         worker processes, or on a Dask cluster (a ``distributed.Client``, a scheduler address
@@ -234,6 +246,8 @@ def estimate(
     bound = model.bind(panel)
     moments = _choose_moments(bound, moments, debias)
     _check_model_ccp_steps(model_ccp_steps, moments=moments, nuisances=nuisances, bound=bound)
+    check_option("correction_weights", correction_weights)
+    fixed = correction_weights == "plugin"
     rows, corrected, accounting = account_rows(bound)
     if rows.size < panel.n_rows:
         bound._check_identified(rows)
@@ -256,6 +270,7 @@ def estimate(
     routes: list[str] = []
     route_notes: list[str] = []
     one_steps: list[np.ndarray] = []
+    unseen: list[np.ndarray] = []
     identification: np.ndarray | None = None
     n_fits = 0
     n_clipped_moment_rows = 0
@@ -306,6 +321,8 @@ def estimate(
             )
             n_fits += int(folds) * int(plan.robust.sum())
         if debias and not static:
+            if fixed:
+                system = replace(system, correction_theta=np.array(theta0, dtype=np.float64))
             try:
                 theta, info = solve_orthogonal(system, theta0)
             except EstimationError as exc:
@@ -324,6 +341,8 @@ def estimate(
             system = build_moment_system(bound, nuis, rows, corrected)
             theta, info = solve_plugin(system)  # plugin_params keep the learner's plug-in
             if debias:
+                if fixed:
+                    system = replace(system, correction_theta=np.array(theta, dtype=np.float64))
                 theta, info = solve_orthogonal(system, theta)
             iterations += info.iterations
         routes.append(info.route if debias and not static else "plug-in")
@@ -349,6 +368,8 @@ def estimate(
             hit_rows = nuis.clipped_rows[np.where(nxt >= 0, nxt, rows)]
             n_clipped_moment_rows += int(hit_rows.sum())
         comps = system.components(theta, debias=debias and not static)
+        if debias and not static:
+            unseen.append(unseen_variance(system, theta))
         ce = estimate_covariance(
             cov,
             jacobian=system.jacobian(theta),
@@ -404,6 +425,7 @@ def estimate(
             params, estimates=np.vstack(thetas), plugins=np.vstack(plugins),
             one_steps=np.vstack(one_steps), std_errors=se, influence=infl.to_numpy(),
             identification=identification, routes=routes, cov=V,
+            unseen=np.vstack(unseen) if len(unseen) == len(thetas) else None,
         )
         which = (f"first stage {pair.name}" if nuisances is None
                  else "nuisances supplied by the caller")
@@ -454,6 +476,7 @@ def estimate(
         plugin_params=pd.Series(np.median(np.vstack(plugins), axis=0), index=index, name="plug-in"),
         nuisance_source=source,
         model_ccp_steps=int(model_ccp_steps) if not static and nuisances is None else 0,
+        correction_weights=str(correction_weights),
         moments=moments,
         diagnostics=diagnostics,
         fallback=dict(plan.reasons) if plan is not None else {},

@@ -31,6 +31,28 @@ persistent covariate) enters :math:`X` through about :math:`(1-\beta)` of its si
 :math:`\iota_k \approx (1-\beta)^2`; its interval then rests on a small signal and the
 parameter is flagged as weakly identified when :math:`\iota_k <` ``WEAK_LIMIT``.
 
+``unseen_variance`` reads the CCP correction
+:math:`\phi_P = \beta(A_a - \bar A)(1\{a_{t+1} = R\} - P_R(x_{t+1}))/P_R(x_{t+1})`. Given the
+next state its square has expectation :math:`\beta^2(A_a-\bar A)^2(1-P_R)/P_R`, which is large
+where the first stage puts the anchor choice at a small probability; the realised squares
+reach that expectation only through the rare rows where the anchor is then chosen. When the
+sample has too few of them, the clustered variance misses most of the correction's spread and
+the estimate itself is off by the missing rare terms. In units of the parameter
+(:math:`o_t = \beta G^{-1}(A_a - \bar A)_t`),
+
+.. math::
+
+    U_k = \frac{\sum_t o_{tk}^2 (1 - \hat P_{R,t+1})/\hat P_{R,t+1}
+                 - \sum_g \bigl(\sum_{t \in g} o_{tk}\,\mathrm{score}_t\bigr)^2}
+               {\mathrm{se}_k^2},
+
+the variance the correction should have, less the variance it shows, over the reported
+variance (median over splits). Cross-unit and within-unit cross terms have expectation zero
+(the scores are martingale differences), so :math:`U_k` is about zero when the sample has
+seen the anchor choices its probabilities predict; it is large when the interval omits
+variance the data have not revealed (measured on the design family: the interaction slopes
+whose intervals under-cover).
+
 Two more describe the unit scores behind the clustered variance: ``top_unit_share``, the
 largest unit's share of the variance (:math:`\max_g s_{gk}^2 / \sum_h s_{hk}^2`), and
 ``effective_units``, :math:`(\sum_g s_{gk}^2)^2 / \sum_g s_{gk}^4`, the number of equally
@@ -40,7 +62,7 @@ Monte Carlo (the e-bike headline cell covers 0.965-0.970 with its top 20 units c
 of the variance).
 
 A parameter is *flagged* when ``linearity_gap > GAP_LIMIT``, ``split_spread >
-SPREAD_LIMIT`` or ``identification < WEAK_LIMIT``, or when it correlates with a weakly
+SPREAD_LIMIT``, ``unseen_variance > UNSEEN_LIMIT`` or ``identification < WEAK_LIMIT``, or when it correlates with a weakly
 identified parameter by at least ``JOINT_LIMIT``; every parameter is flagged when a split's
 debiased moment had no root near the plug-in solution, so that the one-step estimator was
 used (``route == "one_step"``, :func:`orthoccp.solver.solve_orthogonal`). The limits are provisional: ``benchmarks/design_family.py`` records every
@@ -56,14 +78,21 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-__all__ = ["IntervalCheck", "interval_check", "identification_strength", "GAP_LIMIT",
-           "SPREAD_LIMIT", "WEAK_LIMIT", "JOINT_LIMIT", "SIGNALS"]
+from ._arrays import group_sums
+from .moments import MomentSystem
+
+__all__ = ["IntervalCheck", "interval_check", "identification_strength", "unseen_variance",
+           "GAP_LIMIT", "SPREAD_LIMIT", "UNSEEN_LIMIT", "WEAK_LIMIT", "JOINT_LIMIT", "SIGNALS"]
 
 GAP_LIMIT = 2.0
 """Flag when the solution lies more than this many s.e. from the one-step estimate."""
 
 SPREAD_LIMIT = 0.5
 """Flag when the per-split estimates spread by more than this many s.e. (``splits`` > 1)."""
+
+UNSEEN_LIMIT = 1.0
+"""Flag when the correction's unseen variance exceeds the reported variance (the interval
+would be at least 1.41 times as wide with it)."""
 
 WEAK_LIMIT = 0.1
 r"""Flag as weakly identified when less than this share of the information survives (a
@@ -76,8 +105,8 @@ JOINT_LIMIT = 0.3
 """A parameter whose estimate correlates with a weakly identified one by at least this much
 (in absolute value) is flagged too: it moves with it."""
 
-SIGNALS = ("linearity_gap", "correction_shift", "split_spread", "identification",
-           "top_unit_share", "effective_units")
+SIGNALS = ("linearity_gap", "correction_shift", "split_spread", "unseen_variance",
+           "identification", "top_unit_share", "effective_units")
 """Columns of :attr:`IntervalCheck.table` besides ``flagged`` and ``reason``."""
 
 
@@ -136,6 +165,7 @@ def interval_check(
     identification: np.ndarray | None = None,
     routes: Sequence[str] = (),
     cov: np.ndarray | None = None,
+    unseen: np.ndarray | None = None,
 ) -> IntervalCheck:
     """Compute the interval checks of one estimate.
 
@@ -157,6 +187,9 @@ def interval_check(
     cov : numpy.ndarray, optional
         (p, p) covariance of the estimates, to flag parameters that move with a weakly
         identified one (correlation of at least :data:`JOINT_LIMIT` in absolute value).
+    unseen : numpy.ndarray, optional
+        (S, p) per split, :func:`unseen_variance` (in squared units of the parameter); the
+        signal is its median over the reported variance. NaN when not given.
 
     Returns
     -------
@@ -172,6 +205,8 @@ def interval_check(
         total = sq.sum(axis=0)
         top = sq.max(axis=0) / total
         n_eff = total**2 / (sq**2).sum(axis=0)
+        unseen_share = (np.full(se.shape, np.nan) if unseen is None
+                        else np.median(np.asarray(unseen, dtype=np.float64), axis=0) / se**2)
     ident = (np.full(se.shape, np.nan) if identification is None
              else np.asarray(identification, dtype=np.float64))
     n_one_step = sum(r == "one_step" for r in routes)
@@ -205,6 +240,14 @@ def interval_check(
                 f"the solution lies {gap[k]:.2f} s.e. from the one-step estimate (more than "
                 f"{GAP_LIMIT:g}): the moment is far from linear over the interval"
             )
+        if np.isfinite(unseen_share[k]) and unseen_share[k] > UNSEEN_LIMIT:
+            reasons.append(
+                f"rests on anchor choices the first stage expects but the sample has not "
+                f"shown: had they occurred, its CCP correction would add {unseen_share[k]:.1f} "
+                f"times the reported variance (more than {UNSEEN_LIMIT:g}), so the interval "
+                f"is too narrow (with that variance it would be "
+                f"{np.sqrt(1.0 + unseen_share[k]):.1f} times as wide)"
+            )
         if np.isfinite(spread[k]) and spread[k] > SPREAD_LIMIT:
             reasons.append(
                 f"the fold splits' estimates spread by {spread[k]:.2f} s.e. (more than "
@@ -213,11 +256,34 @@ def interval_check(
         rows.append({
             "parameter": str(name), "linearity_gap": float(gap[k]),
             "correction_shift": float(shift[k]), "split_spread": float(spread[k]),
+            "unseen_variance": float(unseen_share[k]),
             "identification": float(ident[k]),
             "top_unit_share": float(top[k]), "effective_units": float(n_eff[k]),
             "flagged": bool(reasons), "reason": "; ".join(reasons),
         })
     return IntervalCheck(pd.DataFrame(rows).set_index("parameter"))
+
+
+def unseen_variance(system: MomentSystem, theta: np.ndarray) -> np.ndarray:
+    r"""(p,) the CCP correction's expected minus realised variance, in squared parameter units.
+
+    :math:`\sum_t o_{tk}^2 (1-\hat P_{R,t+1})/\hat P_{R,t+1} - \sum_g (\sum_{t\in g}
+    o_{tk}\,\mathrm{score}_t)^2` with :math:`o_t = \beta G^{-1}(A_a - \bar A)_t` and
+    :math:`\mathrm{score}_t = (1\{a_{t+1} = R\} - \hat P_{R,t+1})/\hat P_{R,t+1}` (the module
+    docstring gives the reading). Zero for a static model or a system without next-row
+    probabilities.
+    """
+    p = system.n_params
+    if system.discount == 0.0 or system.next_anchor_p is None:
+        return np.zeros(p)
+    own = system.correction_weight(theta)
+    o = system.discount * np.linalg.solve(system.jacobian(theta), own.T).T
+    P = system.next_anchor_p
+    use = system.corrected
+    expected = ((o[use] ** 2) * ((1.0 - P[use]) / P[use])[:, None]).sum(axis=0)
+    codes, units = np.unique(system.units, return_inverse=True)
+    realised = (group_sums(units, o * system.ccp_score[:, None], codes.size) ** 2).sum(axis=0)
+    return np.asarray(expected - realised, dtype=np.float64)
 
 
 def _information(A: np.ndarray, lam: np.ndarray) -> np.ndarray:

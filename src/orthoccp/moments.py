@@ -75,6 +75,15 @@ class MomentSystem:
     anchor_branch : numpy.ndarray or None
         (p,) booleans: whether the correction is applied on rows that chose the anchor.
         False for moments orthogonal to the post-renewal value; None means all True.
+    next_anchor_p : numpy.ndarray or None
+        (n,) the first stage's :math:`P_R(x_{t+1})` where the correction applies (1 elsewhere),
+        for :func:`orthoccp.interval_checks.unseen_variance`.
+    correction_theta : numpy.ndarray or None
+        Where the corrections' weights :math:`A_a - \\bar A(\\theta)` and :math:`g(\\theta)` are
+        evaluated: None at the :math:`\\theta` given (the corrected moment
+        :math:`m(\\theta) + \\phi(\\theta)`), or a fixed preliminary value :math:`\\tilde\\theta`
+        (the plug-in solution; the moment :math:`m(\\theta) + \\phi(\\tilde\\theta)`, whose
+        corrections are constants; ``correction_weights="plugin"`` of :func:`orthoccp.estimate`).
     """
 
     X: np.ndarray
@@ -89,6 +98,8 @@ class MomentSystem:
     anchor: int
     instruments: np.ndarray | None = None
     anchor_branch: np.ndarray | None = None
+    next_anchor_p: np.ndarray | None = None
+    correction_theta: np.ndarray | None = None
 
     @property
     def n_rows(self) -> int:
@@ -140,16 +151,26 @@ class MomentSystem:
         CW = CX if self.instruments is None else self._centre(lam, self.instruments)
         return -np.einsum("nj,njp,njq->pq", lam, CW, CX)
 
+    def correction_weight(self, theta: np.ndarray) -> np.ndarray:
+        r"""(n, p) :math:`A_a - \bar A` of each row's own choice, the weight of both
+        corrections; zero on anchor rows for parameters without an anchor-branch correction.
+        Evaluated at :attr:`correction_theta` when that is set."""
+        if self.correction_theta is not None:
+            theta = self.correction_theta
+        lam = self.probabilities(theta)
+        own = self._centre(lam, self.W)[np.arange(self.n_rows), self.chosen]
+        if self.anchor_branch is not None and not self.anchor_branch.all():
+            own[np.ix_(self.chosen == self.anchor, ~self.anchor_branch)] = 0.0
+        return own
+
     def corrections(self, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Correction terms :math:`(\\phi_\\mu, \\phi_P)` per row, each (n, p)."""
         if self.discount == 0.0:
             z = np.zeros((self.n_rows, self.n_params))
             return z, z.copy()
-        lam = self.probabilities(theta)
-        own = self._centre(lam, self.W)[np.arange(self.n_rows), self.chosen]  # A_a - Abar
-        if self.anchor_branch is not None and not self.anchor_branch.all():
-            own = own.copy()
-            own[np.ix_(self.chosen == self.anchor, ~self.anchor_branch)] = 0.0
+        own = self.correction_weight(theta)
+        if self.correction_theta is not None:
+            theta = self.correction_theta
         g = self.discount * np.concatenate([theta[self.zR_params], [-1.0]])
         phi_mu = -own * (self.target_resid @ g)[:, None]
         phi_p = self.discount * own * self.ccp_score[:, None]
@@ -195,6 +216,7 @@ def build_moment_system(
     d = bound.n_targets
     resid = np.zeros((n, d))
     ccp_score = np.zeros(n)
+    next_p = np.ones(n)
     if beta > 0:
         mu = nuisances.mu[rows]
         mu_R = mu[:, R, :] if renewal else np.zeros((n, d))
@@ -217,6 +239,7 @@ def build_moment_system(
         resid[use] = q_next - mu[use, chosen[use], :]
         P_next = nuisances.ccp[nx, R]
         ccp_score[use] = ((panel.choice_codes[nx] == R).astype(np.float64) - P_next) / P_next
+        next_p[use] = P_next
         corrected = use
     X[:, R, :] = 0.0
     if not np.all(np.isfinite(X)) or not np.all(np.isfinite(offset)):
@@ -232,4 +255,5 @@ def build_moment_system(
         zR_params=zR,
         discount=beta,
         anchor=R,
+        next_anchor_p=next_p,
     )

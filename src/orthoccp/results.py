@@ -232,6 +232,8 @@ class Results:
     model_ccp_steps : int
         Model-implied CCP steps after the cross-fitted first stage (0: none); the summary
         then labels ``plugin_params`` as the learner's first stage.
+    correction_weights : {"solution", "plugin"}
+        Where the corrections' weights were evaluated (:func:`orthoccp.estimate`).
     """
 
     params: pd.Series
@@ -262,6 +264,7 @@ class Results:
     nuisance_source: str = "cross-fitted"
     model_ccp_steps: int = 0
     moments: str = "standard"
+    correction_weights: str = "solution"
     diagnostics: Any = field(default=None, repr=False)
     fallback: dict[str, str] = field(default_factory=dict)
     solve_routes: tuple[str, ...] = ()
@@ -452,6 +455,8 @@ class Results:
                 lines.append(f"  {name}: {why}")
         elif self.debiased:
             lines.append("moments: standard (pseudo-likelihood score with the full correction)")
+        if self.debiased and self.correction_weights == "plugin":
+            lines.append("corrections: weights fixed at the plug-in solution")
         if self.split_spread is not None:
             lines.append(
                 f"fold splits: across {self.splits} splits the estimates spread by "
@@ -557,6 +562,7 @@ class Results:
             "level": level,
             "debiased": self.debiased,
             "moments": self.moments,
+            "correction_weights": self.correction_weights,
             "moments_fallback": dict(self.fallback),
             "solution": {"routes": list(self.solve_routes), "notes": list(self.solve_notes),
                          "summary": self.solution},
@@ -711,6 +717,7 @@ class Results:
             nuisance_source=str(doc.get("nuisance_source", "")),
             model_ccp_steps=int(doc.get("model_ccp_steps", 0)),
             moments=str(doc.get("moments", "standard")),
+            correction_weights=str(doc.get("correction_weights", "solution")),
             fallback={str(k): str(v) for k, v in doc.get("moments_fallback", {}).items()},
             solve_routes=tuple(solution.get("routes", ())),
             solve_notes=tuple(solution.get("notes", ())),

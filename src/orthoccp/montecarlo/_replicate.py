@@ -184,6 +184,7 @@ def run_replication(settings: MonteCarloSettings, rep: int) -> list[dict[str, An
                     "linearity_gap": _signal(checks, param, "linearity_gap"),
                     "correction_shift": _signal(checks, param, "correction_shift"),
                     "effective_units": _signal(checks, param, "effective_units"),
+                    "unseen_variance": _signal(checks, param, "unseen_variance"),
                     "flagged": bool(checks.get(str(param), {}).get("flagged", False)),
                 }
             )

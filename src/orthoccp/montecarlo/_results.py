@@ -30,7 +30,7 @@ from ._settings import (
 def _replications_frame(records: Iterable[Mapping[str, Any]]) -> pd.DataFrame:
     frame = pd.DataFrame(list(records), columns=list(REPLICATION_COLUMNS))
     for col in ("estimate", "std_error", "ci_lower", "ci_upper", "ci_length", "truth", "seconds",
-                "linearity_gap", "correction_shift", "effective_units"):
+                "linearity_gap", "correction_shift", "effective_units", "unseen_variance"):
         frame[col] = pd.to_numeric(frame[col], errors="coerce").astype(float)
     for col in ("rep", "sim_seed", "est_seed", "warnings"):
         frame[col] = frame[col].astype(np.int64)

@@ -45,6 +45,7 @@ REPLICATION_COLUMNS: tuple[str, ...] = (
     "linearity_gap",
     "correction_shift",
     "effective_units",
+    "unseen_variance",
     "flagged",
 )
 """Columns of :attr:`MonteCarloResults.replications`."""

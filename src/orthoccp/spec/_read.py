@@ -38,7 +38,7 @@ _DATA_KEYS = ("unit", "period", "choice", "states", "path", "missing")
 _MODEL_KEYS = ("kind", "anchor", "discount", "persistent")
 _FIRST_STAGE_KEYS = ("learner", "regressor", "folds", "seed", "splits", "scheme", "clip",
                      "model_ccp_steps")
-_INFERENCE_KEYS = ("cov", "small_sample", "debias", "moments")
+_INFERENCE_KEYS = ("cov", "small_sample", "debias", "moments", "correction_weights")
 _ESTIMATOR_KEYS = (
     "method", "values", "transitions", "smoothing", "reset_choices", "n_states", "steps",
     "max_iterations", "tol", "n_paths", "horizon", "initial_ccp", "sieve_degree",
@@ -47,7 +47,7 @@ _ESTIMATOR_KEYS = (
 _ORTHOGONAL_ONLY = (
     "first_stage.learner", "first_stage.regressor", "first_stage.folds", "first_stage.splits",
     "first_stage.scheme", "first_stage.clip", "first_stage.model_ccp_steps", "inference.debias",
-    "inference.moments", "model.persistent",
+    "inference.moments", "inference.correction_weights", "model.persistent",
 )
 
 
@@ -200,6 +200,8 @@ def parse_spec(
         small_sample=inf("small_sample", lambda k, v: chk.option(k, "small_sample", v)),
         debias=inf("debias", lambda k, v: chk.option(k, "debias", v)),
         moments=inf("moments", lambda k, v: chk.choice(k, v, MOMENTS)),
+        correction_weights=inf("correction_weights",
+                               lambda k, v: chk.option(k, "correction_weights", v)),
     )
 
     if estimator.discrete:

@@ -124,12 +124,16 @@ class InferenceSpec:
     moments : {"standard", "renewal_robust"} or None
         Moment type; by default :func:`orthoccp.estimate` chooses (renewal-robust for
         debiased renewal models that declare persistent states).
+    correction_weights : {"solution", "plugin"} or None
+        Where the corrections' weights are evaluated (default ``"solution"``; see
+        :func:`orthoccp.estimate`).
     """
 
     cov: str | None = None
     small_sample: bool | None = None
     debias: bool | None = None
     moments: str | None = None
+    correction_weights: str | None = None
 
 
 @dataclass(frozen=True)
@@ -275,7 +279,8 @@ class Spec:
         -------
         dict
             The options the spec sets, among ``learner, regressor, folds, seed, splits,
-            scheme, clip, model_ccp_steps, cov, small_sample, debias, moments``; options it
+            scheme, clip, model_ccp_steps, cov, small_sample, debias, moments,
+            correction_weights``; options it
             leaves out are
             not passed, so the estimator's defaults apply.
         """
