@@ -694,13 +694,69 @@ def test_interval_calibration_table_matches_its_json() -> None:
     assert report["role"] == "tuning"
     text = _page("validation.md")
     rows = _tables(text[text.index("**How well the checks separate the breaking cells**"):])[0]
-    assert len(rows) == 3
+    assert len(rows) >= 3 and {"shipped", "previous"} <= {r["rule"] for r in rows}
     for row in rows:
         s = report["rules"][row["rule"]]["score"]
         assert row["cells below 0.90 flagged"] == f"{s['detected']} of {s['low_cells']}"
         assert row["cells at 0.93 or above flagged"] == f"{s['false_alarms']} of {s['high_cells']}"
         _assert_printed(row["pooled coverage of unflagged cells"], s["unflagged_pooled_coverage"],
                         row["rule"])
+
+
+_DIAGNOSIS_LABELS = {"linearised at the truth": "linearised_at_truth",
+                     "solution of Σψ = 0": "solved", "one-step": "one_step"}
+
+
+def test_interaction_diagnosis_table_matches_its_json() -> None:
+    """The exact-nuisance diagnosis of the interaction slope is
+    benchmarks/results/interaction_diagnosis_<design>.json's."""
+    rows = _validation_table("### Why the interaction slopes under-cover", 0)
+    assert {r["design"] for r in rows} == {"F24", "F20"}
+    for row in rows:
+        doc = _json(f"interaction_diagnosis_{row['design']}.json")
+        assert doc["reps"] == 40
+        c = doc["summary"][_DIAGNOSIS_LABELS[row["estimator"]]][row["parameter"]]
+        where = f"{row['design']} {row['estimator']}"
+        _assert_printed(row["SD / mean s.e."], c["sd_over_mean_se"], where)
+        _assert_printed(row["coverage"], c["coverage"], where)
+        _assert_printed(row["correlation of error and s.e."], c["corr_abs_error_se"], where)
+
+
+def test_unseen_variance_table_matches_the_family_json() -> None:
+    """The unseen-variance check's cells are the rechecked replications of
+    benchmarks/results/design_family.json: flags before and after, and the coverage of the
+    interval widened by sqrt(1 + max(0, U))."""
+    designs = {e["id"]: e for e in _json("design_family.json")["designs"].values()}
+    rows = _validation_table("### Why the interaction slopes under-cover", 1)
+    assert len(rows) >= 4
+    for row in rows:
+        reps = [r for r in designs[row["design"]]["mc"]["replications"]
+                if r["estimator"] == "debiased" and r["parameter"] == row["parameter"]]
+        where = f"{row['design']} {row['parameter']}"
+        assert all(r.get("unseen_variance") is not None for r in reps), where
+        assert int(row["reps"]) == len(reps), where
+        _assert_printed(row["coverage"], sum(r["covers"] for r in reps) / len(reps), where)
+        assert int(row["flagged before"]) == sum(r["flagged_previous"] for r in reps), where
+        assert int(row["flagged now"]) == sum(r["flagged"] for r in reps), where
+        widened = [abs(r["estimate"] - r["truth"]) <= 1.959964 * r["std_error"]
+                   * (1 + max(0.0, r["unseen_variance"])) ** 0.5 for r in reps]
+        _assert_printed(row["coverage, widened"], sum(widened) / len(reps), where)
+
+
+def test_correction_weights_table_matches_its_json() -> None:
+    """The paired runs of the two correction weightings are
+    benchmarks/results/correction_weights_<design>.json's."""
+    rows = _validation_table("### Why the interaction slopes under-cover", 2)
+    assert {r["correction weights"] for r in rows} == {"solution", "plugin"}
+    for row in rows:
+        doc = _json(f"correction_weights_{row['design']}.json")
+        c = doc["summary"][row["correction weights"]][row["parameter"]]
+        where = f"{row['design']} {row['parameter']} {row['correction weights']}"
+        assert int(row["reps"]) == doc["reps"], where
+        _assert_printed(row["coverage"], c["coverage"], where)
+        _assert_printed(row["SD / mean s.e."], c["sd_over_mean_se"], where)
+        _assert_printed(row["RMSE"], c["rmse"], where)
+        _assert_printed(row["flagged"], c["flag_rate"], where)
 
 
 def test_counterfactual_accuracy_table_matches_its_json() -> None:
