@@ -224,6 +224,9 @@ def recheck_design(doc: dict[str, Any], path: Path, key: str, *, checkpoint: int
     The estimate is deterministic in the replication's seeds, so it must reproduce the stored
     one (to 1e-8 relative); the run stops otherwise. Replications that already hold every
     signal are skipped, so the recheck resumes. Returns the number of replications rerun.
+    Replications stored before the named random streams (orthoccp 0.1 after fb751a4 changed
+    every fold split and learner seed) do not reproduce, so the recheck stops on them: run
+    the design afresh instead.
     """
     from dataclasses import replace
 

@@ -23,6 +23,7 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import PolynomialFeatures
 
 import orthoccp as oc
+from orthoccp._random import stream
 from orthoccp.cell import CellFrequencyClassifier, CellFrequencyRegressor
 from orthoccp.custom import HansenJ, Nuisance, check_orthogonality, estimate_moments
 from orthoccp.folds import unit_folds
@@ -55,8 +56,9 @@ def ate_moment(theta, rows, nu):  # type: ignore[no-untyped-def]
 
 
 def _aipw_closed_form(panel: oc.Panel, seed: int) -> tuple[float, float]:
-    """Cross-fitted AIPW with cell means and cell propensities (RRZ 1994; CCDDHNR 2018 §5.1)."""
-    folds = unit_folds(panel.unit_codes, 5, np.random.default_rng(seed), unit_keys=panel.unit_keys)
+    """Cross-fitted AIPW with cell means and cell propensities (RRZ 1994; CCDDHNR 2018 §5.1),
+    on the fold split ``estimate_moments`` draws from ``seed`` (its ``folds`` stream)."""
+    folds = unit_folds(panel.unit_codes, 5, stream(seed, "folds"), unit_keys=panel.unit_keys)
     fr = panel.frame
     X, D, Y = fr["x"].to_numpy(), fr["d"].to_numpy(), fr["y"].to_numpy()
     psi = np.empty(len(fr))

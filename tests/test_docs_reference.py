@@ -786,10 +786,14 @@ def test_outside_counterfactual_paragraph_matches_its_json() -> None:
         assert value in text, value
 
 
-def test_paired_rerun_table_matches_its_json() -> None:
-    """The headline cells rerun on the same panels: benchmarks/results/paired_rerun.json."""
-    doc = _json("paired_rerun.json")
-    rows = _tables(_section(_page("validation.md"), "### The headline cells after the canonical fold key"))[0]
+@pytest.mark.parametrize(("name", "heading"), [
+    ("paired_rerun.json", "### The headline cells after the canonical fold key"),
+    ("paired_rerun_streams.json", "### The headline cells after the named random streams"),
+])
+def test_paired_rerun_table_matches_its_json(name: str, heading: str) -> None:
+    """The headline cells rerun on the same panels: benchmarks/results/paired_rerun*.json."""
+    doc = _json(name)
+    rows = _tables(_section(_page("validation.md"), heading))[0]
     expected = {(k.replace("|", ", "), p["parameter"]): p for k, c in doc["cells"].items()
                 for p in c["parameters"]}
     assert len(rows) == len(expected) == 7

@@ -201,6 +201,7 @@ def test_model_ccp_steps_count_the_clipping_of_the_ccps_they_use() -> None:
     # solve's estimate (the estimate without steps, same seed) and the learner's nuisances,
     # clipped to [clip, 1 - clip]. The reported counts must be that clipping's, rebuilt here
     # from the same seed, entry by entry (not the learner's, which differ).
+    from orthoccp._random import stream
     from orthoccp.estimate import model_ccp_clipped
     from orthoccp.folds import unit_folds
     from orthoccp.learners import resolve_learners
@@ -214,9 +215,9 @@ def test_model_ccp_steps_count_the_clipping_of_the_ccps_they_use() -> None:
     with pytest.warns(oc.OrthoCCPWarning, match=r"moment rows \(more than 1%\) use a probability"):
         res = oc.estimate(panel, model, model_ccp_steps=1, **opts)
     bound = model.bind(panel)
-    rng = np.random.default_rng(3)
-    folds = unit_folds(panel.unit_codes, 3, rng, unit_keys=panel.unit_keys)
-    nuis = crossfit_nuisances(bound, resolve_learners("logit"), folds, rng, clip=0.02)
+    folds = unit_folds(panel.unit_codes, 3, stream(3, "folds"), unit_keys=panel.unit_keys)
+    nuis = crossfit_nuisances(bound, resolve_learners("logit"), folds, stream(3, "first_stage"),
+                              clip=0.02)
     assert nuis.clipped == base.clipped  # the rebuild is the estimate's first stage
     _, hit = model_ccp_clipped(bound, nuis, base.params.to_numpy(), 0.02)
     expected = {c: int(hit[:, j].sum()) for j, c in enumerate(panel.choices)}

@@ -19,15 +19,16 @@ def ebike():  # type: ignore[no-untyped-def]
     return sim, panel
 
 
+@pytest.mark.parametrize("learner", ["logit", "lightgbm"])
 @pytest.mark.parametrize("moments", ["standard", "renewal_robust"])
-def test_estimate_on_the_exported_first_stage_is_estimate(ebike, moments: str) -> None:  # type: ignore[no-untyped-def]
+def test_estimate_on_the_exported_first_stage_is_estimate(ebike, moments: str, learner: str) -> None:  # type: ignore[no-untyped-def]
     """``estimate(nuisances=first_stage(...).nuisances)`` equals ``estimate(...)`` with the
     same options: the export is the estimator's own first stage, not a re-implementation.
-    (The logit first stage is deterministic given its rows, so the later projection fits of
-    the renewal-robust moments, seeded from the generator's later draws, agree as well.)"""
+    The renewal-robust projections draw their learner seeds from their own named stream
+    (``orthoccp._random``), so with a seed-dependent learner (LightGBM) they agree too."""
     sim, panel = ebike
     model = sim.model()
-    opts = dict(learner="logit", folds=3, seed=11, moments=moments)
+    opts = dict(learner=learner, folds=3, seed=11, moments=moments)
     fs = oc.first_stage(panel, model, **opts)
     assert fs.moments == moments
     direct = oc.estimate(panel, model, **opts)

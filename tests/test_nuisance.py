@@ -13,6 +13,7 @@ import pytest
 from sklearn.linear_model import LinearRegression, LogisticRegression
 
 import orthoccp as oc
+from orthoccp._random import stream
 from orthoccp.backends import resolve_backend
 from orthoccp.folds import unit_folds
 from orthoccp.learners import resolve_learners
@@ -76,10 +77,9 @@ def test_user_nuisance_and_built_in_first_stage_share_the_engine() -> None:
 
     sim = simulate("ebike", units=200, periods=6, seed=2)
     panel, model, _ = panel_and_model(sim)
-    rng = np.random.default_rng(0)
-    folds = unit_folds(panel.unit_codes, 3, rng, unit_keys=panel.unit_keys)
-    ref = crossfit_nuisances(model.bind(panel), resolve_learners("logit"), folds, rng,
-                             scheme="plain")
+    folds = unit_folds(panel.unit_codes, 3, stream(0, "folds"), unit_keys=panel.unit_keys)
+    ref = crossfit_nuisances(model.bind(panel), resolve_learners("logit"), folds,
+                             stream(0, "first_stage"), scheme="plain")
     R = panel.choices.index("swap")
     ccp = oc.Nuisance(name="p_swap", target=lambda r, nu: (r["action"] == "swap").astype(float),
                       features=list(sim.states), learner="logit", binary=True)

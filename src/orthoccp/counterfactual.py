@@ -89,6 +89,7 @@ from sklearn.neighbors import NearestNeighbors
 from ._errors import EstimationError, InputError, OrthoCCPWarning
 from ._labels import find_label, show_label, show_labels
 from ._numeric import central_jacobian
+from ._random import stream
 from .data import Panel
 from .dp import logsumexp
 from .folds import unit_folds
@@ -268,7 +269,7 @@ def fit_averager(
     R = bound.anchor_index
     renewal = bound.model.kind == "renewal"
     pcols = persistent_feature_columns(bound) if renewal else np.empty(0, dtype=np.int64)
-    fold = (unit_folds(panel.unit_codes, int(folds), np.random.default_rng(seed),
+    fold = (unit_folds(panel.unit_codes, int(folds), stream(seed, "folds"),
                        unit_keys=panel.unit_keys) if averager != "cells" else np.zeros(n, dtype=np.int64))
     targets = _next_targets(bound) if averager == "forest" else None
     K = int(fold.max()) + 1

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import copy
 import time
 import warnings
 from contextvars import ContextVar
@@ -23,6 +22,7 @@ from .diagnostics import Diagnostics, compute_diagnostics
 from .folds import unit_folds
 from .backends import FeatureRows, resolve_backend
 from .checks import warn_if_not_persistent, warn_if_not_reset
+from ._random import stream
 from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
 from .model import BoundModel, Model
@@ -144,7 +144,9 @@ def estimate(
     folds : int, default=5
         Cross-fitting folds K, by unit.
     seed : int, default=0
-        Drives every fold split and every learner's ``random_state``.
+        Drives every fold split and every learner's ``random_state``, through named streams
+        (:mod:`orthoccp._random`: folds, first stage, projections, model-implied steps, each
+        per split), so the folds and first stage do not depend on the other options.
     debias : bool, default=True
         ``False`` gives the plug-in estimator with conventional (first-stage-naive) errors.
     splits : int, default=1
@@ -181,8 +183,8 @@ def estimate(
         far more precise; see ``docs/validation.md``. The refits use plain cross-fitting
         whatever ``scheme`` is; the clipping counts and warning describe the model-implied
         CCPs the final moment uses, while ``diagnostics`` and ``plugin_params`` describe the
-        learner's first stage. The refits' seeds come from the run's one generator, so with
-        ``splits`` > 1 the later splits' folds differ from those of a run without steps.
+        learner's first stage. The refits' seeds come from their own stream, so the folds
+        and first stage equal those of a run without steps.
     correction_weights : {"solution", "plugin"}, default="solution"
         Where the corrections' weights :math:`A_a - \\bar A(\\theta)` (and :math:`g(\\theta)`)
         are evaluated. ``"solution"`` solves :math:`\\sum_i m_i(\\theta) + \\phi_i(\\theta) = 0`.
@@ -252,7 +254,6 @@ def estimate(
     if rows.size < panel.n_rows:
         bound._check_identified(rows)
     pair = resolve_learners(learner, regressor)
-    rng = np.random.default_rng(seed)
     params = bound.parameters
     p = len(params)
     static = not bound.has_next_stage
@@ -289,7 +290,7 @@ def estimate(
                 mu=np.full((panel.n_rows, J, bound.n_targets), np.nan),
             )
         else:
-            nuis = _cross_fitted(bound, pair, int(folds), rng, split=split, scheme=scheme,
+            nuis = _cross_fitted(bound, pair, int(folds), int(seed), split=split, scheme=scheme,
                                  clip=float(clip), anchor_features=fcols, backend=runner)
         timings["first_stage_s"] += time.perf_counter() - t0
         n_fits += nuis.n_fits
@@ -313,11 +314,12 @@ def estimate(
         if robust:
             assert plan is not None and fcols is not None
             row_folds = nuis.folds if nuis.folds is not None else unit_folds(
-                panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys
+                panel.unit_codes, int(folds), stream(seed, "folds", split=split),
+                unit_keys=panel.unit_keys,
             )
             system = renewal_robust_system(
                 system, theta0, FeatureRows(panel.features, rows, fcols), row_folds[rows], plan,
-                pair, rng, backend=runner,
+                pair, stream(seed, "projections", split=split), backend=runner,
             )
             n_fits += int(folds) * int(plan.robust.sum())
         if debias and not static:
@@ -331,10 +333,11 @@ def estimate(
                 _name_the_unidentified(exc, system, theta0, params)
                 raise
         iterations += info.iterations
+        step_rng = stream(seed, "ccp_steps", split=split)
         for _ in range(int(model_ccp_steps)):
             t2 = time.perf_counter()
             implied, hit = model_ccp_clipped(bound, nuis, theta, clip)
-            nuis = refit_anchor_target(bound, pair, nuis, implied, rng, backend=runner,
+            nuis = refit_anchor_target(bound, pair, nuis, implied, step_rng, backend=runner,
                                        clipped=hit)
             n_fits += nuis.n_fits
             timings["first_stage_s"] += time.perf_counter() - t2
@@ -496,34 +499,32 @@ _FIRST_STAGE_STORE: ContextVar[dict[Any, Any] | None] = ContextVar("first_stage_
 
 
 def _cross_fitted(
-    bound: BoundModel, pair: Any, folds: int, rng: np.random.Generator, *, split: int,
+    bound: BoundModel, pair: Any, folds: int, seed: int, *, split: int,
     scheme: str, clip: float, anchor_features: np.ndarray | None, backend: Any,
 ) -> Nuisances:
     """The split's folds and cross-fitted nuisances (CCPs, continuation regressions).
 
-    Neither depends on the discount factor. When a store is active (``_FIRST_STAGE_STORE``),
-    a first stage computed before from the same generator state and the same inputs is
-    reused, and the generator is moved to the state the fresh computation would leave, so
-    every later draw (projections, model-implied steps, the next split) is unchanged.
+    The folds come from the ``folds`` stream and the learners' seeds from the ``first_stage``
+    stream of ``seed`` (:mod:`orthoccp._random`), so they depend on ``seed`` and ``split``
+    only. Neither depends on the discount factor: when a store is active
+    (``_FIRST_STAGE_STORE``), a first stage computed before from the same inputs is reused.
     """
     store = _FIRST_STAGE_STORE.get()
     key = None
     if store is not None:
-        key = (id(bound.panel), pair.name, split, repr(rng.bit_generator.state), folds, scheme,
-               clip,
+        key = (id(bound.panel), pair.name, split, int(seed), folds, scheme, clip,
                None if anchor_features is None else tuple(np.asarray(anchor_features).tolist()),
                bound.has_next_stage)
         if key in store:
-            nuis, state = store[key]
-            rng.bit_generator.state = copy.deepcopy(state)
-            return replace(nuis, n_fits=0, timings={"ccp_s": 0.0, "continuation_s": 0.0})
-    fold_of_row = unit_folds(bound.panel.unit_codes, folds, rng, unit_keys=bound.panel.unit_keys)
+            return replace(store[key], n_fits=0, timings={"ccp_s": 0.0, "continuation_s": 0.0})
+    fold_of_row = unit_folds(bound.panel.unit_codes, folds, stream(seed, "folds", split=split),
+                             unit_keys=bound.panel.unit_keys)
     nuis = crossfit_nuisances(
-        bound, pair, fold_of_row, rng, scheme=scheme, clip=clip,  # type: ignore[arg-type]
-        anchor_features=anchor_features, backend=backend,
+        bound, pair, fold_of_row, stream(seed, "first_stage", split=split), scheme=scheme,
+        clip=clip, anchor_features=anchor_features, backend=backend,  # type: ignore[arg-type]
     )
     if store is not None:
-        store[key] = (nuis, copy.deepcopy(rng.bit_generator.state))
+        store[key] = nuis
     return nuis
 
 

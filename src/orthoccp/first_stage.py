@@ -196,8 +196,7 @@ def first_stage(
     moments = _choose_moments(bound, moments, True)
     fcols = persistent_feature_columns(bound) if moments == "renewal_robust" else None
     pair = resolve_learners(learner, regressor)
-    rng = np.random.default_rng(seed)
-    nuis = _cross_fitted(bound, pair, int(folds), rng, split=0, scheme=scheme, clip=float(clip),
+    nuis = _cross_fitted(bound, pair, int(folds), int(seed), split=0, scheme=scheme, clip=float(clip),
                          anchor_features=fcols, backend=runner)
     params = bound.parameters
     components = tuple(params[i] for i in bound.zR_params) + (

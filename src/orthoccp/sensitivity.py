@@ -172,10 +172,10 @@ def discount_sensitivity(
     -----
     Each grid point equals ``estimate(panel, dataclasses.replace(model, discount=b),
     **options)`` (tested to 1e-8): the cross-fitted first stage
-    :math:`(\hat P, \hat\mu)`, which does not involve β, is fitted once and reused, with the
-    random generator moved to the state a fresh run would leave, so the β-dependent steps
-    (the regressors :math:`X_j(\beta)` and offsets :math:`o_j(\beta)`, the corrections, the
-    renewal-robust projections and the model-implied steps) draw the seeds a fresh run would.
+    :math:`(\hat P, \hat\mu)`, which does not involve β, is fitted once and reused; the
+    β-dependent steps (the regressors :math:`X_j(\beta)` and offsets :math:`o_j(\beta)`, the
+    corrections, the renewal-robust projections and the model-implied steps) draw from their
+    own random streams of ``seed``, so they draw the seeds a fresh run would.
     A wrong β biases every parameter; the grid shows how far the conclusions move over a
     plausible range. β is not identified from choice data without exclusion restrictions
     (Magnac & Thesmar 2002), hence a sensitivity rather than an estimate.
@@ -202,7 +202,7 @@ def discount_sensitivity(
             fits.append(res.n_learner_fits)
     finally:
         _FIRST_STAGE_STORE.reset(token)
-    first = sum(nuis.n_fits for nuis, _ in store.values())
+    first = sum(nuis.n_fits for nuis in store.values())
     return DiscountSensitivity(
         results=results, assumed=float(model.discount), level=level, first_stage_fits=first,
         other_fits=int(sum(fits)) - first,

@@ -30,6 +30,7 @@ import pandas as pd
 
 from ._errors import InputError
 from ._progress import progress_bar
+from ._random import stream
 from .data import Panel
 from ._options import check_options
 from .estimate import _check_scheme, _choose_moments, estimate
@@ -140,8 +141,8 @@ def fold_stability(
     Costs two cross-fits of the first stage (the reference and the refit) and ``folds + 1``
     second-stage solves. The reference is :func:`~orthoccp.estimate` with the same options;
     with ``moments="standard"`` it reproduces that estimate exactly. The
-    refit's learner seeds come from ``numpy.random.default_rng([seed, 1])``, a stream
-    independent of ``seed``'s (NumPy ``SeedSequence``), so the result is reproducible.
+    refit's learner seeds come from the ``refit`` stream of ``seed`` (:mod:`orthoccp._random`),
+    independent of the first stage's, so the result is reproducible.
     """
     if options.get("debias", True) is not True:
         raise InputError("fold_stability checks the debiased estimate; drop debias=False.")
@@ -160,20 +161,20 @@ def fold_stability(
     pair = resolve_learners(learner, regressor)
     fcols = persistent_feature_columns(bound) if moments == "renewal_robust" else None
 
-    def fit(stream: np.random.Generator | None) -> tuple[np.ndarray, Nuisances]:
-        # The fold split and (without ``stream``) the learner seeds are drawn as in estimate.
-        rng = np.random.default_rng(seed)
-        fold_of_row = unit_folds(panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys)
+    def fit(learners: str) -> tuple[np.ndarray, Nuisances]:
+        # The fold split estimate draws, and the learner seeds of stream ``learners``.
+        fold_of_row = unit_folds(panel.unit_codes, int(folds), stream(seed, "folds"),
+                                 unit_keys=panel.unit_keys)
         return fold_of_row, crossfit_nuisances(
-            bound, pair, fold_of_row, stream if stream is not None else rng,
+            bound, pair, fold_of_row, stream(seed, learners),
             scheme=scheme, clip=float(clip), anchor_features=fcols,  # type: ignore[arg-type]
         )
 
     bar = progress_bar(int(folds) + 3, desc="fold stability", unit="step", progress=progress)
     with contextlib.closing(bar):
-        fold_of_row, base = fit(None)
+        fold_of_row, base = fit("first_stage")
         bar.update()
-        _, refit = fit(np.random.default_rng([int(seed), 1]))
+        _, refit = fit("refit")
         bar.update()
         common = dict(
             learner=learner, regressor=regressor, folds=folds, seed=seed, scheme=scheme,

@@ -13,6 +13,7 @@ import pandas as pd
 
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._numeric import central_jacobian
+from .._random import stream
 from .._options import check_options
 from .._version import __version__
 from ..covariance import check_cov_name, cluster_codes, estimate_covariance
@@ -286,10 +287,11 @@ def estimate_moments(
     rows = Rows(panel)
     mfun = MomentFunction(moment, rows)
     designs = [bind_nuisance(s, panel, rows) for s in specs]
-    rng = np.random.default_rng(seed)
-    fold_of_row = unit_folds(panel.unit_codes, int(folds), rng, unit_keys=panel.unit_keys)
+    fold_of_row = unit_folds(panel.unit_codes, int(folds), stream(seed, "folds"),
+                             unit_keys=panel.unit_keys)
     t0 = time.perf_counter()
-    fitted = crossfit(designs, rows, fold_of_row, panel.canonical_order, rng, clip=float(clip))
+    fitted = crossfit(designs, rows, fold_of_row, panel.canonical_order,
+                      stream(seed, "first_stage"), clip=float(clip))
     timings = {"first_stage_s": time.perf_counter() - t0}
     n_fits = sum(f.n_fits for f in fitted)
     nu: dict[str, np.ndarray] = {}
@@ -337,9 +339,9 @@ def estimate_moments(
         x = plug.theta
         moved = np.inf
         history: list[tuple[np.ndarray, np.ndarray]] = []
-        # One seed for the learner-based Riesz fits, reused at every update: the weights are
-        # then a function of theta alone and the iteration can settle.
-        riesz_seed = int(rng.integers(0, 2**31 - 1))
+        # The same seeds for the learner-based Riesz fits at every update (a fresh ``riesz``
+        # stream each time): the weights are then a function of theta alone and the iteration
+        # can settle.
         plain_next = x  # the last plain image T(x): where a rejected accelerated step goes
         accelerated = False
         for update in range(int(riesz_updates)):
@@ -347,7 +349,7 @@ def estimate_moments(
                 riesz_fits, extra_fits = fit_corrections(
                     mfun, x, fitted, rows, fold_of_row, method=riesz,  # type: ignore[arg-type]
                     penalty=float(penalty), next_weights=next_weights,  # type: ignore[arg-type]
-                    riesz_pair=pair, rng=np.random.default_rng(riesz_seed), clip=float(clip),
+                    riesz_pair=pair, rng=stream(seed, "riesz"), clip=float(clip),
                 )
                 n_fits += extra_fits
                 phis = correction_terms(fitted, riesz_fits, rows, nu)
