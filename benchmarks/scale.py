@@ -5,8 +5,8 @@ see 50 states (``wear`` and ``x0..x48``); 20 weeks per bike, so the rows are 20 
 LightGBM (the registry defaults), 5 folds, the default nested scheme and renewal-robust
 moments, sequential backend. Each size runs in two fresh processes: one simulates the panel
 and writes it to Parquet; the other reads the columns it needs through pyarrow
-(:func:`orthoccp.loading.read_columns`, then :class:`~orthoccp.Panel`, as
-:func:`orthoccp.loading.read_panel` does), wraps the panel and estimates, so its peak memory
+(:func:`orthoccp.spec.read_data` with ``columns=``, then :class:`~orthoccp.Panel`, as
+:func:`orthoccp.read_panel` does), wraps the panel and estimates, so its peak memory
 holds nothing but the estimation.
 
 Measured per size:
@@ -103,7 +103,8 @@ def fit(rows: int, path: Path) -> dict[str, Any]:
     import importlib
 
     import orthoccp as oc
-    from orthoccp.loading import read_columns, release_arrow_memory
+    from orthoccp.spec import read_data
+    from orthoccp.spec._data import release_arrow_memory
 
     est_module = importlib.import_module("orthoccp.estimate")  # the module, not the function
 
@@ -126,8 +127,9 @@ def fit(rows: int, path: Path) -> dict[str, Any]:
     rss_start = _status("VmRSS")
     _reset_peak()
     t0 = time.perf_counter()
-    frame = read_columns(path, [data["unit"], data["period"], data["choice"], *data["states"],
-                                *[c for c in utility_columns if c not in data["states"]]])
+    frame = read_data(path, columns=[data["unit"], data["period"], data["choice"],
+                                     *data["states"],
+                                     *[c for c in utility_columns if c not in data["states"]]])
     t_read = time.perf_counter() - t0
     t1 = time.perf_counter()
     panel = oc.Panel(frame, unit=data["unit"], period=data["period"], choice=data["choice"],

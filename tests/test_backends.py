@@ -1,4 +1,4 @@
-"""Specification of orthoccp.backends (and the column reader of orthoccp.loading).
+"""Specification of orthoccp.backends.
 
 The estimate must not depend on where the fold work runs: the same seed gives the same JSON,
 to the last digit, in this process, in two joblib workers and on a Dask cluster (a local one
@@ -19,7 +19,6 @@ import pytest
 
 import orthoccp as oc
 from orthoccp.backends import FeatureRows, limit_threads, resolve_backend, take_rows
-from orthoccp.loading import read_columns, read_panel
 from orthoccp.nuisance import learner_dtype
 
 pytestmark = pytest.mark.filterwarnings("ignore::orthoccp.OrthoCCPWarning")
@@ -219,31 +218,6 @@ def _pair(name: str) -> tuple[Any, Any]:
 
     pair = resolve_learners(name)
     return pair.classifier, pair.regressor
-
-
-@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
-def test_read_panel_reads_only_the_columns_it_needs(small_ebike, tmp_path, suffix: str) -> None:  # type: ignore[no-untyped-def]
-    if suffix == ".parquet":
-        pytest.importorskip("pyarrow")
-    sim = small_ebike
-    frame = sim.data.assign(unused=np.arange(len(sim.data)), note="text")
-    path = tmp_path / f"panel{suffix}"
-    if suffix == ".csv":
-        frame.to_csv(path, index=False)
-    else:
-        frame.to_parquet(path, index=False)
-    states = ["wear", "x0", "x3"]
-    got = read_columns(path, [sim.unit, sim.period, sim.choice, *states, "wear_scaled"])
-    assert list(got.columns) == [sim.unit, sim.period, sim.choice, *states, "wear_scaled"]
-    pd.testing.assert_frame_equal(got, sim.data[list(got.columns)], check_exact=False, rtol=1e-15)
-    panel = read_panel(path, unit=sim.unit, period=sim.period, choice=sim.choice, states=states,
-                       extra_columns=["wear_scaled"])
-    full = oc.Panel(sim.data, unit=sim.unit, period=sim.period, choice=sim.choice, states=states)
-    # Parquet stores the doubles; CSV text parsed by pandas' default parser is within 1 ulp.
-    np.testing.assert_allclose(panel.features, full.features, rtol=0 if suffix == ".parquet" else 1e-15)
-    assert "unused" not in panel.frame.columns
-    with pytest.raises(oc.InputError, match=r"column\(s\) 'nope' are not in .*the file has: bike"):
-        read_columns(path, ["bike", "nope"])
 
 
 def test_panel_holds_float_states_once(small_ebike) -> None:  # type: ignore[no-untyped-def]

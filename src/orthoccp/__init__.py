@@ -32,6 +32,7 @@ from ._progress import set_progress
 from .report import write_report
 from .results import ASSUMPTIONS, NotApplicable, Results, RowAccounting
 from .sensitivity import DiscountSensitivity, discount_sensitivity
+from .spec import read_panel
 from .stability import FoldStability, fold_stability
 
 __all__ = [
@@ -79,6 +80,7 @@ __all__ = [
     "fold_stability",
     "learner_names",
     "nuisances_from_truth",
+    "read_panel",
     "run_montecarlo",
     "set_progress",
     "write_report",

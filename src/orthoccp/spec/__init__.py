@@ -35,7 +35,8 @@ with parameters), and the optional ``[first_stage]`` and ``[inference]``::
 :class:`SpecError` (an :class:`~orthoccp.InputError`) whose message names the file, the key,
 the expected type and the offending value. :func:`write_spec` writes a spec (or any nested
 mapping of TOML values) back to disk. :func:`read_data` and :func:`write_data` handle the
-panel files (CSV, or Parquet through pyarrow).
+panel files (CSV, or Parquet through pyarrow); :func:`read_panel` reads only the columns a
+:class:`~orthoccp.Panel` uses.
 
 Layout: ``_check`` (vocabularies, :class:`SpecError`, the value checker), ``_records`` (the
 frozen dataclasses), ``_read`` (key lists, :func:`parse_spec`, :func:`read_spec`,
@@ -45,7 +46,7 @@ frozen dataclasses), ``_read`` (key lists, :func:`parse_spec`, :func:`read_spec`
 from __future__ import annotations
 
 from ._check import SpecError
-from ._data import data_format, data_stem, read_data, write_data
+from ._data import data_format, data_stem, read_data, read_panel, write_data
 from ._read import parse_spec, read_spec, write_spec
 from ._records import DataSpec, EstimatorSpec, FirstStageSpec, InferenceSpec, ModelSpec, Spec
 from ._toml import dumps_toml
@@ -63,6 +64,7 @@ __all__ = [
     "dumps_toml",
     "parse_spec",
     "read_data",
+    "read_panel",
     "read_spec",
     "write_data",
     "write_spec",

@@ -5,11 +5,13 @@ from __future__ import annotations
 import importlib.util
 import os
 from pathlib import Path
-from typing import Any
+from collections.abc import Sequence
+from typing import Any, Literal
 
 import pandas as pd
 
 from .._errors import InputError
+from ..data import Panel
 
 CSV_SUFFIXES = (".csv", ".csv.gz", ".csv.bz2", ".csv.xz", ".csv.zip")
 PARQUET_SUFFIXES = (".parquet", ".pq")
@@ -64,13 +66,23 @@ def data_stem(path: str | os.PathLike[str]) -> Path:
     return p.with_suffix("")
 
 
-def read_data(path: str | os.PathLike[str]) -> pd.DataFrame:
+def read_data(
+    path: str | os.PathLike[str], *, columns: Sequence[str] | None = None
+) -> pd.DataFrame:
     """Read a panel file: CSV (optionally compressed) by pandas, Parquet by pandas + pyarrow.
+
+    The one file reader of the package: the command line reads its data through it, and
+    :func:`read_panel` reads only the columns a panel uses with ``columns=``.
 
     Parameters
     ----------
     path : path-like
         ``.csv`` (also ``.csv.gz`` etc.) or ``.parquet`` / ``.pq``.
+    columns : sequence of str, optional
+        Read only these columns, in this order (duplicates once): a wide file then costs
+        only the memory of the columns asked for. Parquet is read column by column through
+        pyarrow and handed to pandas without a second copy (``self_destruct``, one block per
+        column); CSV through pandas' ``usecols``. By default every column is read.
 
     Returns
     -------
@@ -81,7 +93,8 @@ def read_data(path: str | os.PathLike[str]) -> pd.DataFrame:
     FileNotFoundError
         When the file does not exist.
     orthoccp.InputError
-        For an unsupported extension, a missing pyarrow, or a file pandas cannot parse.
+        For an unsupported extension, a missing pyarrow, a column of ``columns`` not in the
+        file (the message lists the file's columns), or a file pandas cannot parse.
     """
     p = Path(path)
     fmt = data_format(p)
@@ -89,12 +102,104 @@ def read_data(path: str | os.PathLike[str]) -> pd.DataFrame:
         if p.is_dir():
             raise InputError(f"data file {str(p)!r} is a folder, not a file.")
         raise FileNotFoundError(2, "data file not found", str(p))
+    wanted = None if columns is None else _available(p, fmt, columns)
     if fmt == "parquet":
         try:
-            return pd.read_parquet(p, engine="pyarrow")
-        except (OSError, ValueError) as exc:
+            if wanted is None:
+                return pd.read_parquet(p, engine="pyarrow")
+            import pyarrow.parquet as pq
+
+            table = pq.read_table(p, columns=wanted, memory_map=True)
+        except (OSError, ValueError) as exc:  # pyarrow's errors derive from these
             raise InputError(f"could not read Parquet file {str(p)!r}: {exc}") from exc
-    return read_csv_named(p)
+        frame = table.to_pandas(self_destruct=True, split_blocks=True)
+        del table
+        return frame[wanted]
+    if wanted is None:
+        return read_csv_named(p)
+    return read_csv_named(p, usecols=wanted)[wanted]
+
+
+def _available(path: Path, fmt: str, columns: Sequence[str]) -> list[str]:
+    """``columns`` without duplicates, checked against the file's header."""
+    if isinstance(columns, str):
+        columns = [columns]
+    wanted = list(dict.fromkeys(str(c) for c in columns))
+    if fmt == "parquet":
+        import pyarrow.parquet as pq
+
+        try:
+            names = list(pq.read_schema(path).names)
+        except (OSError, ValueError) as exc:
+            raise InputError(f"could not read Parquet file {str(path)!r}: {exc}") from exc
+    else:
+        names = [str(c) for c in read_csv_named(path, nrows=0).columns]
+    missing = [c for c in wanted if c not in names]
+    if missing:
+        shown = ", ".join(names[:12]) + (" ..." if len(names) > 12 else "")
+        raise InputError(
+            f"column(s) {', '.join(map(repr, missing))} are not in {str(path)!r}; the file "
+            f"has: {shown}."
+        )
+    return wanted
+
+
+def read_panel(
+    path: str | os.PathLike[str],
+    *,
+    unit: str,
+    period: str,
+    choice: str,
+    states: Sequence[str],
+    extra_columns: Sequence[str] = (),
+    missing: Literal["error", "drop"] = "error",
+) -> Panel:
+    """A :class:`~orthoccp.Panel` from the columns of a file that it uses, and no others.
+
+    Parameters
+    ----------
+    path : path-like
+        CSV or Parquet file (see :func:`read_data`).
+    unit, period, choice, states, extra_columns, missing
+        As for :class:`~orthoccp.Panel`; ``extra_columns`` should name the utility columns of
+        the model that are not states, so that they are read too.
+
+    Returns
+    -------
+    Panel
+
+    Notes
+    -----
+    Reads ``[unit, period, choice, *states, *extra_columns]`` with :func:`read_data`, wraps
+    them and then returns the memory pyarrow's allocator keeps after the Parquet columns are
+    freed (the panel holds its own state matrix; measured: 400 MB held at 10^6 rows x 50
+    states otherwise).
+
+    Examples
+    --------
+    >>> from orthoccp import read_panel  # doctest: +SKIP
+    >>> panel = read_panel("bikes.parquet", unit="bike", period="week", choice="action",
+    ...                    states=["wear", "x0", "x1"], extra_columns=["wear_scaled"])  # doctest: +SKIP
+    """
+    if isinstance(states, str):
+        states = [states]
+    if isinstance(extra_columns, str):
+        extra_columns = [extra_columns]
+    frame = read_data(path, columns=[unit, period, choice, *states, *extra_columns])
+    panel = Panel(frame, unit=unit, period=period, choice=choice, states=list(states),
+                  missing=missing, extra_columns=list(extra_columns))
+    del frame
+    release_arrow_memory()
+    return panel
+
+
+def release_arrow_memory() -> None:
+    """Return the memory pyarrow's allocator keeps after Parquet columns were freed."""
+    try:
+        import pyarrow as pa
+    except ImportError:
+        return
+    pa.default_memory_pool().release_unused()
 
 
 def read_csv_named(path: Path, **options: Any) -> pd.DataFrame:
