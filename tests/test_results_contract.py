@@ -12,6 +12,7 @@ only); the reference for the intervals is ``scipy.stats.norm``.
 from __future__ import annotations
 
 import dataclasses
+import html
 import json
 import warnings
 from collections.abc import Callable
@@ -132,6 +133,21 @@ def test_summary_names_every_parameter_with_its_estimate(fitted: tuple[Any, int]
         line = next((ln for ln in text.splitlines() if ln.split()[:1] == [name]), None)
         assert line is not None, f"{name!r} has no line in the summary"
         assert f"{value:.4f}" in line or f"{value:.5f}" in line
+
+
+def test_html_view_names_the_estimators_own_settings(fitted: tuple[Any, int]) -> None:
+    """The notebook view lists every parameter, and states only what the estimator has: the
+    cross-fitted CCP estimator its folds, the others no "0 folds" placeholder."""
+    res, _ = fitted
+    if not hasattr(res, "_repr_html_"):
+        pytest.skip(f"{type(res).__name__} has no notebook view")
+    page = res._repr_html_()
+    for name in res.params.index:
+        assert name in page
+    if isinstance(res, oc.Results) and type(res) is oc.Results:
+        assert f"{res.folds} folds" in page
+    else:
+        assert "0 folds" not in page and html.escape(res.method) in page
 
 
 def test_json_record(fitted: tuple[Any, int]) -> None:

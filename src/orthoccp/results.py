@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import html
 import json
 import math
 import os
@@ -520,6 +521,14 @@ class Results:
             f"{self.folds} folds, {self.splits} split(s), seed {self.seed}</p>"
             f"<p>Coverage holds only under the assumptions:</p><ul>{assumptions}</ul></div>"
         )
+
+    def _summary_html(self) -> str:
+        """HTML of an estimator whose facts are its summary's (user moments, discrete states):
+        the estimates table, then the plain-text summary, which names the estimator's own
+        settings and assumptions (not the CCP estimator's folds and learners)."""
+        table = self.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
+        return (f"<div><p><b>orthoccp</b>: {html.escape(self.method)}</p>{table}"
+                f"<pre>{html.escape(self.summary())}</pre></div>")
 
     def to_latex(self, level: float = 0.95) -> str:
         """A booktabs-style LaTeX table of estimates and standard errors."""

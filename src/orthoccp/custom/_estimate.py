@@ -109,8 +109,7 @@ class MomentResults(Results):
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        table = self.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
-        return f"<div><p><b>orthoccp</b>: {self.method}</p>{table}<pre>{self.summary()}</pre></div>"
+        return self._summary_html()
 
     def to_dict(self, level: float = 0.95) -> dict[str, Any]:
         h = self.hansen

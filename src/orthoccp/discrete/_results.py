@@ -127,6 +127,9 @@ class DiscreteResults(Results):
         lines.extend(f"  - {a}" for a in DISCRETE_ASSUMPTIONS)
         return "\n".join(lines)
 
+    def _repr_html_(self) -> str:
+        return self._summary_html()
+
     def to_dict(self, level: float = 0.95) -> dict[str, Any]:
         """The core JSON fields plus the estimator's own (JSON-safe)."""
         out = super().to_dict(level)
