@@ -43,12 +43,9 @@ SCHEMA: dict[str, Any] = {
     "n_units": int,
     "n_rows": int,
     "n_moment_rows": int,
-    "learner": str,
-    "folds": int,
     "seed": int,
     "timings": dict,
-    "n_learner_fits": int,
-    "clipped": dict,
+    "details": dict,
     "version": str,
     "nulls": dict,
     "inputs": dict,
@@ -59,6 +56,15 @@ PARAM_SCHEMA: dict[str, Any] = {
     "std_error": NUMBER,
     "ci_lower": NUMBER,
     "ci_upper": NUMBER,
+}
+# the cross-fitted CCP estimator's own record (``details``, kind "cross-fit")
+DETAILS_SCHEMA: dict[str, Any] = {
+    "kind": str,
+    "learner": str,
+    "folds": int,
+    "n_learner_fits": int,
+    "clipped": dict,
+    "solution": dict,
 }
 TIMINGS_SCHEMA: dict[str, Any] = {"first_stage_s": NUMBER, "second_stage_s": NUMBER, "total_s": NUMBER}
 
@@ -87,7 +93,9 @@ def check_results_json(doc: dict[str, Any], *, debiased: bool, n_units: int) -> 
         assert math.isclose(p["ci_lower"], p["estimate"] - 1.959964 * p["std_error"], rel_tol=1e-5)
         assert math.isclose(p["ci_upper"], p["estimate"] + 1.959964 * p["std_error"], rel_tol=1e-5)
     check_types(doc["timings"], TIMINGS_SCHEMA, "timings")
-    for label, count in doc["clipped"].items():
+    check_types(doc["details"], DETAILS_SCHEMA, "details")
+    assert doc["details"]["kind"] == "cross-fit"
+    for label, count in doc["details"]["clipped"].items():
         assert isinstance(label, str) and isinstance(count, int) and not isinstance(count, bool)
     assert doc["version"] == oc.__version__
     assert doc["nulls"] == {} or all(isinstance(v, str) for v in doc["nulls"].values())
@@ -223,7 +231,7 @@ def test_simulate_then_estimate_subprocess(tmp_path: Path) -> None:
     assert "wear_cost" in est.stdout and "swap_cost" in est.stdout
     doc = strict_json(out_json.read_text())
     check_results_json(doc, debiased=True, n_units=UNITS)
-    assert (doc["learner"], doc["folds"], doc["seed"]) == ("logit", 3, 4)
+    assert (doc["details"]["learner"], doc["details"]["folds"], doc["seed"]) == ("logit", 3, 4)
     assert [p["name"] for p in doc["params"]] == ["wear_cost", "swap_cost"]
     assert out_tex.read_text().startswith("\\begin{tabular}")
 
@@ -310,7 +318,7 @@ def test_counterfactual_command_from_a_saved_estimate(
 def test_naive_and_overrides(files: dict[str, Path], fast_spec: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     doc = _estimates(["estimate", str(files["data"]), "--spec", str(fast_spec), "--naive", "--folds", "4"], tmp_path, "naive")
     check_results_json(doc, debiased=False, n_units=UNITS)
-    assert doc["folds"] == 4
+    assert doc["details"]["folds"] == 4
     assert "plug-in CCP estimator" in capsys.readouterr().out
 
 
@@ -545,7 +553,7 @@ def test_demo_runs_and_its_rerun_command_works(tmp_path: Path, monkeypatch: pyte
     assert main([*argv, "--json", "rerun.json"]) == 0
     doc = strict_json((tmp_path / "rerun.json").read_text())
     check_results_json(doc, debiased=True, n_units=UNITS)
-    assert doc["learner"] == "lightgbm"
+    assert doc["details"]["learner"] == "lightgbm"
     for p in doc["params"]:
         assert float(table[p["name"]][4]) == pytest.approx(p["estimate"], abs=5e-5)
     capsys.readouterr()

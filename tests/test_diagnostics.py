@@ -86,7 +86,7 @@ def test_diagnostics_travel_in_the_json(small_ebike) -> None:  # type: ignore[no
 
     panel, model, _ = panel_and_model(small_ebike)
     res = oc.estimate(panel, model, learner="logit", folds=3, seed=0)
-    doc = json.loads(res.to_json())["diagnostics"]
+    doc = json.loads(res.to_json())["details"]["diagnostics"]
     d = res.diagnostics
     assert doc["readings"] == d.readings()
     for name in ("ccp_quality", "calibration", "continuation_quality", "influential_units"):

@@ -420,7 +420,13 @@ def test_results_object_views(bus_panel: oc.Panel) -> None:
     text = res.summary()
     assert "NPL iterations" in text and "no renewal or terminal choice needed" in text
     out = json.loads(res.to_json())
-    assert out["estimator"]["name"] == "npl" and out["estimator"]["converged"] is True
+    assert out["details"]["kind"] == "discrete"
+    assert out["details"]["estimator"] == "npl" and out["details"]["converged"] is True
+    # the discrete estimator does not cross-fit: no placeholder folds or learner
+    for absent in ("folds", "learner", "scheme", "splits"):
+        assert absent not in out["details"]
+        with pytest.raises(AttributeError, match=f"has no attribute '{absent}'.*DiscreteDetails"):
+            getattr(res, absent)
     assert [p["name"] for p in out["params"]] == ["theta11", "RC"]
     assert res.conf_int().shape == (2, 2)
     assert res.influence.shape == (50, 2)

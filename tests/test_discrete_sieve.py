@@ -77,7 +77,7 @@ def test_classifier_start_uses_the_fitted_probabilities(bus_panel: oc.Panel) -> 
     clf = LogisticRegression(C=1e10, tol=1e-12, max_iter=10_000)
     res = _bus_pml(bus_panel, initial_ccp=clf)
     given = _bus_pml(bus_panel, initial_ccp=_logit_ccp(bus_panel))
-    assert res.learner == "LogisticRegression (initial CCPs)"
+    assert res.initial_ccp == "LogisticRegression (initial CCPs)"
     np.testing.assert_allclose(res.params.to_numpy(), given.params.to_numpy(), rtol=1e-4)
 
 
@@ -101,7 +101,7 @@ def test_one_step_from_the_sieve_is_close_to_the_mle(bus_frame: pd.DataFrame,
                         choices=BUS_CHOICES, anchor="replace", utility=BUS.utility_spec(),
                         discount=BUS.discount, transitions="increments", n_states=BUS.n_states)
     res = _bus_pml(bus_panel, initial_ccp="sieve")
-    assert res.learner == "logit sieve of degree 3 (initial CCPs)"
+    assert res.initial_ccp == "logit sieve of degree 3 (initial CCPs)"
     for name in ("theta11", "RC"):
         gap = abs(res.params[name] - mle.params[name]) / mle.std_errors[name]
         assert gap < 0.25, (name, gap)

@@ -145,7 +145,7 @@ def test_a_failed_newton_solve_falls_back_and_says_so(small_ebike, monkeypatch) 
     assert res.solve_routes == ("root",)
     np.testing.assert_allclose(res.params, full.params, rtol=0, atol=1e-7)
     assert "Powell hybrid root-finder" in res.summary() and "(forced)" in res.summary()
-    assert res.to_dict()["solution"]["routes"] == ["root"]
+    assert res.to_dict()["details"]["solution"]["routes"] == ["root"]
     monkeypatch.setattr(solver, "NEAR_SE", 1.0)
     with pytest.warns(oc.OrthoCCPWarning, match="one-step estimator"):
         res = _fit(small_ebike)
@@ -190,7 +190,7 @@ def test_model_ccp_steps_are_seeded_and_counted() -> None:
     # the diagnostics describe the learner's out-of-fold first stage, not the model's CCPs
     pd.testing.assert_frame_equal(a.diagnostics.ccp_quality, base.diagnostics.ccp_quality)
     # the JSON record says how the nuisances were made, and keeps the learner's plug-in
-    d = a.to_dict()
+    d = a.to_dict()["details"]
     assert d["nuisance_source"] == a.nuisance_source
     assert d["plugin_params"] == pytest.approx(base.plugin_params.to_dict())
     assert "before the model-implied steps" in a.summary()

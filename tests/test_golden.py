@@ -27,6 +27,12 @@ from golden.runs import RUNS, library_versions, run
 
 RECORD = json.loads((Path(__file__).parent / "golden" / "golden.json").read_text())
 TOLERANCE = 1e-10
+# Runs whose last digits depend on the CPU as well as the library versions: the user-moment
+# renewal run fits lbfgs logits (stopping at a tolerance) inside the Riesz update loop, which
+# carries rounding-level differences between machines to 2.3e-10 (measured on 2026-12-05 on a
+# machine other than the recording one, with identical library versions; every other run
+# agreed to 3e-13). Its tolerance is 1e-8, still far below any change a refactor would make.
+MACHINE_SENSITIVE = {"estimate_moments/renewal": 1e-8}
 
 
 def _version_gap() -> str:
@@ -55,9 +61,10 @@ def test_golden_run_is_unchanged(name: str) -> None:
         want = np.asarray(values, dtype=np.float64)
         got = np.asarray(new[quantity], dtype=np.float64)
         assert got.shape == want.shape, f"{name}: {quantity} has shape {got.shape}, recorded {want.shape}"
-        excess = np.abs(got - want) - TOLERANCE * (1.0 + np.abs(want))
+        tolerance = MACHINE_SENSITIVE.get(name, TOLERANCE)
+        excess = np.abs(got - want) - tolerance * (1.0 + np.abs(want))
         worst = int(np.argmax(excess))
         assert excess[worst] <= 0, (
             f"{name}: {quantity}[{worst}] = {got[worst]!r}, recorded {want[worst]!r} "
-            f"(difference {got[worst] - want[worst]:.3g}, tolerance 1e-10 (1 + |recorded|))"
+            f"(difference {got[worst] - want[worst]:.3g}, tolerance {tolerance:g} (1 + |recorded|))"
         )

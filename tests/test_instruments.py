@@ -105,7 +105,7 @@ def test_summary_reports_moments_and_fallback(small_ebike) -> None:  # type: ign
     res = oc.estimate(panel, _robust_model(small_ebike), learner="logit", folds=3)
     text = res.summary()
     assert "moments: renewal_robust" in text and "swap_cost: its regressor is a constant" in text
-    assert res.to_dict()["moments"] == "renewal_robust"
+    assert res.to_dict()["details"]["moments"] == "renewal_robust"
 
 
 def test_warns_when_a_persistent_state_changes_after_renewal(small_ebike) -> None:  # type: ignore[no-untyped-def]

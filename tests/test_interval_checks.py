@@ -90,7 +90,7 @@ def test_estimate_carries_the_checks(small_ebike) -> None:  # type: ignore[no-un
     assert list(t.index) == list(res.params.index)
     # both parameters enter the flow utility directly: all their information reaches X
     np.testing.assert_allclose(t["identification"], 1.0)
-    assert res.to_dict()["interval_check"]["wear_cost"]["flagged"] == bool(t.loc["wear_cost", "flagged"])
+    assert res.to_dict()["details"]["interval_check"]["wear_cost"]["flagged"] == bool(t.loc["wear_cost", "flagged"])
     assert any(r.startswith("Interval check:") for r in res.summary().splitlines())
     naive = oc.estimate(panel, model, learner="logit", folds=3, seed=0, debias=False)
     assert naive.interval_check is None

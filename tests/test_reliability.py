@@ -873,7 +873,7 @@ def test_clipped_probabilities_are_counted_reported_and_warned() -> None:
         res = oc.estimate(panel, model, learner=ExtremeAtZeroWear(), regressor="logit", folds=3, debias=False)
     assert res.clipped == {"keep": n_zero, "swap": n_zero}
     assert f"rows clipped per choice: keep: {n_zero}, swap: {n_zero}" in res.summary()
-    assert res.to_dict()["clipped"] == {"keep": n_zero, "swap": n_zero}
+    assert res.to_dict()["details"]["clipped"] == {"keep": n_zero, "swap": n_zero}
 
 
 def _result() -> oc.Results:

@@ -121,7 +121,8 @@ def _fake(comparison, loss: dict[str, float], p_single: list[float], p_joint: fl
     for label, res in comparison.results.items():
         d = res.diagnostics
         q = d.ccp_quality.assign(log_loss=loss[label])
-        results[label] = dataclasses.replace(res, diagnostics=dataclasses.replace(d, ccp_quality=q))
+        results[label] = dataclasses.replace(res, details=dataclasses.replace(
+            res.details, diagnostics=dataclasses.replace(d, ccp_quality=q)))
     test = comparison.tests["lasso"].copy()
     test["p_value"] = p_single
     test.attrs["wald"] = {"statistic": 9.0, "dof": 2, "p_value": p_joint}

@@ -82,8 +82,9 @@ def test_every_number_round_trips(ebike, case: str, tmp_path: Path) -> None:  # 
     pd.testing.assert_frame_equal(back.cov, res.cov)
     np.testing.assert_array_equal(back.influence, res.influence)
     assert [oc.Results.from_json(text).params.tolist()] == [res.params.tolist()]
-    if res.split_params is not None:
+    if getattr(res.details, "split_params", None) is not None:
         pd.testing.assert_frame_equal(back.split_params, res.split_params)
+    assert type(back) is type(res) and type(back.details) is type(res.details)
     # the summary of a reloaded record names where it came from
     assert "reloaded from JSON" in back.summary()
     # the difference test reads the reloaded influence terms like the originals'
@@ -117,6 +118,8 @@ def test_the_command_lines_json_reloads(tmp_path: Path) -> None:
 
 @pytest.mark.parametrize("source, message", [
     ('{"params": []}', "not an orthoccp results record"),
+    # the first format kept the CCP estimator's settings at the top level for every estimator
+    ('{"format": "orthoccp.results/1"}', r"format 'orthoccp.results/1'.*write it again"),
     ("{not json", "does not parse"),
     ("no/such/file.json", "cannot read results file"),
 ])

@@ -118,7 +118,7 @@ def test_estimate_records_the_route(small_ebike) -> None:  # type: ignore[no-unt
     res = oc.estimate(panel, model, learner="logit", folds=3, seed=0, splits=2)
     assert res.solve_routes == ("newton", "newton") and res.solve_notes == ("", "")
     assert "solution: damped Newton on the debiased moment (all 2 splits)" in res.summary()
-    assert res.to_dict()["solution"]["routes"] == ["newton", "newton"]
+    assert res.to_dict()["details"]["solution"]["routes"] == ["newton", "newton"]
     naive = oc.estimate(panel, model, learner="logit", folds=3, seed=0, debias=False)
     assert naive.solve_routes == ("plug-in",)
 

@@ -11,6 +11,7 @@ from .counterfactual import Counterfactual, DemandCurve, counterfactual, demand_
 from .covariance import covariance_names
 from .custom import (
     HansenJ,
+    MomentDetails,
     MomentResults,
     Nuisance,
     OrthogonalityCheck,
@@ -19,7 +20,7 @@ from .custom import (
 )
 from .data import Panel
 from .diagnostics import Diagnostics
-from .discrete import DiscreteResults, bin_states, check_anchor_probability, estimate_discrete
+from .discrete import DiscreteDetails, DiscreteResults, bin_states, check_anchor_probability, estimate_discrete
 from .estimate import estimate
 from .first_stage import FirstStage, first_stage
 from .interval_checks import IntervalCheck
@@ -30,7 +31,7 @@ from .nuisance import Nuisances, nuisances_from_truth
 from .pieces import MomentPieces
 from ._progress import set_progress
 from .report import write_report
-from .results import ASSUMPTIONS, NotApplicable, Results, RowAccounting
+from .results import ASSUMPTIONS, CrossFitDetails, Details, NotApplicable, Results, RowAccounting
 from .sensitivity import DiscountSensitivity, discount_sensitivity
 from .spec import read_panel
 from .stability import FoldStability, fold_stability
@@ -39,9 +40,12 @@ __all__ = [
     "ASSUMPTIONS",
     "Comparison",
     "Counterfactual",
+    "CrossFitDetails",
     "DemandCurve",
+    "Details",
     "Diagnostics",
     "DiscountSensitivity",
+    "DiscreteDetails",
     "DiscreteResults",
     "EULER_GAMMA",
     "EstimationError",
@@ -51,6 +55,7 @@ __all__ = [
     "InputError",
     "IntervalCheck",
     "Model",
+    "MomentDetails",
     "MomentPieces",
     "MomentResults",
     "MonteCarloResults",

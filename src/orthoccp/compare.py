@@ -31,7 +31,7 @@ from .covariance import clustered_outer
 from .data import Panel
 from .estimate import estimate
 from .model import Model
-from .results import Results
+from .results import Results, cross_fit_details
 
 __all__ = ["Comparison", "compare", "difference_test"]
 
@@ -119,7 +119,7 @@ class Comparison:
                     "parameter": name,
                     "estimate": float(res.params[name]),
                     "std_error": float(res.std_errors[name]),
-                    "solution": ",".join(sorted(set(res.solve_routes))) or "-",
+                    "solution": ",".join(sorted(set(res.details.solve_routes))) or "-",
                 }
                 if test is not None:
                     row.update(
@@ -148,8 +148,9 @@ class Comparison:
             diff = "" if test is None else f"{r['diff_vs_baseline']:>10.4f}{r['diff_std_error']:>9.4f}{r['diff_p_value']:>8.3f}"
             lines.append(f"{fs:<16}{name:<18}{r['estimate']:>10.4f}{r['std_error']:>9.4f}{diff}")
         for label, res in self.results.items():
-            if any(route != "newton" for route in res.solve_routes):
-                lines.append(f"{label}: solution {res.solution}")
+            details = cross_fit_details(res, needed_by="Comparison.summary")
+            if any(route != "newton" for route in details.solve_routes):
+                lines.append(f"{label}: solution {details.solution}")
         for label, why in self.failed.items():
             lines.append(f"{label}: FAILED, no estimate ({why})")
         if self.baseline in self.failed:

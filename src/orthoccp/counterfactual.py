@@ -96,7 +96,7 @@ from .folds import unit_folds
 from .functions import _compile
 from .instruments import persistent_feature_columns
 from .model import EULER_GAMMA, BoundModel, Model
-from .results import Results
+from .results import Results, cross_fit_details
 
 __all__ = ["Counterfactual", "DemandCurve", "TransitionAverager", "Weights", "counterfactual",
            "demand_curve", "fit_averager", "solve_on_rows"]
@@ -555,6 +555,7 @@ def _checked_inputs(results: Results, panel: Panel, model: Model, level: Any) ->
     """The model bound to the panel, after checking that ``results`` estimate it."""
     if not isinstance(results, Results):
         raise InputError(f"results must be an orthoccp Results, got {type(results).__name__}.")
+    cross_fit_details(results, needed_by="counterfactual")
     if not isinstance(panel, Panel) or not isinstance(model, Model):
         raise InputError("panel and model must be the orthoccp.Panel and orthoccp.Model of the estimate.")
     if not (isinstance(level, float) and 0 < level < 1):
@@ -737,7 +738,7 @@ def _solve_changes(
             iterations={"baseline": base.solution.iterations,
                         "counterfactual": cf.solution.iterations},
             averager=avg, level=level, seconds=time.perf_counter() - t0,
-            learner=results.learner))
+            learner=cross_fit_details(results, needed_by="counterfactual").learner))
     return out
 
 

@@ -30,7 +30,7 @@ from .moments import build_moment_system
 from .pieces import MomentPieces
 from .nuisance import Nuisances, clip_probabilities, crossfit_nuisances, refit_anchor_target
 from .interval_checks import identification_strength, interval_check, unseen_variance
-from .results import Results, RowAccounting
+from .results import CrossFitDetails, Results, RowAccounting
 from .solver import solve_orthogonal, solve_plugin
 
 __all__ = ["estimate", "account_rows"]
@@ -449,36 +449,25 @@ def estimate(
             source += (f", then {int(model_ccp_steps)} model-implied CCP step"
                        f"{'s' if model_ccp_steps > 1 else ''} (ln P_R regressions refitted "
                        f"with plain cross-fitting)")
-    results = Results(
-        params=pd.Series(theta_hat, index=index, name="estimate"),
-        std_errors=pd.Series(se, index=index, name="std_error"),
-        cov=pd.DataFrame(V, index=index, columns=index),
-        debiased=bool(debias),
-        model=model.to_dict(),
-        learner=pair.name if nuisances is None and not static else "-",
-        regressor=pair.regressor_name if nuisances is None and not static else "-",
+    params_hat = pd.Series(theta_hat, index=index, name="estimate")
+    std_errors = pd.Series(se, index=index, name="std_error")
+    split_params = pd.DataFrame(np.vstack(thetas), columns=index) if splits > 1 else None
+    fitted_here = nuisances is None and not static
+    details = CrossFitDetails(
+        learner=pair.name if fitted_here else "-",
+        regressor=pair.regressor_name if fitted_here else "-",
         folds=int(folds),
         splits=int(splits),
         scheme=scheme,
-        seed=int(seed),
         clip=float(clip),
-        cov_type=cov,
-        small_sample=bool(small_sample),
-        n_units=panel.n_units,
-        accounting=accounting,
         clipped={str(k): int(v) for k, v in clipped.items()},
-        decomposition=decomposition,
-        influence=infl.to_numpy(),
-        influence_units=(
-            panel.unit_labels[infl.index.to_numpy()] if cov == "clustered" else infl.index.to_numpy()
-        ),
-        timings=timings,
         n_learner_fits=n_fits,
         iterations=iterations,
-        split_params=pd.DataFrame(np.vstack(thetas), columns=index) if splits > 1 else None,
+        split_params=split_params,
+        split_spread=CrossFitDetails.spread(split_params, std_errors),
         plugin_params=pd.Series(np.median(np.vstack(plugins), axis=0), index=index, name="plug-in"),
         nuisance_source=source,
-        model_ccp_steps=int(model_ccp_steps) if not static and nuisances is None else 0,
+        model_ccp_steps=int(model_ccp_steps) if fitted_here else 0,
         correction_weights=str(correction_weights),
         moments=moments,
         diagnostics=diagnostics,
@@ -486,8 +475,27 @@ def estimate(
         solve_routes=tuple(routes),
         solve_notes=tuple(route_notes),
         interval_check=checks,
-        version=__version__,
         pieces=tuple(pieces),
+    )
+    results = Results(
+        params=params_hat,
+        std_errors=std_errors,
+        cov=pd.DataFrame(V, index=index, columns=index),
+        debiased=bool(debias),
+        model=model.to_dict(),
+        seed=int(seed),
+        cov_type=cov,
+        small_sample=bool(small_sample),
+        n_units=panel.n_units,
+        accounting=accounting,
+        decomposition=decomposition,
+        influence=infl.to_numpy(),
+        influence_units=(
+            panel.unit_labels[infl.index.to_numpy()] if cov == "clustered" else infl.index.to_numpy()
+        ),
+        details=details,
+        timings=timings,
+        version=__version__,
     )
     return results
 

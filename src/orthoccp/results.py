@@ -6,11 +6,11 @@ import html
 import json
 import math
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from functools import cached_property
 from pathlib import Path
 from collections.abc import Mapping
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 import pandas as pd
@@ -23,7 +23,7 @@ from .functions import Function, delta_method, function_lines
 if TYPE_CHECKING:
     from .pieces import MomentPieces
 
-__all__ = ["Results", "RowAccounting", "NotApplicable", "ASSUMPTIONS"]
+__all__ = ["Results", "Details", "CrossFitDetails", "RowAccounting", "NotApplicable", "ASSUMPTIONS"]
 
 ASSUMPTIONS = (
     "type-I extreme-value (logit) utility shocks, i.i.d. across choices and periods",
@@ -195,16 +195,363 @@ def param_records(table: pd.DataFrame) -> list[dict[str, Any]]:
     return [{"name": str(k), **{c: json_number(r[c]) for c in columns}} for k, r in table.iterrows()]
 
 
-RESULTS_FORMAT = "orthoccp.results/1"
+RESULTS_FORMAT = "orthoccp.results/2"
 """Format tag of the results JSON (:meth:`Results.to_json`)."""
 
-_NOT_REBUILT = ("diagnostics", "interval_check", "hansen_j", "assumptions", "method",
-                "result_type", "solution")
+
+class Details:
+    """The method-specific part of a result (:attr:`Results.details`).
+
+    Every estimator's result is one :class:`Results` record: estimates, covariance, per-unit
+    influence terms, row accounting and settings shared by all estimators, plus a frozen
+    ``details`` record of the estimator's own facts (a subclass of this class). The details
+    say how the result is named and summarised and how their part of the JSON reads.
+
+    Subclasses set :attr:`kind` (the JSON tag) and :attr:`assumptions`, and implement
+    :meth:`method`, :meth:`title`, :meth:`lines`, :meth:`to_dict` and :meth:`from_dict`.
+    """
+
+    kind: ClassVar[str] = ""
+    assumptions: ClassVar[tuple[str, ...]] = ASSUMPTIONS
+    not_rebuilt: ClassVar[tuple[str, ...]] = ()
+    """Keys of :meth:`to_dict` whose records :meth:`from_dict` does not rebuild as objects; a
+    reloaded result writes them back unchanged."""
+    _kinds: ClassVar[dict[str, type[Details]]] = {}
+
+    def __init_subclass__(cls, **kwargs: Any) -> None:
+        super().__init_subclass__(**kwargs)
+        if cls.kind:
+            Details._kinds[cls.kind] = cls
+
+    def method(self, debiased: bool) -> str:
+        """The estimator's name, as the summary's first line shows it."""
+        raise NotImplementedError
+
+    def title(self, res: Results) -> str:
+        """The line under the method: the model (or moment system) estimated."""
+        raise NotImplementedError
+
+    def lines(self, res: Results, *, plugin: bool) -> list[str]:
+        """The summary's lines between the estimates and the assumptions."""
+        raise NotImplementedError
+
+    @property
+    def hansen_j(self) -> Any:
+        """Hansen's J: not applicable unless the estimator is over-identified."""
+        return NotApplicable("the moment system is just-identified (as many moments as parameters)")
+
+    def html(self, res: Results) -> str:
+        """The notebook view: the estimates table, then the plain-text summary."""
+        table = res.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
+        return (f"<div><p><b>orthoccp</b>: {html.escape(res.method)}</p>{table}"
+                f"<pre>{html.escape(res.summary())}</pre></div>")
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON-safe record of the details (``kind`` first)."""
+        raise NotImplementedError
+
+    @classmethod
+    def from_dict(cls, doc: Mapping[str, Any], *, index: pd.Index,
+                  std_errors: pd.Series) -> Details:
+        """The inverse of :meth:`to_dict` (objects not rebuilt are left ``None``); ``index``
+        and ``std_errors`` are the result's parameter names and standard errors."""
+        raise NotImplementedError
+
+    @staticmethod
+    def read(doc: Mapping[str, Any], *, index: pd.Index, std_errors: pd.Series) -> Details:
+        """The details record of a results JSON, by its ``kind``."""
+        kind = doc.get("kind")
+        if kind not in Details._kinds:
+            raise InputError(
+                f"unknown details kind {kind!r} in the results JSON; known: "
+                f"{', '.join(sorted(Details._kinds))}."
+            )
+        return Details._kinds[str(kind)].from_dict(doc, index=index, std_errors=std_errors)
+
+
+def _float(v: Any) -> float:
+    """A JSON number back as a float (``None`` is NaN)."""
+    return float("nan") if v is None else float(v)
+
+
+@dataclass(frozen=True, eq=False)
+class CrossFitDetails(Details):
+    """Details of the cross-fitted CCP estimator (:func:`orthoccp.estimate`).
+
+    Attributes
+    ----------
+    learner, regressor : str
+        The CCP learner and the continuation regressor (``"-"`` when the nuisances were
+        supplied or none were needed).
+    folds, splits : int
+        Folds by unit and independent fold splits (the estimate is the median over splits).
+    scheme : str
+        Cross-fitting scheme (``"plain"`` or ``"nested"``).
+    clip : float
+        Probabilities are clipped to ``[clip, 1 - clip]``; ``clipped`` counts rows per choice.
+    n_learner_fits, iterations : int
+        Learner fits, and Newton iterations of the second stage (all splits).
+    split_params : pandas.DataFrame or None
+        Per-split estimates (``splits`` > 1).
+    split_spread : pandas.Series or None
+        Per parameter, the standard deviation of the per-split estimates over the standard
+        error: how much the fold split moves the answer.
+    plugin_params : pandas.Series or None
+        The plug-in estimates the debiased solve starts from (median over splits).
+    nuisance_source : str
+        Where the nuisances came from (cross-fitted, model-implied steps, supplied).
+    model_ccp_steps : int
+        Model-implied CCP steps after the cross-fitted first stage (0: none); the summary
+        then labels ``plugin_params`` as the learner's first stage.
+    moments : {"standard", "renewal_robust"}
+        The moment solved; ``fallback`` names the parameters whose renewal-robust
+        instrument fell back to the standard one, and why.
+    correction_weights : {"solution", "plugin"}
+        Where the corrections' weights were evaluated.
+    solve_routes, solve_notes : tuple of str
+        Per split, how the second stage was solved (``"newton"``, ``"root"``, ``"one_step"``,
+        or ``"plug-in"`` when not debiased; :func:`orthoccp.solver.solve_orthogonal`) and
+        why a fallback route was taken.
+    diagnostics : Diagnostics or None
+        Overlap, clipping and influence diagnostics (:mod:`orthoccp.diagnostics`).
+    interval_check : IntervalCheck or None
+        Signs that a parameter's normal interval may not hold (:mod:`orthoccp.interval_checks`);
+        None for the plug-in estimator.
+    pieces : tuple of MomentPieces
+        Per split, the per-row pieces of the moment (:meth:`moment_pieces`); empty when
+        reloaded from JSON.
+    """
+
+    kind: ClassVar[str] = "cross-fit"
+    not_rebuilt: ClassVar[tuple[str, ...]] = ("diagnostics", "interval_check")
+
+    learner: str
+    regressor: str
+    folds: int
+    splits: int
+    scheme: str
+    clip: float
+    clipped: dict[str, int]
+    n_learner_fits: int = 0
+    iterations: int = 0
+    split_params: pd.DataFrame | None = field(default=None, repr=False)
+    split_spread: pd.Series | None = field(default=None, repr=False)
+    plugin_params: pd.Series | None = None
+    nuisance_source: str = "cross-fitted"
+    model_ccp_steps: int = 0
+    moments: str = "standard"
+    correction_weights: str = "solution"
+    fallback: dict[str, str] = field(default_factory=dict)
+    solve_routes: tuple[str, ...] = ()
+    solve_notes: tuple[str, ...] = ()
+    diagnostics: Any = field(default=None, repr=False)
+    interval_check: Any = field(default=None, repr=False)
+    pieces: tuple[MomentPieces, ...] = field(default=(), repr=False)
+
+    @staticmethod
+    def spread(split_params: pd.DataFrame | None, std_errors: pd.Series) -> pd.Series | None:
+        """SD of the per-split estimates over the standard error (None for one split)."""
+        if split_params is None or len(split_params) < 2:
+            return None
+        return (split_params.std(axis=0, ddof=1) / std_errors).rename("split_spread")
+
+    @property
+    def solution(self) -> str:
+        """One line on how the second stage was solved (all splits)."""
+        return describe_routes(self.solve_routes)
+
+    def moment_pieces(self, split: int = 1) -> MomentPieces:
+        r"""The per-row pieces of the moment the estimate solved (one fold split).
+
+        Parameters
+        ----------
+        split : int, default=1
+            Which fold split (1 to ``splits``).
+
+        Returns
+        -------
+        MomentPieces
+            Constructed regressors :math:`X_j`, offsets :math:`o_j`, instruments
+            :math:`A_j`, and :math:`m`, :math:`\phi_\mu`, :math:`\phi_P`, :math:`\psi` at
+            the split's solution or any :math:`\theta` (:mod:`orthoccp.pieces`).
+        """
+        if not self.pieces:
+            raise InputError(
+                "this result holds no per-row moment pieces: a result reloaded from JSON does "
+                "not keep them; rerun orthoccp.estimate."
+            )
+        if isinstance(split, bool) or not isinstance(split, (int, np.integer)) or not (
+                1 <= split <= len(self.pieces)):
+            raise InputError(f"split must be an integer from 1 to {len(self.pieces)}, got {split!r}.")
+        return self.pieces[int(split) - 1]
+
+    def method(self, debiased: bool) -> str:
+        if debiased:
+            return "orthogonal (debiased) CCP estimator"
+        return "plug-in CCP estimator (NOT debiased; standard errors ignore first-stage noise)"
+
+    def title(self, res: Results) -> str:
+        return (f"model: {res.model['kind']}, anchor {show_label(res.model['anchor'])}, "
+                f"discount {res.model['discount']}")
+
+    def lines(self, res: Results, *, plugin: bool) -> list[str]:
+        lines = []
+        if res.reloaded is not None:
+            lines.append("reloaded from JSON: the diagnostics and interval checks are records in "
+                         ".to_dict(); the per-row moment pieces are not kept")
+        lines.append(f"units {res.n_units}; {res.accounting.describe()}")
+        lines.append(
+            f"first stage: {self.nuisance_source}; CCP learner {self.learner}, continuation "
+            f"regressor {self.regressor}; {self.folds} folds by unit, {self.splits} split(s), "
+            f"scheme {self.scheme}, seed {res.seed}; {self.n_learner_fits} learner fits"
+        )
+        clipped = ", ".join(f"{k}: {v}" for k, v in self.clipped.items())
+        lines.append(f"probabilities clipped to [{self.clip:g}, {1 - self.clip:g}]; rows "
+                     f"clipped per choice: {clipped}")
+        lines.append(covariance_line(res.cov_type, res.small_sample)
+                     + ("" if res.debiased else " (first-stage noise ignored)"))
+        if self.moments == "renewal_robust":
+            lines.append(
+                "moments: renewal_robust (instruments residualised on the persistent states "
+                + _short_list([str(x) for x in res.model.get("persistent", [])])
+                + "; assumes a renewal does not reset them)"
+            )
+            lines.extend(f"  {name}: {why}" for name, why in self.fallback.items())
+        elif res.debiased:
+            lines.append("moments: standard (pseudo-likelihood score with the full correction)")
+        if res.debiased and self.correction_weights == "plugin":
+            lines.append("corrections: weights fixed at the plug-in solution")
+        if self.split_spread is not None:
+            lines.append(
+                f"fold splits: across {self.splits} splits the estimates spread by "
+                + ", ".join(f"{k} {v:.2f}" for k, v in self.split_spread.items())
+                + " standard errors (standard deviation over s.e.; the reported estimate is "
+                "their median and the variance includes the spread)"
+            )
+        if self.solve_routes:
+            lines.append(f"solution: {self.solution}")
+            lines.extend(f"  split {k + 1}: {' '.join(note.split())}"
+                         for k, note in enumerate(self.solve_notes) if note)
+        stepped = self.model_ccp_steps > 0
+        if plugin and self.plugin_params is not None and (res.debiased or stepped):
+            if stepped:
+                label = ("plug-in estimates (the learner's first stage, before the model-implied "
+                         "steps): ")
+            elif self.moments == "renewal_robust":
+                label = ("plug-in estimates (start of the solve; the anchor's continuation is fit "
+                         "on the persistent states only, as the renewal-robust moment needs): ")
+            else:
+                label = "plug-in estimates (start of the solve): "
+            lines.append(label + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items()))
+        lines.extend(variance_share_lines(
+            res.decomposition, "variance shares, Cov(part, psi)/Var(psi), adding up to 100% "
+            "(m: identifying moment, phi_mu: continuation correction, phi_P: CCP correction):"))
+        if self.interval_check is not None:
+            lines.extend(self.interval_check.readings())
+        if self.diagnostics is not None:
+            lines.append("diagnostics (see .diagnostics for the tables):")
+            lines.extend(f"  {r}" for r in self.diagnostics.readings())
+        lines.append(f"Hansen J: not applicable ({self.hansen_j.reason}).")
+        return lines
+
+    def html(self, res: Results) -> str:
+        table = res.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
+        assumptions = "".join(f"<li>{a}</li>" for a in self.assumptions)
+        return (
+            f"<div><p><b>orthoccp</b>: {res.method}; model {res.model['kind']}, anchor "
+            f"{show_label(res.model['anchor'])}, discount {res.model['discount']}</p>{table}"
+            f"<p>units {res.n_units}; {res.accounting.describe()}<br>learner {self.learner}; "
+            f"{self.folds} folds, {self.splits} split(s), seed {res.seed}</p>"
+            f"<p>Coverage holds only under the assumptions:</p><ul>{assumptions}</ul></div>"
+        )
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "kind": self.kind,
+            "learner": self.learner,
+            "regressor": self.regressor,
+            "folds": self.folds,
+            "splits": self.splits,
+            "scheme": self.scheme,
+            "clip": self.clip,
+            "clipped": {str(k): int(v) for k, v in self.clipped.items()},
+            "n_learner_fits": self.n_learner_fits,
+            "iterations": self.iterations,
+            "nuisance_source": self.nuisance_source,
+            "model_ccp_steps": self.model_ccp_steps,
+            "moments": self.moments,
+            "correction_weights": self.correction_weights,
+            "moments_fallback": dict(self.fallback),
+            "solution": {"routes": list(self.solve_routes), "notes": list(self.solve_notes),
+                         "summary": self.solution},
+            "plugin_params": (None if self.plugin_params is None else
+                              {str(k): json_number(v) for k, v in self.plugin_params.items()}),
+            "split_params": (None if self.split_params is None else
+                             [[json_number(v) for v in row] for row in self.split_params.to_numpy()]),
+            "interval_check": (None if self.interval_check is None
+                               else self.interval_check.to_dict()),
+            "diagnostics": None if self.diagnostics is None else self.diagnostics.to_dict(),
+        }
+
+    @classmethod
+    def from_dict(cls, doc: Mapping[str, Any], *, index: pd.Index,
+                  std_errors: pd.Series) -> CrossFitDetails:
+        split, plugin = doc.get("split_params"), doc.get("plugin_params")
+        split_params = plugin_params = None
+        if split is not None:
+            split_params = pd.DataFrame([[_float(v) for v in row] for row in split], columns=index)
+        if plugin is not None:
+            plugin_params = pd.Series([_float(plugin[n]) for n in index], index=index,
+                                      name="plug-in")
+        solution = doc.get("solution") or {}
+        return cls(
+            learner=str(doc["learner"]), regressor=str(doc["regressor"]),
+            folds=int(doc["folds"]), splits=int(doc["splits"]), scheme=str(doc["scheme"]),
+            clip=float(doc["clip"]),
+            clipped={str(k): int(v) for k, v in doc.get("clipped", {}).items()},
+            n_learner_fits=int(doc.get("n_learner_fits", 0)),
+            iterations=int(doc.get("iterations", 0)),
+            split_params=split_params,
+            split_spread=cls.spread(split_params, std_errors),
+            plugin_params=plugin_params,
+            nuisance_source=str(doc.get("nuisance_source", "")),
+            model_ccp_steps=int(doc.get("model_ccp_steps", 0)),
+            moments=str(doc.get("moments", "standard")),
+            correction_weights=str(doc.get("correction_weights", "solution")),
+            fallback={str(k): str(v) for k, v in doc.get("moments_fallback", {}).items()},
+            solve_routes=tuple(solution.get("routes", ())),
+            solve_notes=tuple(solution.get("notes", ())),
+        )
+
+
+def cross_fit_details(res: Results, *, needed_by: str) -> CrossFitDetails:
+    """The :class:`CrossFitDetails` of a result of :func:`orthoccp.estimate`.
+
+    Raises
+    ------
+    InputError
+        When ``res`` came from another estimator; the message names ``needed_by``.
+    """
+    if not isinstance(res.details, CrossFitDetails):
+        raise InputError(
+            f"{needed_by} needs a result of orthoccp.estimate (the cross-fitted CCP estimator); "
+            f"got one of {res.method!r}."
+        )
+    return res.details
+
+
+_RESULT_TYPES: dict[str, type[Results]] = {}
 
 
 @dataclass(frozen=True, eq=False)
 class Results:
-    """Results of a CCP estimation.
+    """Results of an estimation: one frozen record for every estimator.
+
+    The fields below are shared by every estimator; the estimator's own facts are in
+    :attr:`details` (:class:`CrossFitDetails` for :func:`orthoccp.estimate`; the user-moment
+    and discrete estimators' details records for theirs). Reading ``res.<name>`` for a name
+    of the details (``res.folds``, ``res.converged``) returns ``res.details.<name>``; a name
+    the estimator does not have raises :class:`AttributeError` saying so.
 
     Attributes
     ----------
@@ -215,26 +562,32 @@ class Results:
     debiased : bool
         True for the orthogonal (locally robust) estimator; False for the plug-in one, whose
         standard errors ignore first-stage estimation noise.
+    model : dict
+        The model (or moment system) estimated, as a JSON-safe record.
+    seed : int
+        The seed that drove every fold split and learner.
+    cov_type, small_sample : str, bool
+        Covariance rule (:func:`orthoccp.covariance_names`) and whether the n/(n-1)
+        factor was applied.
+    n_units : int
+        Units (clusters).
+    accounting : RowAccounting
+        Which rows entered the moments, and why the others did not.
     decomposition : pandas.DataFrame
-        Share of each parameter's variance from the identifying moment ``m``, the continuation
-        correction ``phi_mu`` and the CCP correction ``phi_P``: each component's covariance
-        with the influence term over its variance, so the shares add up to one (a share is
-        negative when the component offsets the others).
+        Share of each parameter's variance from each part of the influence term: each
+        part's covariance with the influence term over its variance, so the shares add up
+        to one (a share is negative when the part offsets the others).
     influence : numpy.ndarray
         Per-unit influence terms (n_units x p); ``cov`` is their outer-product sum times the
         small-sample factor. ``influence_units`` holds the matching unit labels.
-    solve_routes, solve_notes : tuple of str
-        Per split, how the second stage was solved (``"newton"``, ``"root"``, ``"one_step"``,
-        or ``"plug-in"`` when not debiased; see :func:`orthoccp.solver.solve_orthogonal`) and
-        why a fallback route was taken.
-    interval_check : IntervalCheck or None
-        Signs that a parameter's normal interval may not hold (:mod:`orthoccp.interval_checks`);
-        None for the plug-in estimator.
-    model_ccp_steps : int
-        Model-implied CCP steps after the cross-fitted first stage (0: none); the summary
-        then labels ``plugin_params`` as the learner's first stage.
-    correction_weights : {"solution", "plugin"}
-        Where the corrections' weights were evaluated (:func:`orthoccp.estimate`).
+    details : Details
+        The estimator's own facts, settings and renderings.
+    timings : dict
+        Seconds per stage.
+    version : str
+        orthoccp version that produced the result.
+    reloaded : dict or None
+        The JSON record a result read by :meth:`from_json` came from.
     """
 
     params: pd.Series
@@ -242,52 +595,36 @@ class Results:
     cov: pd.DataFrame
     debiased: bool
     model: dict[str, Any]
-    learner: str
-    regressor: str
-    folds: int
-    splits: int
-    scheme: str
     seed: int
-    clip: float
     cov_type: str
     small_sample: bool
     n_units: int
     accounting: RowAccounting
-    clipped: dict[str, int]
     decomposition: pd.DataFrame
     influence: np.ndarray = field(repr=False)
     influence_units: np.ndarray = field(repr=False)
+    details: Details = field(repr=False)
     timings: dict[str, float] = field(default_factory=dict)
-    n_learner_fits: int = 0
-    iterations: int = 0
-    split_params: pd.DataFrame | None = field(default=None, repr=False)
-    plugin_params: pd.Series | None = None
-    nuisance_source: str = "cross-fitted"
-    model_ccp_steps: int = 0
-    moments: str = "standard"
-    correction_weights: str = "solution"
-    diagnostics: Any = field(default=None, repr=False)
-    fallback: dict[str, str] = field(default_factory=dict)
-    solve_routes: tuple[str, ...] = ()
-    solve_notes: tuple[str, ...] = ()
-    interval_check: Any = field(default=None, repr=False)
     version: str = ""
-    pieces: tuple[MomentPieces, ...] = field(default=(), repr=False)
     reloaded: dict[str, Any] | None = field(default=None, repr=False)
 
-    @cached_property
-    def split_spread(self) -> pd.Series | None:
-        """Per parameter, the standard deviation of the per-split estimates over the standard
-        error (``splits`` > 1; None otherwise): how much the fold split moves the answer."""
-        if self.split_params is None or len(self.split_params) < 2:
-            return None
-        sd = self.split_params.std(axis=0, ddof=1)
-        return (sd / self.std_errors).rename("split_spread")
+    def __init_subclass__(cls, **kwargs: Any) -> None:
+        super().__init_subclass__(**kwargs)
+        _RESULT_TYPES[cls.__name__] = cls
 
-    @property
-    def solution(self) -> str:
-        """One line on how the second stage was solved (all splits)."""
-        return describe_routes(self.solve_routes)
+    def __getattr__(self, name: str) -> Any:
+        # Called only when normal lookup fails: forward reads to the details record.
+        details = self.__dict__.get("details")
+        if details is None or name.startswith("_"):
+            raise AttributeError(name)
+        try:
+            return getattr(details, name)
+        except AttributeError:
+            raise AttributeError(
+                f"{type(self).__name__} has no attribute {name!r}: it is neither a field of "
+                f"every result nor one of this estimator's details ({type(details).__name__}: "
+                f"{', '.join(f.name for f in fields(details))})."
+            ) from None
 
     # ----------------------------------------------------------------- statistics
     @cached_property
@@ -301,9 +638,10 @@ class Results:
         return pd.Series(2 * stats.norm.sf(np.abs(self.zstats)), index=self.params.index, name="p")
 
     @property
-    def hansen_j(self) -> NotApplicable:
-        """Hansen's J: the built-in moment systems are just-identified."""
-        return NotApplicable("the moment system is just-identified (as many moments as parameters)")
+    def hansen_j(self) -> Any:
+        """Hansen's J (:class:`~orthoccp.custom.HansenJ`), or :class:`NotApplicable` with the
+        reason (the built-in moment systems are just-identified)."""
+        return self.details.hansen_j
 
     @property
     def n_rows(self) -> int:
@@ -343,11 +681,8 @@ class Results:
     # ----------------------------------------------------------------- views
     @property
     def method(self) -> str:
-        if self.reloaded is not None and "method" in self.reloaded:
-            return str(self.reloaded["method"])
-        if self.debiased:
-            return "orthogonal (debiased) CCP estimator"
-        return "plug-in CCP estimator (NOT debiased; standard errors ignore first-stage noise)"
+        """The estimator's name (from :attr:`details`)."""
+        return self.details.method(self.debiased)
 
     def derive(self, functions: Mapping[str, Function], *, level: float = 0.95) -> pd.DataFrame:
         r"""Functions of the parameters with delta-method standard errors and intervals.
@@ -380,155 +715,35 @@ class Results:
         """
         return delta_method(self.params, self.cov, functions, level=level)[0]
 
-    def moment_pieces(self, split: int = 1) -> MomentPieces:
-        r"""The per-row pieces of the moment the estimate solved (one fold split).
-
-        Parameters
-        ----------
-        split : int, default=1
-            Which fold split (1 to ``splits``).
-
-        Returns
-        -------
-        MomentPieces
-            Constructed regressors :math:`X_j`, offsets :math:`o_j`, instruments
-            :math:`A_j`, and :math:`m`, :math:`\phi_\mu`, :math:`\phi_P`, :math:`\psi` at
-            the split's solution or any :math:`\theta` (:mod:`orthoccp.pieces`).
-        """
-        if not self.pieces:
-            raise InputError(
-                "this result holds no per-row moment pieces: they are kept by "
-                "orthoccp.estimate (not by user moments, discrete estimators or reloaded "
-                "results)."
-            )
-        if isinstance(split, bool) or not isinstance(split, (int, np.integer)) or not (
-                1 <= split <= len(self.pieces)):
-            raise InputError(f"split must be an integer from 1 to {len(self.pieces)}, got {split!r}.")
-        return self.pieces[int(split) - 1]
-
-    def _function_block(self, functions: Mapping[str, Function] | None, level: float) -> list[str]:
-        if functions is None:
-            return []
-        return function_lines(self.derive(functions, level=level), level)
-
     def summary(self, level: float = 0.95, *, plugin: bool = True,
                 functions: Mapping[str, Function] | None = None) -> str:
-        """Plain-text summary: estimates, sample, first stage, variance sources, assumptions.
+        """Plain-text summary: estimates, sample, settings, variance sources, assumptions.
 
         Parameters
         ----------
         level : float, default=0.95
             Confidence level of the intervals.
         plugin : bool, default=True
-            Include the line with the plug-in estimates that the debiased solve starts from
+            Include the line with the plug-in estimates that a debiased solve starts from
             (leave it out when a separate plug-in estimate is shown beside the summary).
         functions : mapping, optional
             Functions of the parameters shown under the estimates, with delta-method
             intervals (:meth:`derive`).
         """
-        if self.reloaded is not None and self.reloaded.get("result_type") != "Results":
-            return self._reloaded_summary(level, functions)
-        lines = estimates_block([
-            f"orthoccp {self.version}: {self.method}",
-            f"model: {self.model['kind']}, anchor {show_label(self.model['anchor'])}, discount {self.model['discount']}",
-        ], self.to_frame(level), level) + self._function_block(functions, level)
-        if self.reloaded is not None:
-            lines.append("reloaded from JSON: the diagnostics and interval checks are records in "
-                         ".to_dict(); the per-row moment pieces are not kept")
-        lines.append(f"units {self.n_units}; {self.accounting.describe()}")
-        fs = (
-            f"first stage: {self.nuisance_source}; CCP learner {self.learner}, continuation "
-            f"regressor {self.regressor}; {self.folds} folds by unit, {self.splits} split(s), "
-            f"scheme {self.scheme}, seed {self.seed}; {self.n_learner_fits} learner fits"
-        )
-        lines.append(fs)
-        clipped = ", ".join(f"{k}: {v}" for k, v in self.clipped.items())
-        lines.append(f"probabilities clipped to [{self.clip:g}, {1 - self.clip:g}]; rows clipped per choice: {clipped}")
-        lines.append(covariance_line(self.cov_type, self.small_sample)
-                     + ("" if self.debiased else " (first-stage noise ignored)"))
-        if self.moments == "renewal_robust":
-            lines.append(
-                "moments: renewal_robust (instruments residualised on the persistent states "
-                + _short_list([str(x) for x in self.model.get("persistent", [])])
-                + "; assumes a renewal does not reset them)"
-            )
-            for name, why in self.fallback.items():
-                lines.append(f"  {name}: {why}")
-        elif self.debiased:
-            lines.append("moments: standard (pseudo-likelihood score with the full correction)")
-        if self.debiased and self.correction_weights == "plugin":
-            lines.append("corrections: weights fixed at the plug-in solution")
-        if self.split_spread is not None:
-            lines.append(
-                f"fold splits: across {self.splits} splits the estimates spread by "
-                + ", ".join(f"{k} {v:.2f}" for k, v in self.split_spread.items())
-                + " standard errors (standard deviation over s.e.; the reported estimate is "
-                "their median and the variance includes the spread)"
-            )
-        if self.solve_routes:
-            lines.append(f"solution: {self.solution}")
-            for k, note in enumerate(self.solve_notes):
-                if note:
-                    lines.append(f"  split {k + 1}: {' '.join(note.split())}")
-        stepped = self.model_ccp_steps > 0
-        if plugin and self.plugin_params is not None and (self.debiased or stepped):
-            if stepped:
-                label = ("plug-in estimates (the learner's first stage, before the model-implied "
-                         "steps): ")
-            elif self.moments == "renewal_robust":
-                label = ("plug-in estimates (start of the solve; the anchor's continuation is fit "
-                         "on the persistent states only, as the renewal-robust moment needs): ")
-            else:
-                label = "plug-in estimates (start of the solve): "
-            lines.append(
-                label + ", ".join(f"{k} {v:.4f}" for k, v in self.plugin_params.items())
-            )
-        lines.extend(variance_share_lines(
-            self.decomposition, "variance shares, Cov(part, psi)/Var(psi), adding up to 100% "
-            "(m: identifying moment, phi_mu: continuation correction, phi_P: CCP correction):"))
-        if self.interval_check is not None:
-            lines.extend(self.interval_check.readings())
-        if self.diagnostics is not None:
-            lines.append("diagnostics (see .diagnostics for the tables):")
-            lines.extend(f"  {r}" for r in self.diagnostics.readings())
-        lines.append(f"Hansen J: not applicable ({self.hansen_j.reason}).")
-        lines.append("Inference is valid only under the model's assumptions:")
-        lines.extend(f"  - {a}" for a in ASSUMPTIONS)
-        return "\n".join(lines)
-
-    def _reloaded_summary(self, level: float, functions: Mapping[str, Function] | None) -> str:
-        """The summary of a reloaded user-moment or discrete result: its numbers and settings."""
-        doc = self.reloaded or {}
         lines = estimates_block([f"orthoccp {self.version}: {self.method}",
-                                 f"reloaded from JSON ({doc.get('result_type')})"],
-                                self.to_frame(level), level) + self._function_block(functions, level)
-        lines.append(f"units {self.n_units}; {self.accounting.describe()}")
-        lines.append(covariance_line(self.cov_type, self.small_sample))
-        lines.append("Inference is valid only under the assumptions:")
-        lines.extend(f"  - {a}" for a in doc.get("assumptions", ASSUMPTIONS))
+                                 self.details.title(self)], self.to_frame(level), level)
+        if functions is not None:
+            lines += function_lines(self.derive(functions, level=level), level)
+        lines += self.details.lines(self, plugin=plugin)
+        lines.append("Inference is valid only under the model's assumptions:")
+        lines.extend(f"  - {a}" for a in self.details.assumptions)
         return "\n".join(lines)
 
     def __str__(self) -> str:
         return self.summary()
 
     def _repr_html_(self) -> str:
-        table = self.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
-        assumptions = "".join(f"<li>{a}</li>" for a in ASSUMPTIONS)
-        return (
-            f"<div><p><b>orthoccp</b>: {self.method}; model {self.model['kind']}, anchor "
-            f"{show_label(self.model['anchor'])}, discount {self.model['discount']}</p>{table}"
-            f"<p>units {self.n_units}; {self.accounting.describe()}<br>learner {self.learner}; "
-            f"{self.folds} folds, {self.splits} split(s), seed {self.seed}</p>"
-            f"<p>Coverage holds only under the assumptions:</p><ul>{assumptions}</ul></div>"
-        )
-
-    def _summary_html(self) -> str:
-        """HTML of an estimator whose facts are its summary's (user moments, discrete states):
-        the estimates table, then the plain-text summary, which names the estimator's own
-        settings and assumptions (not the CCP estimator's folds and learners)."""
-        table = self.to_frame().to_html(float_format=lambda v: f"{v:.4f}", border=0)
-        return (f"<div><p><b>orthoccp</b>: {html.escape(self.method)}</p>{table}"
-                f"<pre>{html.escape(self.summary())}</pre></div>")
+        return self.details.html(self)
 
     def to_latex(self, level: float = 0.95) -> str:
         """A booktabs-style LaTeX table of estimates and standard errors."""
@@ -555,71 +770,57 @@ class Results:
 
         Holds every number of the result, the per-unit influence terms included
         (``influence``: unit labels and an n_units x p table), so :meth:`from_dict` rebuilds
-        it. A reloaded result writes back the records it did not rebuild unchanged.
+        it. The estimator's own facts are under ``details`` (with their ``kind``). A reloaded
+        result writes back unchanged the records it did not rebuild (diagnostics, interval
+        checks) and those its writer added (the command line's ``inputs``).
         """
-        out = self._own_dict(level)
-        if self.reloaded is not None:
-            for key, value in self.reloaded.items():
-                if key in _NOT_REBUILT or key not in out:
-                    out[key] = value
-        return out
-
-    def _own_dict(self, level: float) -> dict[str, Any]:
         t = self.to_frame(level)
-        return {
-            "params": param_records(t),
-            "level": level,
-            "debiased": self.debiased,
-            "moments": self.moments,
-            "correction_weights": self.correction_weights,
-            "moments_fallback": dict(self.fallback),
-            "solution": {"routes": list(self.solve_routes), "notes": list(self.solve_notes),
-                         "summary": self.solution},
-            "interval_check": (None if self.interval_check is None
-                               else self.interval_check.to_dict()),
-            "diagnostics": None if self.diagnostics is None else self.diagnostics.to_dict(),
-            "model": {k: (v if k != "anchor" else str(v)) for k, v in self.model.items()},
-            "n_units": self.n_units,
-            "n_rows": self.accounting.n_rows,
-            "n_moment_rows": self.accounting.n_moment_rows,
-            "rows_excluded": dict(self.accounting.excluded),
-            "rows_dropped": dict(self.accounting.dropped),
-            "learner": self.learner,
-            "regressor": self.regressor,
-            "nuisance_source": self.nuisance_source,
-            "plugin_params": (None if self.plugin_params is None else
-                              {str(k): json_number(v) for k, v in self.plugin_params.items()}),
-            "folds": self.folds,
-            "splits": self.splits,
-            "scheme": self.scheme,
-            "seed": self.seed,
-            "clip": self.clip,
-            "cov_type": self.cov_type,
-            "small_sample": self.small_sample,
-            "timings": {k: json_number(v) for k, v in self.timings.items()},
-            "n_learner_fits": self.n_learner_fits,
-            "clipped": {str(k): int(v) for k, v in self.clipped.items()},
-            "variance_shares": {
-                str(p): {c: json_number(v) for c, v in row.items()} for p, row in self.decomposition.iterrows()
-            },
-            "cov": [[json_number(v) for v in row] for row in self.cov.to_numpy()],
-            "hansen_j": {"applicable": False, "reason": self.hansen_j.reason},
-            "assumptions": list(ASSUMPTIONS),
-            "version": self.version,
+        details = self.details.to_dict()
+        if self.reloaded is not None:
+            kept = self.reloaded.get("details") or {}
+            for key in self.details.not_rebuilt:
+                details[key] = kept.get(key)
+        hansen = self.hansen_j
+        out = {
             "format": RESULTS_FORMAT,
             "result_type": type(self).__name__,
             "method": self.method,
-            "iterations": self.iterations,
-            "model_ccp_steps": self.model_ccp_steps,
+            "version": self.version,
+            "params": param_records(t),
+            "level": level,
+            "debiased": self.debiased,
+            "model": {k: (v if k != "anchor" else str(v)) for k, v in self.model.items()},
+            "seed": self.seed,
+            "n_units": self.n_units,
+            "n_rows": self.accounting.n_rows,
+            "n_moment_rows": self.accounting.n_moment_rows,
             "n_corrected": self.accounting.n_corrected,
             "n_terminal": self.accounting.n_terminal,
-            "split_params": (None if self.split_params is None else
-                             [[json_number(v) for v in row] for row in self.split_params.to_numpy()]),
+            "rows_excluded": dict(self.accounting.excluded),
+            "rows_dropped": dict(self.accounting.dropped),
+            "cov_type": self.cov_type,
+            "small_sample": self.small_sample,
+            "cov": [[json_number(v) for v in row] for row in self.cov.to_numpy()],
+            "variance_shares": {
+                str(p): {c: json_number(v) for c, v in row.items()}
+                for p, row in self.decomposition.iterrows()
+            },
+            "hansen_j": (
+                {"applicable": False, "reason": hansen.reason} if isinstance(hansen, NotApplicable)
+                else {"applicable": True, "statistic": json_number(hansen.statistic),
+                      "df": int(hansen.df), "p_value": json_number(hansen.pvalue)}
+            ),
+            "assumptions": list(self.details.assumptions),
+            "timings": {k: json_number(v) for k, v in self.timings.items()},
             "influence": {
                 "units": [plain_label(u) for u in self.influence_units],
                 "values": [[json_number(v) for v in row] for row in np.asarray(self.influence)],
             },
+            "details": details,
         }
+        if self.reloaded is not None:  # records added by the writer (the command line's inputs)
+            out.update({k: v for k, v in self.reloaded.items() if k not in out})
+        return out
 
     def to_json(self, level: float = 0.95, **kwargs: Any) -> str:
         """:meth:`to_dict` serialised (``allow_nan=False``: never writes NaN).
@@ -641,11 +842,13 @@ class Results:
         Returns
         -------
         Results
-            The numbers of the original (estimates, covariance, influence terms, settings,
-            row accounting), so :func:`~orthoccp.difference_test`, :meth:`derive` and the
-            summary work on it. Objects that are not rebuilt (diagnostics tables, interval
-            checks, Hansen's J, the per-row moment pieces) are kept as the JSON records under
-            their keys, and :meth:`to_dict` writes them back unchanged.
+            Of the type that was written (:class:`Results`, or the user-moment or discrete
+            estimator's), with the numbers of the original (estimates, covariance, influence
+            terms, settings, row accounting), so :func:`~orthoccp.difference_test`,
+            :meth:`derive` and the summary work on it. Objects that are not rebuilt
+            (diagnostics tables, interval checks, the per-row moment pieces, the discrete
+            estimator's state-space solution) are left out; the JSON records of the first
+            two are kept, and :meth:`to_dict` writes them back unchanged.
         """
         if isinstance(source, os.PathLike) or (isinstance(source, str) and not source.lstrip().startswith("{")):
             path = Path(source)
@@ -667,69 +870,51 @@ class Results:
         if not isinstance(doc, Mapping) or doc.get("format") != RESULTS_FORMAT:
             found = doc.get("format") if isinstance(doc, Mapping) else type(doc).__name__
             raise InputError(
-                f"not an orthoccp results record (format {found!r}; expected "
-                f"{RESULTS_FORMAT!r}); write it with Results.to_json or 'orthoccp estimate "
-                f"--json' from orthoccp 0.1 or later."
+                f"not an orthoccp results record of this version (format {found!r}; expected "
+                f"{RESULTS_FORMAT!r}); write it again with Results.to_json or 'orthoccp "
+                f"estimate --json'."
             )
-
-        def num(v: Any) -> float:
-            return float("nan") if v is None else float(v)
-
         names = [p["name"] for p in doc["params"]]
         index = pd.Index(names, name="parameter")
-        cov = np.array([[num(v) for v in row] for row in doc["cov"]], dtype=np.float64)
+        std_errors = pd.Series([_float(p["std_error"]) for p in doc["params"]], index=index,
+                               name="std_error")
+        cov = np.array([[_float(v) for v in row] for row in doc["cov"]], dtype=np.float64)
         infl = doc["influence"]
         shares = doc.get("variance_shares") or {}
         decomposition = pd.DataFrame(
-            {c: [num(shares[p][c]) for p in names] for c in (shares[names[0]] if names and names[0] in shares else {})},
+            {c: [_float(shares[p][c]) for p in names]
+             for c in (shares[names[0]] if names and names[0] in shares else {})},
             index=pd.Index(names),
         )
-        split = doc.get("split_params")
-        plugin = doc.get("plugin_params")
         accounting = RowAccounting(
             n_rows=int(doc["n_rows"]), n_moment_rows=int(doc["n_moment_rows"]),
             n_corrected=int(doc["n_corrected"]), n_terminal=int(doc["n_terminal"]),
             excluded={str(k): int(v) for k, v in doc.get("rows_excluded", {}).items()},
             dropped={str(k): int(v) for k, v in doc.get("rows_dropped", {}).items()},
         )
-        solution = doc.get("solution") or {}
-        return Results(
-            params=pd.Series([num(p["estimate"]) for p in doc["params"]], index=index, name="estimate"),
-            std_errors=pd.Series([num(p["std_error"]) for p in doc["params"]], index=index,
-                                 name="std_error"),
+        details = Details.read(doc["details"], index=index, std_errors=std_errors)
+        result_type = _RESULT_TYPES.get(str(doc.get("result_type")), Results)
+        return result_type(
+            params=pd.Series([_float(p["estimate"]) for p in doc["params"]], index=index,
+                             name="estimate"),
+            std_errors=std_errors,
             cov=pd.DataFrame(cov, index=index, columns=index),
             debiased=bool(doc["debiased"]),
             model=dict(doc["model"]),
-            learner=str(doc["learner"]),
-            regressor=str(doc["regressor"]),
-            folds=int(doc["folds"]),
-            splits=int(doc["splits"]),
-            scheme=str(doc["scheme"]),
             seed=int(doc["seed"]),
-            clip=float(doc["clip"]),
             cov_type=str(doc["cov_type"]),
             small_sample=bool(doc["small_sample"]),
             n_units=int(doc["n_units"]),
             accounting=accounting,
-            clipped={str(k): int(v) for k, v in doc.get("clipped", {}).items()},
             decomposition=decomposition,
-            influence=np.array([[num(v) for v in row] for row in infl["values"]],
+            influence=np.array([[_float(v) for v in row] for row in infl["values"]],
                                dtype=np.float64).reshape(len(infl["units"]), len(names)),
             influence_units=np.array(infl["units"], dtype=object),
-            timings={str(k): num(v) for k, v in doc.get("timings", {}).items()},
-            n_learner_fits=int(doc.get("n_learner_fits", 0)),
-            iterations=int(doc.get("iterations", 0)),
-            split_params=(None if split is None else
-                          pd.DataFrame([[num(v) for v in row] for row in split], columns=index)),
-            plugin_params=(None if plugin is None else
-                           pd.Series([num(plugin[n]) for n in names], index=index, name="plug-in")),
-            nuisance_source=str(doc.get("nuisance_source", "")),
-            model_ccp_steps=int(doc.get("model_ccp_steps", 0)),
-            moments=str(doc.get("moments", "standard")),
-            correction_weights=str(doc.get("correction_weights", "solution")),
-            fallback={str(k): str(v) for k, v in doc.get("moments_fallback", {}).items()},
-            solve_routes=tuple(solution.get("routes", ())),
-            solve_notes=tuple(solution.get("notes", ())),
+            details=details,
+            timings={str(k): _float(v) for k, v in doc.get("timings", {}).items()},
             version=str(doc.get("version", "")),
             reloaded=dict(doc),
         )
+
+
+_RESULT_TYPES["Results"] = Results

@@ -60,8 +60,9 @@ def _numbers(res: oc.Results) -> Numbers:
         "cov": _floats(res.cov),
         "decomposition": _floats(res.decomposition.to_numpy(dtype=np.float64)),
     }
-    if res.plugin_params is not None:
-        out["plugin_params"] = _floats(res.plugin_params)
+    plugin = getattr(res.details, "plugin_params", None)  # estimators that start from one
+    if plugin is not None:
+        out["plugin_params"] = _floats(plugin)
     return out
 
 

@@ -8,7 +8,7 @@ for r in range(1, 9):
     row = [x for x in cf["rows"] if x["statistic"] == "share[overhaul]" and x["scenario"] == "difference"][0]
     base = [x for x in cf["rows"] if x["statistic"] == "share[overhaul]" and x["scenario"] == "baseline"][0]
     p = {q["name"]: q for q in est["params"]}
-    recs.append((r, row, base, p, est["interval_check"]))
+    recs.append((r, row, base, p, est.get("details", est)["interval_check"]))
 print("draw | cf diff est | s.e. | 95% CI | covers exact | covers 50k | base share est | wear_cost (se) cov | overhaul_cost (se) cov | flagged")
 for r, row, base, p, ic in recs:
     cov_ex = row["ci_lower"] <= T_EX <= row["ci_upper"]; cov_50 = row["ci_lower"] <= T_50 <= row["ci_upper"]

@@ -9,12 +9,13 @@ the corrected moment is insensitive to the nuisances.
 
 from ._check import OrthogonalityCheck, check_orthogonality
 from ._dictionary import dictionary_names
-from ._estimate import MomentFit, MomentResults, estimate_moments
+from ._estimate import MomentDetails, MomentFit, MomentResults, estimate_moments
 from ._gmm import HansenJ
 from ._spec import Nuisance, Rows
 
 __all__ = [
     "HansenJ",
+    "MomentDetails",
     "MomentFit",
     "MomentResults",
     "Nuisance",

@@ -180,7 +180,7 @@ def check_orthogonality(
     its standard error sums the per-row slopes by unit. An orthogonal moment has
     :math:`\\partial E[\\psi]/\\partial\\tau = 0` at the truth (Neyman orthogonality).
     """
-    fit = results.fit if isinstance(results, MomentResults) else results
+    fit = results.details.fit if isinstance(results, MomentResults) else results
     if not isinstance(fit, MomentFit):
         raise InputError(
             f"results must come from estimate_moments (a MomentResults or MomentFit), got "

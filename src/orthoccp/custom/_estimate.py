@@ -5,8 +5,8 @@ from __future__ import annotations
 import time
 import warnings
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field, replace
-from typing import Any
+from dataclasses import dataclass, field
+from typing import Any, ClassVar
 
 import numpy as np
 import pandas as pd
@@ -19,16 +19,15 @@ from .._version import __version__
 from ..covariance import check_cov_name, cluster_codes, estimate_covariance
 from ..data import Panel
 from ..folds import unit_folds
-from ..functions import Function
 from ..learners import LearnerPair, resolve_learners
-from ..results import NotApplicable, Results, RowAccounting, covariance_line, estimates_block
+from ..results import Details, NotApplicable, Results, RowAccounting, covariance_line, json_number
 from ._crossfit import FittedNuisance, crossfit
 from ._functions import MomentFunction
 from ._gmm import GMMFit, HansenJ, anderson_step, cluster_sums, two_step_gmm
 from ._riesz import RieszFit, check_method, correction_terms, fit_corrections
 from ._spec import Nuisance, Rows, bind_nuisance
 
-__all__ = ["estimate_moments", "MomentFit", "MomentResults"]
+__all__ = ["estimate_moments", "MomentDetails", "MomentFit", "MomentResults"]
 
 USER_ASSUMPTIONS = (
     "the moment has mean zero at the true parameters and the true nuisances",
@@ -64,63 +63,118 @@ class MomentFit:
 
 
 @dataclass(frozen=True, eq=False)
-class MomentResults(Results):
-    """:class:`~orthoccp.Results` of :func:`estimate_moments`, with Hansen's J when it applies.
+class MomentDetails(Details):
+    """Details of :func:`estimate_moments` (:attr:`MomentResults.details`).
 
     Attributes
     ----------
+    learner : str
+        Each nuisance's learner (``"name: learner; ..."``).
+    folds : int
+        Folds by unit of the cross-fitting.
+    clip : float
+        Binary nuisances are clipped to ``[clip, 1 - clip]``; ``clipped`` counts rows per
+        nuisance.
+    n_learner_fits, iterations : int
+        Learner fits (nuisances and learner-based Riesz fits) and second-stage iterations.
+    n_moments : int
+        Moments in the system.
+    nuisances : tuple of str
+        The nuisances' names.
+    correction : str
+        How the correction was built (Riesz regression, dictionary, next-row values, updates).
+    plugin_params : pandas.Series or None
+        The plug-in estimates (moments without corrections).
     hansen : HansenJ or NotApplicable
         The over-identification test (``NotApplicable`` for just-identified moments).
-    fit : MomentFit
-        Nuisance values and correction weights (used by :func:`check_orthogonality`).
+    fit : MomentFit or None
+        Nuisance values and correction weights (used by :func:`check_orthogonality`); None
+        when reloaded from JSON.
     """
 
+    kind: ClassVar[str] = "user-moments"
+    assumptions: ClassVar[tuple[str, ...]] = USER_ASSUMPTIONS
+
+    learner: str
+    folds: int
+    clip: float
+    clipped: dict[str, int]
+    n_learner_fits: int
+    iterations: int
+    n_moments: int
+    nuisances: tuple[str, ...]
+    correction: str
+    plugin_params: pd.Series | None = None
     hansen: HansenJ | NotApplicable = NotApplicable("not computed")
     fit: MomentFit | None = field(default=None, repr=False)
 
     @property
-    def hansen_j(self) -> HansenJ | NotApplicable:  # type: ignore[override]
+    def hansen_j(self) -> HansenJ | NotApplicable:
         return self.hansen
 
-    @property
-    def method(self) -> str:
-        if self.debiased:
+    def method(self, debiased: bool) -> str:
+        if debiased:
             return "GMM with user moments, automatically debiased (Riesz regression)"
         return "GMM with user moments, plug-in (NOT debiased; standard errors ignore first-stage noise)"
 
-    def summary(self, level: float = 0.95, *,
-                functions: Mapping[str, Function] | None = None) -> str:
-        """Plain-text summary; ``functions`` adds delta-method rows (:meth:`derive`)."""
-        lines = estimates_block([
-            f"orthoccp {self.version}: {self.method}",
-            f"moments: {self.model['n_moments']} for {len(self.params)} parameters; "
-            f"nuisances: {', '.join(self.model['nuisances'])}",
-        ], self.to_frame(level), level) + self._function_block(functions, level)
-        lines.append(f"units {self.n_units}; {self.accounting.describe()}")
-        lines.append(f"first stage: {self.learner}; {self.folds} folds by unit, seed {self.seed}; "
+    def title(self, res: Results) -> str:
+        return (f"moments: {self.n_moments} for {len(res.params)} parameters; "
+                f"nuisances: {', '.join(self.nuisances)}")
+
+    def lines(self, res: Results, *, plugin: bool) -> list[str]:
+        lines = ["reloaded from JSON: the nuisance fit is not kept"] if res.reloaded else []
+        lines.append(f"units {res.n_units}; {res.accounting.describe()}")
+        lines.append(f"first stage: {self.learner}; {self.folds} folds by unit, seed {res.seed}; "
                      f"{self.n_learner_fits} learner fits")
-        if self.debiased:
-            lines.append(f"correction: {self.model['riesz']}")
-        lines.append(covariance_line(self.cov_type, self.small_sample))
+        if res.debiased:
+            lines.append(f"correction: {self.correction}")
+        lines.append(covariance_line(res.cov_type, res.small_sample))
         h = self.hansen
-        lines.append(f"Hansen J: {h}" if isinstance(h, HansenJ) else f"Hansen J: not applicable ({h.reason}).")
-        lines.append("Inference is valid only under the assumptions:")
-        lines.extend(f"  - {a}" for a in USER_ASSUMPTIONS)
-        return "\n".join(lines)
+        lines.append(f"Hansen J: {h}" if isinstance(h, HansenJ)
+                     else f"Hansen J: not applicable ({h.reason}).")
+        return lines
 
-    def _repr_html_(self) -> str:
-        return self._summary_html()
-
-    def to_dict(self, level: float = 0.95) -> dict[str, Any]:
+    def to_dict(self) -> dict[str, Any]:
         h = self.hansen
-        # The base view expects a NotApplicable marker; the test result is written below.
-        out = Results.to_dict(replace(self, hansen=NotApplicable("-")), level)
-        out["hansen_j"] = (
-            {"applicable": True, "statistic": h.statistic, "df": h.df, "p_value": h.pvalue}
-            if isinstance(h, HansenJ) else {"applicable": False, "reason": h.reason}
+        return {
+            "kind": self.kind, "learner": self.learner, "folds": self.folds, "clip": self.clip,
+            "clipped": {str(k): int(v) for k, v in self.clipped.items()},
+            "n_learner_fits": self.n_learner_fits, "iterations": self.iterations,
+            "n_moments": self.n_moments, "nuisances": list(self.nuisances),
+            "correction": self.correction,
+            "plugin_params": (None if self.plugin_params is None else
+                              {str(k): json_number(v) for k, v in self.plugin_params.items()}),
+            "hansen": ({"statistic": json_number(h.statistic), "df": int(h.df),
+                        "p_value": json_number(h.pvalue)} if isinstance(h, HansenJ)
+                       else {"reason": h.reason}),
+        }
+
+    @classmethod
+    def from_dict(cls, doc: Mapping[str, Any], *, index: pd.Index,
+                  std_errors: pd.Series) -> MomentDetails:
+        h, plugin = doc.get("hansen") or {}, doc.get("plugin_params")
+        return cls(
+            learner=str(doc["learner"]), folds=int(doc["folds"]), clip=float(doc["clip"]),
+            clipped={str(k): int(v) for k, v in doc.get("clipped", {}).items()},
+            n_learner_fits=int(doc["n_learner_fits"]), iterations=int(doc["iterations"]),
+            n_moments=int(doc["n_moments"]), nuisances=tuple(doc["nuisances"]),
+            correction=str(doc["correction"]),
+            plugin_params=(None if plugin is None else pd.Series(
+                [float("nan") if plugin[n] is None else float(plugin[n]) for n in index],
+                index=index, name="plug-in")),
+            hansen=(HansenJ(float(h["statistic"]), int(h["df"]), float(h["p_value"]))
+                    if "statistic" in h else NotApplicable(str(h.get("reason", "")))),
         )
-        out["assumptions"] = list(USER_ASSUMPTIONS)
-        return out
+
+
+
+@dataclass(frozen=True, eq=False)
+class MomentResults(Results):
+    """:class:`~orthoccp.Results` of :func:`estimate_moments`: the shared record with
+    :class:`MomentDetails` (Hansen's J when it applies, the nuisance fit); ``res.hansen``,
+    ``res.fit`` and the other details read through to ``res.details``."""
+
+    details: MomentDetails = field(repr=False)
 
 
 def _check_options(folds: Any, seed: Any, clip: Any, parameters: Any, start: Any) -> np.ndarray:
@@ -416,21 +470,22 @@ def estimate_moments(
         + f"), next-row values {next_weights}"
         if riesz == "lasso" else f"learner-based Riesz fit ({riesz_learner}), next-row values {next_weights}"
     ) + (f"; weights at the estimate after {riesz_rounds} update(s)" if debias else "")
+    details = MomentDetails(
+        learner=describe, folds=int(folds), clip=float(clip),
+        clipped={f.name: f.clipped for f in fitted if f.design.spec.binary},
+        n_learner_fits=n_fits, iterations=iterations, n_moments=k,
+        nuisances=tuple(f.name for f in fitted), correction=riesz_text,
+        plugin_params=pd.Series(plug.theta, index=index, name="plug-in"), hansen=hansen, fit=fit,
+    )
     return MomentResults(
         params=pd.Series(theta, index=index, name="estimate"),
         std_errors=pd.Series(se, index=index, name="std_error"),
         cov=pd.DataFrame(ce.cov, index=index, columns=index),
         debiased=bool(debias),
-        model={"kind": "user moments", "anchor": "-", "discount": "-", "n_moments": k,
-               "nuisances": [f.name for f in fitted], "riesz": riesz_text},
-        learner=describe, regressor="-", folds=int(folds), splits=1, scheme="plain",
-        seed=int(seed), clip=float(clip), cov_type=cov, small_sample=bool(small_sample),
+        model={"kind": "user moments", "n_moments": k, "nuisances": [f.name for f in fitted]},
+        seed=int(seed), cov_type=cov, small_sample=bool(small_sample),
         n_units=panel.n_units, accounting=accounting,
-        clipped={f.name: f.clipped for f in fitted if f.design.spec.binary},
         decomposition=ce.decomposition, influence=ce.influence,
         influence_units=ce.cluster_labels(panel.unit_labels),
-        timings=timings, n_learner_fits=n_fits, iterations=iterations,
-        plugin_params=pd.Series(plug.theta, index=index, name="plug-in"),
-        nuisance_source="cross-fitted", moments="user", version=__version__,
-        hansen=hansen, fit=fit,
+        details=details, timings=timings, version=__version__,
     )

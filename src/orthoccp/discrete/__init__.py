@@ -20,13 +20,14 @@ from ..anchor import AnchorCheck, check_anchor_probability
 from ._estimate import DiscreteProblem, build_problem, estimate_discrete
 from ._forward import SimulatedValues, simulate_continuation
 from ._inversion import hotz_miller_values
-from ._results import DISCRETE_ASSUMPTIONS, DiscreteResults
+from ._results import DISCRETE_ASSUMPTIONS, DiscreteDetails, DiscreteResults
 from ._states import StateSpace, bin_states, state_space, utility_design
 from ._transitions import TransitionMatrices, estimate_transition_matrices
 
 __all__ = [
     "AnchorCheck",
     "DISCRETE_ASSUMPTIONS",
+    "DiscreteDetails",
     "DiscreteProblem",
     "DiscreteResults",
     "SimulatedValues",

@@ -23,7 +23,7 @@ from ..results import RowAccounting
 from ._forward import default_horizon, simulate_continuation
 from ._inversion import InversionTerms, PolicySystem, inversion_terms
 from ._pseudo import PseudoFit, cell_logit, newton_pseudo, pseudo_fit
-from ._results import DiscreteResults
+from ._results import DiscreteDetails, DiscreteResults, transition_record
 from ._smooth import classifier_ccp, sieve_ccp
 from ._states import StateSpace, state_space, utility_design
 from ._transitions import TransitionMatrices, estimate_transition_matrices
@@ -553,27 +553,26 @@ def _results(
     value = (last_terms.Wz @ fit.theta + last_terms.We) if isinstance(last_terms, InversionTerms) \
         else np.empty(0)
     simulated = values == "simulation"
+    details = DiscreteDetails(
+        estimator=estimator, values=values, initial_ccp=learner, clip=float(clip),
+        clipped=clipped, iterations=len(changes), converged=converged,
+        last_change=changes[-1], changes=tuple(changes), loglik=fit.loglik,
+        n_states=problem.space.n_states, n_paths=int(n_paths) if simulated else 0,
+        horizon=int(horizon) if simulated else 0,
+        transitions=transition_record(problem.transitions),
+        ccp=pd.DataFrame(ccp, columns=label_index(problem.choices)), value=value,
+        transition_matrices=problem.transitions, information=fit.information,
+        influence_parts=cv.parts,
+    )
     return DiscreteResults(
         params=pd.Series(fit.theta, index=index, name="estimate"),
         std_errors=pd.Series(se, index=index, name="std_error"),
         cov=pd.DataFrame(cv.cov, index=index, columns=index),
         debiased=True,
-        model={"kind": "discrete", "anchor": None, "discount": problem.discount,
-               "estimator": estimator, "values": values},
-        learner=learner,
-        regressor=("forward simulation" if simulated else "Hotz-Miller inversion"),
-        folds=0, splits=1, scheme="none", seed=int(seed), clip=float(clip), cov_type=cov,
-        small_sample=bool(small_sample), n_units=panel.n_units, accounting=accounting,
-        clipped=clipped, decomposition=cv.decomposition, influence=cv.influence,
-        influence_units=np.asarray(cv.cluster_labels(panel.unit_labels)), timings=timings,
-        n_learner_fits=0,
-        iterations=len(changes), nuisance_source=("NPL fixed point" if estimator == "npl"
-                                                  else "pseudo-likelihood steps"),
-        moments="pseudo_likelihood", version=__version__,
-        estimator=estimator, values=values, converged=converged, last_change=changes[-1],
-        changes=tuple(changes), loglik=fit.loglik, n_states=problem.space.n_states,
-        ccp=pd.DataFrame(ccp, columns=label_index(problem.choices)), value=value,
-        transitions=problem.transitions, n_paths=int(n_paths) if simulated else 0,
-        horizon=int(horizon) if simulated else 0, information=fit.information,
-        influence_parts=cv.parts,
+        model={"kind": "discrete", "discount": problem.discount, "estimator": estimator,
+               "values": values},
+        seed=int(seed), cov_type=cov, small_sample=bool(small_sample),
+        n_units=panel.n_units, accounting=accounting, decomposition=cv.decomposition,
+        influence=cv.influence, influence_units=np.asarray(cv.cluster_labels(panel.unit_labels)),
+        details=details, timings=timings, version=__version__,
     )

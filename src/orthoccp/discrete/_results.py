@@ -5,16 +5,15 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
 import pandas as pd
 
-from ..functions import Function
-from ..results import Results, covariance_line, estimates_block, json_number, variance_share_lines
+from ..results import Details, Results, covariance_line, json_number, variance_share_lines
 from ._transitions import TransitionMatrices
 
-__all__ = ["DISCRETE_ASSUMPTIONS", "DiscreteResults"]
+__all__ = ["DISCRETE_ASSUMPTIONS", "DiscreteDetails", "DiscreteResults", "transition_record"]
 
 DISCRETE_ASSUMPTIONS = (
     "type-I extreme-value (logit) utility shocks, i.i.d. across choices and periods",
@@ -31,21 +30,31 @@ _NAMES = {
 }
 
 
-@dataclass(frozen=True, eq=False)
-class DiscreteResults(Results):
-    """:class:`~orthoccp.Results` of :func:`~orthoccp.discrete.estimate_discrete`.
+def transition_record(tm: TransitionMatrices) -> dict[str, Any]:
+    """The JSON-safe record of the transition step: method, smoothing, counts, unseen cells."""
+    return {"method": tm.method, "smoothing": tm.smoothing, "n_transitions": tm.n_transitions,
+            "unseen": {str(k): int(v) for k, v in tm.unseen.items()}}
 
-    All the core views (``params``, ``std_errors``, ``conf_int``, ``summary``, ``to_json``)
-    work unchanged. Additional attributes:
+
+@dataclass(frozen=True, eq=False)
+class DiscreteDetails(Details):
+    """Details of :func:`~orthoccp.discrete.estimate_discrete` (:attr:`DiscreteResults.details`).
 
     Attributes
     ----------
     estimator : str
         ``"npl"`` (iterated to the fixed point) or ``"pml"`` (a fixed number of
-        pseudo-likelihood steps from the frequency CCPs).
+        pseudo-likelihood steps from the initial CCPs).
     values : str
         ``"inversion"`` (full Hotz--Miller inversion) or ``"simulation"`` (forward
         simulation, Hotz, Miller, Sanders & Smith 1994).
+    initial_ccp : str
+        Where the starting CCPs came from (cell frequencies, a classifier, a sieve).
+    clip : float
+        Starting CCPs are clipped to ``[clip, 1 - clip]``; ``clipped`` counts observed states
+        per choice.
+    iterations : int
+        NPL iterations or pseudo-likelihood steps.
     converged : bool
         NPL: the CCPs stopped changing (sup-norm change below ``tol``).
     last_change : float
@@ -56,100 +65,118 @@ class DiscreteResults(Results):
         Pseudo-log-likelihood at the estimate (at the NPL fixed point, the log-likelihood).
     n_states : int
         States of the state space.
-    ccp : pandas.DataFrame
-        (S, J) CCPs implied by the estimate (the fixed point for NPL).
-    value : numpy.ndarray
-        (S,) ex-ante value at the estimate (inversion only; empty for simulation).
-    transitions : TransitionMatrices
-        The transition step.
     n_paths, horizon : int
         Forward simulation: paths per state and choice, periods simulated (0 otherwise).
-    information : numpy.ndarray
+    transitions : dict
+        The transition step's record: ``method``, ``smoothing``, ``n_transitions``,
+        ``unseen`` (state-choice cells never observed).
+    ccp : pandas.DataFrame or None
+        (S, J) CCPs implied by the estimate (the fixed point for NPL).
+    value : numpy.ndarray or None
+        (S,) ex-ante value at the estimate (inversion only; empty for simulation).
+    transition_matrices : TransitionMatrices or None
+        The transition step itself.
+    information : numpy.ndarray or None
         (p, p) :math:`I = \\sum_s n_s \\sum_j \\Lambda_j g_j g_j'` (minus the pseudo-Hessian).
     influence_parts : dict
         ``"choices"`` and ``"transitions"``: the (n_clusters, p) influence terms
-        :math:`I^{-1} s_i` and :math:`I^{-1} c_i`; ``influence`` is their sum.
+        :math:`I^{-1} s_i` and :math:`I^{-1} c_i`; the result's ``influence`` is their sum.
+
+    The last four are not kept when the result is reloaded from JSON (None, empty).
     """
 
-    estimator: str = "npl"
-    values: str = "inversion"
-    converged: bool = True
-    last_change: float = 0.0
-    changes: tuple[float, ...] = ()
-    loglik: float = float("nan")
-    n_states: int = 0
+    kind: ClassVar[str] = "discrete"
+    assumptions: ClassVar[tuple[str, ...]] = DISCRETE_ASSUMPTIONS
+
+    estimator: str
+    values: str
+    initial_ccp: str
+    clip: float
+    clipped: dict[str, int]
+    iterations: int
+    converged: bool
+    last_change: float
+    changes: tuple[float, ...]
+    loglik: float
+    n_states: int
+    n_paths: int
+    horizon: int
+    transitions: dict[str, Any]
     ccp: pd.DataFrame | None = field(default=None, repr=False)
     value: np.ndarray | None = field(default=None, repr=False)
-    transitions: TransitionMatrices | None = field(default=None, repr=False)
-    n_paths: int = 0
-    horizon: int = 0
+    transition_matrices: TransitionMatrices | None = field(default=None, repr=False)
     information: np.ndarray | None = field(default=None, repr=False)
     influence_parts: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
-    @property
-    def method(self) -> str:
+    def method(self, debiased: bool) -> str:
         text = _NAMES.get(self.estimator, self.estimator)
         if self.values == "simulation":
             text += f", forward-simulated values ({self.n_paths} paths, horizon {self.horizon})"
         return text
 
-    def summary(self, level: float = 0.95, *,
-                functions: Mapping[str, Function] | None = None) -> str:
-        """Plain-text summary: estimates, iterations, transitions, variance sources, assumptions;
-        ``functions`` adds delta-method rows (:meth:`derive`)."""
-        lines = estimates_block([
-            f"orthoccp {self.version}: {self.method}",
-            f"model: discrete states ({self.n_states}), discount {self.model['discount']}; "
-            f"no renewal or terminal choice needed",
-        ], self.to_frame(level), level) + self._function_block(functions, level)
-        lines.append(f"units {self.n_units}; rows {self.n_rows} (all enter the likelihood); "
+    def title(self, res: Results) -> str:
+        return (f"model: discrete states ({self.n_states}), discount {res.model['discount']}; "
+                f"no renewal or terminal choice needed")
+
+    def lines(self, res: Results, *, plugin: bool) -> list[str]:
+        lines = (["reloaded from JSON: the state-space solution (CCPs, values, transition "
+                  "matrices) is not kept"] if res.reloaded else [])
+        lines.append(f"units {res.n_units}; rows {res.n_rows} (all enter the likelihood); "
                      f"log-likelihood {self.loglik:.4f}")
         if self.estimator == "npl":
-            lines.append(
-                f"NPL iterations {self.iterations}; last sup-norm CCP change "
-                f"{self.last_change:.3g}; converged {self.converged}"
-            )
+            lines.append(f"NPL iterations {self.iterations}; last sup-norm CCP change "
+                         f"{self.last_change:.3g}; converged {self.converged}")
         else:
-            lines.append(f"pseudo-likelihood steps {self.iterations} from {self.learner}")
+            lines.append(f"pseudo-likelihood steps {self.iterations} from {self.initial_ccp}")
         tm = self.transitions
-        if tm is not None:
-            extra = f", smoothing {tm.smoothing:g}" if tm.method == "frequency" and tm.smoothing else ""
-            lines.append(f"transitions: {tm.method}{extra} from {tm.n_transitions} observed "
-                         f"transitions")
+        extra = (f", smoothing {tm['smoothing']:g}" if tm["method"] == "frequency"
+                 and tm["smoothing"] else "")
+        lines.append(f"transitions: {tm['method']}{extra} from {tm['n_transitions']} observed "
+                     f"transitions")
         lines.append(
-            covariance_line(self.cov_type, self.small_sample)
+            covariance_line(res.cov_type, res.small_sample)
             + "; includes the transition estimate's noise"
             + (" and the simulation noise" if self.values == "simulation" else "")
         )
         lines.extend(variance_share_lines(
-            self.decomposition, "variance shares (choices: pseudo-score, transitions: first step):"))
-        lines.append("Inference is valid only under the model's assumptions:")
-        lines.extend(f"  - {a}" for a in DISCRETE_ASSUMPTIONS)
-        return "\n".join(lines)
+            res.decomposition, "variance shares (choices: pseudo-score, transitions: first step):"))
+        return lines
 
-    def _repr_html_(self) -> str:
-        return self._summary_html()
-
-    def to_dict(self, level: float = 0.95) -> dict[str, Any]:
-        """The core JSON fields plus the estimator's own (JSON-safe)."""
-        out = super().to_dict(level)
-        out["assumptions"] = list(DISCRETE_ASSUMPTIONS)
-        out["estimator"] = {
-            "name": self.estimator,
-            "values": self.values,
-            "converged": self.converged,
-            "iterations": self.iterations,
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "kind": self.kind, "estimator": self.estimator, "values": self.values,
+            "initial_ccp": self.initial_ccp, "clip": self.clip,
+            "clipped": {str(k): int(v) for k, v in self.clipped.items()},
+            "iterations": self.iterations, "converged": self.converged,
             "last_change": json_number(self.last_change),
             "changes": [json_number(c) for c in self.changes],
-            "loglik": json_number(self.loglik),
-            "n_states": self.n_states,
-            "n_paths": self.n_paths,
-            "horizon": self.horizon,
-            "transitions": None if self.transitions is None else {
-                "method": self.transitions.method,
-                "smoothing": self.transitions.smoothing,
-                "n_transitions": self.transitions.n_transitions,
-                "unseen": {str(k): int(v) for k, v in self.transitions.unseen.items()},
-            },
+            "loglik": json_number(self.loglik), "n_states": self.n_states,
+            "n_paths": self.n_paths, "horizon": self.horizon,
+            "transitions": dict(self.transitions),
         }
-        return out
+
+    @classmethod
+    def from_dict(cls, doc: Mapping[str, Any], *, index: pd.Index,
+                  std_errors: pd.Series) -> DiscreteDetails:
+        def num(v: Any) -> float:
+            return float("nan") if v is None else float(v)
+
+        return cls(
+            estimator=str(doc["estimator"]), values=str(doc["values"]),
+            initial_ccp=str(doc["initial_ccp"]), clip=float(doc["clip"]),
+            clipped={str(k): int(v) for k, v in doc.get("clipped", {}).items()},
+            iterations=int(doc["iterations"]), converged=bool(doc["converged"]),
+            last_change=num(doc["last_change"]), changes=tuple(num(c) for c in doc["changes"]),
+            loglik=num(doc["loglik"]), n_states=int(doc["n_states"]),
+            n_paths=int(doc["n_paths"]), horizon=int(doc["horizon"]),
+            transitions=dict(doc["transitions"]),
+        )
+
+
+@dataclass(frozen=True, eq=False)
+class DiscreteResults(Results):
+    """:class:`~orthoccp.Results` of :func:`~orthoccp.discrete.estimate_discrete`: the shared
+    record with :class:`DiscreteDetails` (iterations, log-likelihood, the state-space solution);
+    ``res.converged``, ``res.ccp`` and the other details read through to ``res.details``."""
+
+    details: DiscreteDetails = field(repr=False)

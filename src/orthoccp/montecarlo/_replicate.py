@@ -13,6 +13,7 @@ from ..data import Panel
 from ..estimate import estimate
 from ..learners import resolve_learners
 from ..model import Model
+from ..results import cross_fit_details
 from ._settings import _CATCH, _CORRECTED, _EXACT, _SEED_BOUND, MonteCarloSettings
 
 
@@ -111,8 +112,9 @@ def _fit_one(
         )
         for p in res.params.index
     }
-    checks = {} if res.interval_check is None else res.interval_check.to_dict()
-    return values, str(res.moments), "", n_warn, seconds, ",".join(res.solve_routes), checks
+    d = cross_fit_details(res, needed_by="run_montecarlo")
+    checks = {} if d.interval_check is None else d.interval_check.to_dict()
+    return values, str(d.moments), "", n_warn, seconds, ",".join(d.solve_routes), checks
 
 
 def _signal(checks: dict[str, dict[str, Any]], param: Any, name: str) -> float:
