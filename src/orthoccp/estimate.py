@@ -5,7 +5,7 @@ from __future__ import annotations
 import time
 import warnings
 from contextvars import ContextVar
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -23,7 +23,7 @@ from .folds import unit_folds
 from .backends import FeatureRows, resolve_backend
 from .checks import warn_if_not_persistent, warn_if_not_reset
 from ._random import stream
-from .instruments import persistent_feature_columns, plan_robust, renewal_robust_system
+from .instruments import RobustPlan, persistent_feature_columns, plan_robust, renewal_robust_system
 from .learners import resolve_learners
 from .model import BoundModel, Model
 from .moments import build_moment_system
@@ -228,6 +228,81 @@ def estimate(
     Newey & Robins (2022) Econometrica 90.
     """
     t_start = time.perf_counter()
+    plan = _plan(panel, model, learner=learner, regressor=regressor, folds=folds, seed=seed,
+                 debias=debias, splits=splits, scheme=scheme, clip=clip, cov=cov,
+                 small_sample=small_sample, moments=moments, nuisances=nuisances,
+                 model_ccp_steps=model_ccp_steps, correction_weights=correction_weights,
+                 backend=backend, n_jobs=n_jobs)
+    fits = []
+    for split in range(1 if nuisances is not None else splits):  # a loop: warnings' stacklevel
+        fits.append(_fit_split(plan, split))
+    return _assemble(plan, fits, t_start=t_start)
+
+
+@dataclass(frozen=True, eq=False)
+class _Plan:
+    """The checked inputs of one call of :func:`estimate`: what every fold split uses."""
+
+    panel: Panel
+    model: Model
+    bound: BoundModel
+    pair: Any
+    runner: Any
+    rows: np.ndarray
+    corrected: np.ndarray
+    accounting: RowAccounting
+    moments: str
+    robust: RobustPlan | None
+    fcols: np.ndarray | None
+    static: bool
+    debias: bool
+    fixed: bool
+    folds: int
+    seed: int
+    scheme: str
+    clip: float
+    cov: str
+    small_sample: bool
+    model_ccp_steps: int
+    nuisances: Nuisances | None
+    correction_weights: str
+
+    @property
+    def corrects(self) -> bool:
+        """Whether the moment carries the corrections (debiased and dynamic)."""
+        return self.debias and not self.static
+
+
+@dataclass(frozen=True, eq=False)
+class _SplitFit:
+    """One fold split's first stage, solution and covariance."""
+
+    theta: np.ndarray
+    plugin: np.ndarray
+    cov: np.ndarray
+    influence: pd.DataFrame
+    decomposition: pd.DataFrame
+    route: str
+    note: str
+    one_step: np.ndarray | None
+    unseen: np.ndarray | None
+    pieces: MomentPieces
+    n_fits: int
+    iterations: int
+    clipped: dict[Any, int]
+    n_clipped_moment_rows: int
+    first_stage_s: float
+    second_stage_s: float
+    identification: np.ndarray | None = None
+    diagnostics: Diagnostics | None = None
+
+
+def _plan(panel: Any, model: Any, *, learner: Any, regressor: Any, folds: Any, seed: Any,
+          debias: Any, splits: Any, scheme: Any, clip: Any, cov: Any, small_sample: Any,
+          moments: Any, nuisances: Nuisances | None, model_ccp_steps: Any,
+          correction_weights: Any, backend: Any, n_jobs: Any) -> _Plan:
+    """Check every input of :func:`estimate` and bind the model (the warnings about the
+    model's assumptions are issued here, once)."""
     if not isinstance(panel, Panel):
         raise InputError(
             f"panel must be an orthoccp.Panel, got {type(panel).__name__}; wrap the DataFrame "
@@ -249,255 +324,260 @@ def estimate(
     moments = _choose_moments(bound, moments, debias)
     _check_model_ccp_steps(model_ccp_steps, moments=moments, nuisances=nuisances, bound=bound)
     check_option("correction_weights", correction_weights)
-    fixed = correction_weights == "plugin"
     rows, corrected, accounting = account_rows(bound)
     if rows.size < panel.n_rows:
         bound._check_identified(rows)
     pair = resolve_learners(learner, regressor)
-    params = bound.parameters
-    p = len(params)
-    static = not bound.has_next_stage
-
     robust = moments == "renewal_robust"
-    fcols = persistent_feature_columns(bound) if robust else None
-    plan = plan_robust(bound) if robust else None
     if robust:
-        warn_if_not_persistent(bound)
-    warn_if_not_reset(bound)
-    if nuisances is not None:
-        splits = 1
-    thetas, covs, influences, decomps, plugins = [], [], [], [], []
-    pieces: list[MomentPieces] = []
-    routes: list[str] = []
-    route_notes: list[str] = []
-    one_steps: list[np.ndarray] = []
-    unseen: list[np.ndarray] = []
-    identification: np.ndarray | None = None
-    n_fits = 0
-    n_clipped_moment_rows = 0
-    clipped: dict[Any, int] = {}
-    timings = {"first_stage_s": 0.0, "second_stage_s": 0.0}
-    iterations = 0
-    diagnostics: Diagnostics | None = None
-    for split in range(splits):
-        t0 = time.perf_counter()
-        if nuisances is not None:
-            nuis = nuisances
-        elif static:
-            J = len(panel.choices)
-            nuis = Nuisances(
-                ccp=np.full((panel.n_rows, J), 1.0 / J),
-                mu=np.full((panel.n_rows, J, bound.n_targets), np.nan),
-            )
-        else:
-            nuis = _cross_fitted(bound, pair, int(folds), int(seed), split=split, scheme=scheme,
-                                 clip=float(clip), anchor_features=fcols, backend=runner)
-        timings["first_stage_s"] += time.perf_counter() - t0
-        n_fits += nuis.n_fits
-        learner_nuis = nuis  # the learner's out-of-fold nuisances, for the diagnostics
+        warn_if_not_persistent(bound, stacklevel=4)
+    warn_if_not_reset(bound, stacklevel=4)
+    return _Plan(
+        panel=panel, model=model, bound=bound, pair=pair, runner=runner, rows=rows,
+        corrected=corrected, accounting=accounting, moments=moments,
+        robust=plan_robust(bound) if robust else None,
+        fcols=persistent_feature_columns(bound) if robust else None,
+        static=not bound.has_next_stage, debias=bool(debias),
+        fixed=correction_weights == "plugin", folds=int(folds), seed=int(seed),
+        scheme=scheme, clip=float(clip), cov=cov, small_sample=bool(small_sample),
+        model_ccp_steps=int(model_ccp_steps), nuisances=nuisances,
+        correction_weights=str(correction_weights),
+    )
 
-        if split == 0 and debias and moments == "standard" and not static:
-            # Before the solve, which is the step a tiny P_R can break. Only the probability
-            # rule warns here; the expected-count rule, which small panels trip easily, is
-            # left to the diagnostics' reading.
-            check = check_anchor_probability(
-                panel, nuis.ccp, anchor=panel.choices[bound.anchor_index], kind=model.kind,  # type: ignore[arg-type]
-                min_expected=0.0,
-            )
-            if check.warning:
-                warnings.warn(check.warning, OrthoCCPWarning, stacklevel=2)
 
-        t1 = time.perf_counter()
-        system = build_moment_system(bound, nuis, rows, corrected)
-        theta0, info = solve_plugin(system)
-        theta = theta0
-        if robust:
-            assert plan is not None and fcols is not None
-            row_folds = nuis.folds if nuis.folds is not None else unit_folds(
-                panel.unit_codes, int(folds), stream(seed, "folds", split=split),
-                unit_keys=panel.unit_keys,
-            )
-            system = renewal_robust_system(
-                system, theta0, FeatureRows(panel.features, rows, fcols), row_folds[rows], plan,
-                pair, stream(seed, "projections", split=split), backend=runner,
-            )
-            n_fits += int(folds) * int(plan.robust.sum())
-        if debias and not static:
-            if fixed:
-                system = replace(system, correction_theta=np.array(theta0, dtype=np.float64))
-            try:
-                theta, info = solve_orthogonal(system, theta0)
-            except EstimationError as exc:
-                if robust:
-                    _raise_if_reset(bound, exc)
-                _name_the_unidentified(exc, system, theta0, params)
-                raise
-        iterations += info.iterations
-        step_rng = stream(seed, "ccp_steps", split=split)
-        for _ in range(int(model_ccp_steps)):
-            t2 = time.perf_counter()
-            implied, hit = model_ccp_clipped(bound, nuis, theta, clip)
-            nuis = refit_anchor_target(bound, pair, nuis, implied, step_rng, backend=runner,
-                                       clipped=hit)
-            n_fits += nuis.n_fits
-            timings["first_stage_s"] += time.perf_counter() - t2
-            system = build_moment_system(bound, nuis, rows, corrected)
-            theta, info = solve_plugin(system)  # plugin_params keep the learner's plug-in
-            if debias:
-                if fixed:
-                    system = replace(system, correction_theta=np.array(theta, dtype=np.float64))
-                theta, info = solve_orthogonal(system, theta)
-            iterations += info.iterations
-        routes.append(info.route if debias and not static else "plug-in")
-        if info.one_step is not None:
-            one_steps.append(info.one_step)
-        if split == 0 and debias and not static:
-            Z = bound.Z[rows]
-            identification = identification_strength(
-                system.X, Z - Z[:, bound.anchor_index : bound.anchor_index + 1, :],
-                system.probabilities(theta),
-            )
-        route_notes.append(info.note)
-        if info.route != "newton" and debias:
-            warnings.warn(
-                f"split {split + 1}: {info.note}.", OrthoCCPWarning, stacklevel=2
-            )
-        # Clipping counts of the CCPs the final moment uses (the model's after the steps).
-        for k, v in nuis.clipped.items():
-            clipped[k] = clipped.get(k, 0) + v
-        if nuis.clipped_rows is not None:
-            # A moment row depends on the CCP at its next row.
-            nxt = panel.next_row[rows]
-            hit_rows = nuis.clipped_rows[np.where(nxt >= 0, nxt, rows)]
-            n_clipped_moment_rows += int(hit_rows.sum())
-        comps = system.components(theta, debias=debias and not static)
-        if debias and not static:
-            unseen.append(unseen_variance(system, theta))
-        ce = estimate_covariance(
-            cov,
-            jacobian=system.jacobian(theta),
-            components=comps,
-            units=system.units,
-            parameters=params,
-            small_sample=small_sample,
+def _first_stage(plan: _Plan, split: int) -> Nuisances:
+    """The split's nuisances: supplied, none needed (static), or cross-fitted."""
+    if plan.nuisances is not None:
+        return plan.nuisances
+    if plan.static:
+        J = len(plan.panel.choices)
+        return Nuisances(ccp=np.full((plan.panel.n_rows, J), 1.0 / J),
+                         mu=np.full((plan.panel.n_rows, J, plan.bound.n_targets), np.nan))
+    return _cross_fitted(plan.bound, plan.pair, plan.folds, plan.seed, split=split,
+                         scheme=plan.scheme, clip=plan.clip, anchor_features=plan.fcols,
+                         backend=plan.runner)
+
+
+def _fix_weights(plan: _Plan, system: Any, at: np.ndarray) -> Any:
+    """With ``correction_weights="plugin"``, the system with its corrections' weights fixed at
+    ``at``; otherwise the system itself."""
+    if plan.fixed:
+        return replace(system, correction_theta=np.array(at, dtype=np.float64))
+    return system
+
+
+def _fit_split(plan: _Plan, split: int) -> _SplitFit:
+    """One fold split: first stage, plug-in solve, instruments, orthogonal solve, model-implied
+    steps, covariance, and (split 1) the diagnostics and identification strength."""
+    bound, panel, params = plan.bound, plan.panel, plan.bound.parameters
+    t0 = time.perf_counter()
+    nuis = _first_stage(plan, split)
+    first_stage_s = time.perf_counter() - t0
+    n_fits = nuis.n_fits
+    learner_nuis = nuis  # the learner's out-of-fold nuisances, for the diagnostics
+
+    if split == 0 and plan.corrects and plan.moments == "standard":
+        # Before the solve, which is the step a tiny P_R can break. Only the probability
+        # rule warns here; the expected-count rule, which small panels trip easily, is
+        # left to the diagnostics' reading.
+        check = check_anchor_probability(
+            panel, nuis.ccp, anchor=panel.choices[bound.anchor_index], kind=plan.model.kind,  # type: ignore[arg-type]
+            min_expected=0.0,
         )
-        timings["second_stage_s"] += time.perf_counter() - t1
-        if split == 0 and not static:
-            diagnostics = compute_diagnostics(
-                bound, learner_nuis, rows, clip=float(clip),
-                influence=ce.influence if cov == "clustered" else None,
-                influence_units=panel.unit_labels[ce.clusters] if cov == "clustered" else None,
-            )
-        pieces.append(MomentPieces(
-            system=system, index=panel.source_index[rows], units=panel.unit_labels[system.units],
-            choices=panel.choices, parameters=params, theta=np.array(theta, dtype=np.float64),
-            debiased=bool(debias and not static)))
-        thetas.append(theta)
-        plugins.append(theta0)
-        covs.append(ce.cov)
-        decomps.append(ce.decomposition)
-        influences.append(pd.DataFrame(ce.influence, index=ce.clusters))
+        if check.warning:
+            warnings.warn(check.warning, OrthoCCPWarning, stacklevel=3)
 
-    theta_hat = np.median(np.vstack(thetas), axis=0)
-    if splits == 1:
-        V = covs[0]
+    t1 = time.perf_counter()
+    system = build_moment_system(bound, nuis, plan.rows, plan.corrected)
+    theta0, info = solve_plugin(system)
+    theta = theta0
+    if plan.robust is not None:
+        assert plan.fcols is not None
+        row_folds = nuis.folds if nuis.folds is not None else unit_folds(
+            panel.unit_codes, plan.folds, stream(plan.seed, "folds", split=split),
+            unit_keys=panel.unit_keys,
+        )
+        system = renewal_robust_system(
+            system, theta0, FeatureRows(panel.features, plan.rows, plan.fcols),
+            row_folds[plan.rows], plan.robust, plan.pair,
+            stream(plan.seed, "projections", split=split), backend=plan.runner,
+        )
+        n_fits += plan.folds * int(plan.robust.robust.sum())
+    if plan.corrects:
+        system = _fix_weights(plan, system, theta0)
+        try:
+            theta, info = solve_orthogonal(system, theta0)
+        except EstimationError as exc:
+            if plan.robust is not None:
+                _raise_if_reset(bound, exc)
+            _name_the_unidentified(exc, system, theta0, params)
+            raise
+    iterations = info.iterations
+    step_rng = stream(plan.seed, "ccp_steps", split=split)
+    for _ in range(plan.model_ccp_steps):
+        t2 = time.perf_counter()
+        implied, hit = model_ccp_clipped(bound, nuis, theta, plan.clip)
+        nuis = refit_anchor_target(bound, plan.pair, nuis, implied, step_rng,
+                                   backend=plan.runner, clipped=hit)
+        n_fits += nuis.n_fits
+        first_stage_s += time.perf_counter() - t2
+        system = build_moment_system(bound, nuis, plan.rows, plan.corrected)
+        theta, info = solve_plugin(system)  # plugin_params keep the learner's plug-in
+        if plan.debias:
+            system = _fix_weights(plan, system, theta)
+            theta, info = solve_orthogonal(system, theta)
+        iterations += info.iterations
+    if info.route != "newton" and plan.debias:
+        warnings.warn(f"split {split + 1}: {info.note}.", OrthoCCPWarning, stacklevel=3)
+    n_clipped = 0
+    if nuis.clipped_rows is not None:
+        # A moment row depends on the CCP at its next row.
+        nxt = panel.next_row[plan.rows]
+        n_clipped = int(nuis.clipped_rows[np.where(nxt >= 0, nxt, plan.rows)].sum())
+    ce = estimate_covariance(
+        plan.cov, jacobian=system.jacobian(theta),
+        components=system.components(theta, debias=plan.corrects), units=system.units,
+        parameters=params, small_sample=plan.small_sample,
+    )
+    second_stage_s = time.perf_counter() - t1
+    identification = diagnostics = None
+    if split == 0 and plan.corrects:
+        Z = bound.Z[plan.rows]
+        identification = identification_strength(
+            system.X, Z - Z[:, bound.anchor_index : bound.anchor_index + 1, :],
+            system.probabilities(theta),
+        )
+    if split == 0 and not plan.static:
+        clustered = plan.cov == "clustered"
+        diagnostics = compute_diagnostics(
+            bound, learner_nuis, plan.rows, clip=plan.clip,
+            influence=ce.influence if clustered else None,
+            influence_units=panel.unit_labels[ce.clusters] if clustered else None,
+        )
+    return _SplitFit(
+        theta=theta, plugin=theta0, cov=ce.cov,
+        influence=pd.DataFrame(ce.influence, index=ce.clusters),
+        decomposition=ce.decomposition,
+        route=info.route if plan.corrects else "plug-in", note=info.note,
+        one_step=info.one_step,
+        unseen=unseen_variance(system, theta) if plan.corrects else None,
+        pieces=MomentPieces(
+            system=system, index=panel.source_index[plan.rows],
+            units=panel.unit_labels[system.units], choices=panel.choices, parameters=params,
+            theta=np.array(theta, dtype=np.float64), debiased=plan.corrects),
+        n_fits=n_fits, iterations=iterations, clipped=dict(nuis.clipped),
+        n_clipped_moment_rows=n_clipped, first_stage_s=first_stage_s,
+        second_stage_s=second_stage_s, identification=identification, diagnostics=diagnostics,
+    )
+
+
+def _assemble(plan: _Plan, fits: list[_SplitFit], *, t_start: float) -> Results:
+    """Combine the splits (median estimate; covariance with the splits' spread), warn about
+    clipping and flagged intervals, and build the results record."""
+    params = plan.bound.parameters
+    index = pd.Index(params, name="parameter")
+    thetas = np.vstack([f.theta for f in fits])
+    theta_hat = np.median(thetas, axis=0)
+    if len(fits) == 1:
+        V = fits[0].cov
     else:
         V = np.median(
-            np.stack([c + np.outer(t - theta_hat, t - theta_hat) for c, t in zip(covs, thetas)]),
+            np.stack([f.cov + np.outer(f.theta - theta_hat, f.theta - theta_hat) for f in fits]),
             axis=0,
         )
     se = np.sqrt(np.diag(V))
     if not np.all(np.isfinite(theta_hat)) or not np.all(np.isfinite(se)):
         raise InputError("estimation produced non-finite estimates or standard errors.")
-    infl = sum(influences) / len(influences)
-    decomposition = sum(decomps) / len(decomps)
+    infl = sum(f.influence for f in fits) / len(fits)
+    decomposition = sum(f.decomposition for f in fits) / len(fits)
 
-    n_clipped_rows = n_clipped_moment_rows // splits
-    if n_clipped_rows > 0.01 * accounting.n_moment_rows and not static:
+    n_clipped_rows = sum(f.n_clipped_moment_rows for f in fits) // len(fits)
+    n_moment_rows = plan.accounting.n_moment_rows
+    if n_clipped_rows > 0.01 * n_moment_rows and not plan.static:
         warnings.warn(
-            f"{n_clipped_rows} of {accounting.n_moment_rows} moment rows (more than 1%) use a "
-            f"probability clipped at [{clip:g}, {1 - clip:g}]; estimates may be "
+            f"{n_clipped_rows} of {n_moment_rows} moment rows (more than 1%) use a "
+            f"probability clipped at [{plan.clip:g}, {1 - plan.clip:g}]; estimates may be "
             f"sensitive to the clip bound. Inspect overlap or use a smoother learner.",
-            OrthoCCPWarning,
-            stacklevel=2,
+            OrthoCCPWarning, stacklevel=3,
         )
-
+    routes = [f.route for f in fits]
     checks = None
-    if debias and not static and len(one_steps) == len(thetas):
+    if plan.corrects and all(f.one_step is not None for f in fits):
         checks = interval_check(
-            params, estimates=np.vstack(thetas), plugins=np.vstack(plugins),
-            one_steps=np.vstack(one_steps), std_errors=se, influence=infl.to_numpy(),
-            identification=identification, routes=routes, cov=V,
-            unseen=np.vstack(unseen) if len(unseen) == len(thetas) else None,
+            params, estimates=thetas, plugins=np.vstack([f.plugin for f in fits]),
+            one_steps=np.vstack([f.one_step for f in fits]), std_errors=se,
+            influence=infl.to_numpy(), identification=fits[0].identification, routes=routes,
+            cov=V, unseen=np.vstack([f.unseen for f in fits]),
         )
-        which = (f"first stage {pair.name}" if nuisances is None
+        which = (f"first stage {plan.pair.name}" if plan.nuisances is None
                  else "nuisances supplied by the caller")
         for reading in checks.readings() if checks.flagged else ():
-            warnings.warn(f"{reading} [{which}, seed {seed}]", OrthoCCPWarning, stacklevel=2)
+            warnings.warn(f"{reading} [{which}, seed {plan.seed}]", OrthoCCPWarning,
+                          stacklevel=3)
 
-    timings["learner_fit_s"] = runner.tally.fit_s
-    timings["learner_predict_s"] = runner.tally.predict_s
-    timings["total_s"] = time.perf_counter() - t_start
-    index = pd.Index(params, name="parameter")
-    if static:
-        source = "none needed (discount 0: static logit)"
-    elif nuisances is not None:
-        source = "supplied by the caller"
-    else:
-        source = "cross-fitted"
-        if model_ccp_steps:
-            source += (f", then {int(model_ccp_steps)} model-implied CCP step"
-                       f"{'s' if model_ccp_steps > 1 else ''} (ln P_R regressions refitted "
-                       f"with plain cross-fitting)")
-    params_hat = pd.Series(theta_hat, index=index, name="estimate")
+    timings = {"first_stage_s": sum(f.first_stage_s for f in fits),
+               "second_stage_s": sum(f.second_stage_s for f in fits),
+               "learner_fit_s": plan.runner.tally.fit_s,
+               "learner_predict_s": plan.runner.tally.predict_s,
+               "total_s": time.perf_counter() - t_start}
     std_errors = pd.Series(se, index=index, name="std_error")
-    split_params = pd.DataFrame(np.vstack(thetas), columns=index) if splits > 1 else None
-    fitted_here = nuisances is None and not static
+    split_params = pd.DataFrame(thetas, columns=index) if len(fits) > 1 else None
+    fitted_here = plan.nuisances is None and not plan.static
+    clipped: dict[str, int] = {}
+    for f in fits:  # the CCPs the final moment uses (the model's after the steps)
+        for k, v in f.clipped.items():
+            clipped[str(k)] = clipped.get(str(k), 0) + int(v)
     details = CrossFitDetails(
-        learner=pair.name if fitted_here else "-",
-        regressor=pair.regressor_name if fitted_here else "-",
-        folds=int(folds),
-        splits=int(splits),
-        scheme=scheme,
-        clip=float(clip),
-        clipped={str(k): int(v) for k, v in clipped.items()},
-        n_learner_fits=n_fits,
-        iterations=iterations,
-        split_params=split_params,
+        learner=plan.pair.name if fitted_here else "-",
+        regressor=plan.pair.regressor_name if fitted_here else "-",
+        folds=plan.folds, splits=len(fits), scheme=plan.scheme, clip=plan.clip,
+        clipped=clipped, n_learner_fits=sum(f.n_fits for f in fits),
+        iterations=sum(f.iterations for f in fits), split_params=split_params,
         split_spread=CrossFitDetails.spread(split_params, std_errors),
-        plugin_params=pd.Series(np.median(np.vstack(plugins), axis=0), index=index, name="plug-in"),
-        nuisance_source=source,
-        model_ccp_steps=int(model_ccp_steps) if fitted_here else 0,
-        correction_weights=str(correction_weights),
-        moments=moments,
-        diagnostics=diagnostics,
-        fallback=dict(plan.reasons) if plan is not None else {},
-        solve_routes=tuple(routes),
-        solve_notes=tuple(route_notes),
-        interval_check=checks,
-        pieces=tuple(pieces),
+        plugin_params=pd.Series(np.median(np.vstack([f.plugin for f in fits]), axis=0),
+                                index=index, name="plug-in"),
+        nuisance_source=_nuisance_source(plan),
+        model_ccp_steps=plan.model_ccp_steps if fitted_here else 0,
+        correction_weights=plan.correction_weights, moments=plan.moments,
+        diagnostics=fits[0].diagnostics,
+        fallback=dict(plan.robust.reasons) if plan.robust is not None else {},
+        solve_routes=tuple(routes), solve_notes=tuple(f.note for f in fits),
+        interval_check=checks, pieces=tuple(f.pieces for f in fits),
     )
-    results = Results(
-        params=params_hat,
+    clustered = plan.cov == "clustered"
+    return Results(
+        params=pd.Series(theta_hat, index=index, name="estimate"),
         std_errors=std_errors,
         cov=pd.DataFrame(V, index=index, columns=index),
-        debiased=bool(debias),
-        model=model.to_dict(),
-        seed=int(seed),
-        cov_type=cov,
-        small_sample=bool(small_sample),
-        n_units=panel.n_units,
-        accounting=accounting,
+        debiased=plan.debias,
+        model=plan.model.to_dict(),
+        seed=plan.seed,
+        cov_type=plan.cov,
+        small_sample=plan.small_sample,
+        n_units=plan.panel.n_units,
+        accounting=plan.accounting,
         decomposition=decomposition,
         influence=infl.to_numpy(),
-        influence_units=(
-            panel.unit_labels[infl.index.to_numpy()] if cov == "clustered" else infl.index.to_numpy()
-        ),
+        influence_units=(plan.panel.unit_labels[infl.index.to_numpy()] if clustered
+                         else infl.index.to_numpy()),
         details=details,
         timings=timings,
         version=__version__,
     )
-    return results
+
+
+def _nuisance_source(plan: _Plan) -> str:
+    """Where the nuisances came from, as the summary's first-stage line says it."""
+    if plan.static:
+        return "none needed (discount 0: static logit)"
+    if plan.nuisances is not None:
+        return "supplied by the caller"
+    source = "cross-fitted"
+    steps = plan.model_ccp_steps
+    if steps:
+        source += (f", then {steps} model-implied CCP step{'s' if steps > 1 else ''} (ln P_R "
+                   f"regressions refitted with plain cross-fitting)")
+    return source
 
 
 # A store of cross-fitted first stages, keyed by everything they depend on, set by
