@@ -326,17 +326,9 @@ def estimate_moments(
         )
     specs = _check_nuisances(nuisances)
     theta0 = _check_options(folds, seed, clip, parameters, start)
-    check_method(riesz, penalty, next_weights)
-    check_cov_name(cov)
-    for name, flag in (("debias", debias), ("small_sample", small_sample)):
-        if not isinstance(flag, (bool, np.bool_)):
-            raise InputError(f"{name} must be True or False, got {flag!r}.")
-    if isinstance(riesz_updates, bool) or not isinstance(riesz_updates, (int, np.integer)) or riesz_updates < 1:
-        raise InputError(f"riesz_updates must be a positive integer, got {riesz_updates!r}.")
-    if isinstance(riesz_tol, bool) or not isinstance(riesz_tol, (int, float)) or not (
-        np.isfinite(riesz_tol) and riesz_tol > 0
-    ):
-        raise InputError(f"riesz_tol must be a positive number, got {riesz_tol!r}.")
+    _check_second_stage(riesz=riesz, penalty=penalty, next_weights=next_weights, cov=cov,
+                        debias=debias, small_sample=small_sample, riesz_updates=riesz_updates,
+                        riesz_tol=riesz_tol)
     rows = Rows(panel)
     mfun = MomentFunction(moment, rows)
     designs = [bind_nuisance(s, panel, rows) for s in specs]
@@ -382,58 +374,32 @@ def estimate_moments(
     result = plug
     riesz_fits: list[RieszFit] = []
     phis: dict[str, np.ndarray] = {}
-    pair = _riesz_pair(riesz_learner) if (debias and riesz == "learner") else None
     iterations = plug.iterations
     riesz_rounds = 0
     if debias:
-        # Fixed point theta = T(theta), T(x) = the debiased solve with the weights fitted at
-        # x, by Anderson-accelerated iteration; the weights of the last solve then belong to
-        # the reported estimate (|T(x) - x| <= riesz_tol).
-        x = plug.theta
-        moved = np.inf
-        history: list[tuple[np.ndarray, np.ndarray]] = []
-        # The same seeds for the learner-based Riesz fits at every update (a fresh ``riesz``
-        # stream each time): the weights are then a function of theta alone and the iteration
-        # can settle.
-        plain_next = x  # the last plain image T(x): where a rejected accelerated step goes
-        accelerated = False
-        for update in range(int(riesz_updates)):
-            try:
-                riesz_fits, extra_fits = fit_corrections(
-                    mfun, x, fitted, rows, fold_of_row, method=riesz,  # type: ignore[arg-type]
-                    penalty=float(penalty), next_weights=next_weights,  # type: ignore[arg-type]
-                    riesz_pair=pair, rng=stream(seed, "riesz"), clip=float(clip),
-                )
-                n_fits += extra_fits
-                phis = correction_terms(fitted, riesz_fits, rows, nu)
-                result = two_step_gmm(*system(sum(phis.values(), zero)), x, what="debiased GMM")
-            except EstimationError:
-                if not accelerated:
-                    raise
-                x, history, accelerated = plain_next, [], False
-                continue
-            iterations += result.iterations
-            step = float(np.max(np.abs(result.theta - x) / (1.0 + np.abs(x))))
-            if accelerated and step > moved:
-                # The accelerated point did worse than the plain iteration: take the plain
-                # image instead and start the history afresh (a safeguarded Anderson scheme).
-                x, history, accelerated = plain_next, [], False
-                continue
-            moved = step
-            if moved <= riesz_tol:
-                break
-            history.append((x, result.theta))
-            plain_next = result.theta
-            x = anderson_step(history, memory=p + 1)
-            accelerated = not np.array_equal(x, plain_next)
-        riesz_rounds = update + 1
-        if moved > riesz_tol:
-            warnings.warn(
-                f"the Riesz weights did not reach a fixed point in riesz_updates="
-                f"{riesz_updates} updates: the last update moved the estimate by "
-                f"{moved:.3g} (relative; riesz_tol={riesz_tol:g}). Raise riesz_updates.",
-                OrthoCCPWarning, stacklevel=2,
+        pair = _riesz_pair(riesz_learner) if riesz == "learner" else None
+
+        riesz_learner_fits = [0]
+
+        def solve_at(x: np.ndarray) -> tuple[GMMFit, list[RieszFit], dict[str, np.ndarray]]:
+            """T(x): the debiased solve with the Riesz weights fitted at x (the same seeds at
+            every update, a fresh ``riesz`` stream each time, so T depends on x alone)."""
+            fits, extra = fit_corrections(
+                mfun, x, fitted, rows, fold_of_row, method=riesz,  # type: ignore[arg-type]
+                penalty=float(penalty), next_weights=next_weights,  # type: ignore[arg-type]
+                riesz_pair=pair, rng=stream(seed, "riesz"), clip=float(clip),
             )
+            riesz_learner_fits[0] += extra  # counted even when the solve below fails
+            terms = correction_terms(fitted, fits, rows, nu)
+            solved = two_step_gmm(*system(sum(terms.values(), zero)), x, what="debiased GMM")
+            return solved, fits, terms
+
+        fixed = _riesz_fixed_point(solve_at, plug.theta, updates=int(riesz_updates),
+                                   tol=float(riesz_tol), memory=p + 1)
+        result, riesz_fits, phis = fixed.result, fixed.riesz_fits, fixed.phis
+        n_fits += riesz_learner_fits[0]
+        iterations += fixed.iterations
+        riesz_rounds = fixed.rounds
     theta = result.theta
     timings["second_stage_s"] = time.perf_counter() - t1
 
@@ -489,3 +455,83 @@ def estimate_moments(
         influence_units=ce.cluster_labels(panel.unit_labels),
         details=details, timings=timings, version=__version__,
     )
+
+
+def _check_second_stage(*, riesz: Any, penalty: Any, next_weights: Any, cov: Any, debias: Any,
+                        small_sample: Any, riesz_updates: Any, riesz_tol: Any) -> None:
+    """The options of :func:`estimate_moments`'s correction and second stage."""
+    check_method(riesz, penalty, next_weights)
+    check_cov_name(cov)
+    for name, flag in (("debias", debias), ("small_sample", small_sample)):
+        if not isinstance(flag, (bool, np.bool_)):
+            raise InputError(f"{name} must be True or False, got {flag!r}.")
+    if isinstance(riesz_updates, bool) or not isinstance(riesz_updates, (int, np.integer)) or riesz_updates < 1:
+        raise InputError(f"riesz_updates must be a positive integer, got {riesz_updates!r}.")
+    if isinstance(riesz_tol, bool) or not isinstance(riesz_tol, (int, float)) or not (
+        np.isfinite(riesz_tol) and riesz_tol > 0
+    ):
+        raise InputError(f"riesz_tol must be a positive number, got {riesz_tol!r}.")
+
+
+@dataclass(frozen=True, eq=False)
+class _FixedPoint:
+    """The debiased solve whose Riesz weights were fitted at its own estimate."""
+
+    result: GMMFit
+    riesz_fits: list[RieszFit]
+    phis: dict[str, np.ndarray]
+    iterations: int
+    rounds: int
+
+
+def _riesz_fixed_point(
+    solve_at: Callable[[np.ndarray], tuple[GMMFit, list[RieszFit], dict[str, np.ndarray]]],
+    start: np.ndarray, *, updates: int, tol: float, memory: int,
+) -> _FixedPoint:
+    r"""The fixed point :math:`\theta = T(\theta)`, :math:`T(x)` = the debiased solve with the
+    weights fitted at :math:`x`, by safeguarded Anderson-accelerated iteration.
+
+    The weights of the last solve belong to the reported estimate
+    (:math:`|T(x) - x| \le` ``tol``, relative). An accelerated point that fails to solve or
+    moves more than the plain iteration did is replaced by the last plain image, and the
+    history starts afresh. Warns when ``updates`` are used up (Walker & Ni 2011, SIAM J.
+    Numer. Anal. 49, on Anderson acceleration).
+    """
+    x = start
+    moved = np.inf
+    history: list[tuple[np.ndarray, np.ndarray]] = []
+    plain_next = x  # the last plain image T(x): where a rejected accelerated step goes
+    accelerated = False
+    iterations = 0
+    result: GMMFit | None = None
+    fits: list[RieszFit] = []
+    phis: dict[str, np.ndarray] = {}
+    for update in range(updates):
+        try:
+            result, fits, phis = solve_at(x)
+        except EstimationError:
+            if not accelerated:
+                raise
+            x, history, accelerated = plain_next, [], False
+            continue
+        iterations += result.iterations
+        step = float(np.max(np.abs(result.theta - x) / (1.0 + np.abs(x))))
+        if accelerated and step > moved:
+            x, history, accelerated = plain_next, [], False
+            continue
+        moved = step
+        if moved <= tol:
+            break
+        history.append((x, result.theta))
+        plain_next = result.theta
+        x = anderson_step(history, memory=memory)
+        accelerated = not np.array_equal(x, plain_next)
+    if moved > tol:
+        warnings.warn(
+            f"the Riesz weights did not reach a fixed point in riesz_updates={updates} "
+            f"updates: the last update moved the estimate by {moved:.3g} (relative; "
+            f"riesz_tol={tol:g}). Raise riesz_updates.",
+            OrthoCCPWarning, stacklevel=3,
+        )
+    assert result is not None  # the first update either solves or raises
+    return _FixedPoint(result, fits, phis, iterations, update + 1)
