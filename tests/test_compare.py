@@ -30,7 +30,7 @@ def test_difference_test_matches_hand_computation(comparison) -> None:  # type: 
     np.testing.assert_allclose(t["std_error"], se)
     np.testing.assert_allclose(t["difference"], a.params - b.params)
     w = t.attrs["wald"]
-    assert w["dof"] == 2 and 0 <= w["p_value"] <= 1
+    assert w["df"] == 2 and 0 <= w["p_value"] <= 1
 
 
 def test_identical_estimators_differ_by_zero(comparison) -> None:  # type: ignore[no-untyped-def]

@@ -183,7 +183,7 @@ def test_static_logit_matches_greene_and_statsmodels() -> None:
     d = sm.datasets.spector.load_pandas().data
     df = d.assign(unit=np.arange(len(d)), period=0, grade=d["GRADE"].astype(int))
     panel = oc.Panel(df, unit="unit", period="period", choice="grade", states=["GPA", "TUCE", "PSI"])
-    res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic",
+    res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic", small_sample=False,
                             utility={0: {}, 1: {"const": "1", "GPA": "GPA", "TUCE": "TUCE", "PSI": "PSI"}})
     published = {"const": -13.021, "GPA": 2.826, "TUCE": 0.095, "PSI": 2.379}
     for k, v in published.items():
@@ -202,7 +202,7 @@ def test_static_multinomial_matches_statsmodels_mnlogit() -> None:
     df = d.assign(unit=np.arange(len(d)), period=0, pid=d["PID"].astype(int))
     panel = oc.Panel(df, unit="unit", period="period", choice="pid", states=cols)
     utility = {0: {}, **{j: {f"const_{j}": "1", **{f"{c}_{j}": c for c in cols}} for j in range(1, 7)}}
-    res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic",
+    res = estimate_discrete(panel, discount=0.0, estimator="pml", cov="heteroskedastic", small_sample=False,
                             utility=utility)
     fit = sm.MNLogit(d["PID"], sm.add_constant(d[cols])).fit(
         disp=0, method="newton", maxiter=100, cov_type="HC0")
@@ -430,7 +430,8 @@ def test_results_object_views(bus_panel: oc.Panel) -> None:
     assert [p["name"] for p in out["params"]] == ["theta11", "RC"]
     assert res.conf_int().shape == (2, 2)
     assert res.influence.shape == (50, 2)
-    np.testing.assert_allclose(res.cov.to_numpy(), res.influence.T @ res.influence)
+    # the default small-sample factor G/(G-1), G = 50 buses (the shared option's default)
+    np.testing.assert_allclose(res.cov.to_numpy(), 50 / 49 * res.influence.T @ res.influence)
 
 
 def test_unit_relabelling_and_row_order_do_not_change_estimates(bus_frame: pd.DataFrame) -> None:

@@ -125,7 +125,7 @@ def _fake(comparison, loss: dict[str, float], p_single: list[float], p_joint: fl
             res.details, diagnostics=dataclasses.replace(d, ccp_quality=q)))
     test = comparison.tests["lasso"].copy()
     test["p_value"] = p_single
-    test.attrs["wald"] = {"statistic": 9.0, "dof": 2, "p_value": p_joint}
+    test.attrs["wald"] = {"statistic": 9.0, "df": 2, "p_value": p_joint}
     return dataclasses.replace(comparison, results=results, tests={"lasso": test})
 
 

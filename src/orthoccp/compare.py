@@ -74,8 +74,8 @@ def difference_test(a: Results, b: Results) -> pd.DataFrame:
         index=a.params.index,
     )
     wald = float(diff @ np.linalg.pinv(V) @ diff)
-    dof = int(np.linalg.matrix_rank(V))
-    table.attrs["wald"] = {"statistic": wald, "dof": dof, "p_value": float(stats.chi2.sf(wald, dof))}
+    df = int(np.linalg.matrix_rank(V))
+    table.attrs["wald"] = {"statistic": wald, "df": df, "p_value": float(stats.chi2.sf(wald, df))}
     return table
 
 
@@ -158,7 +158,7 @@ class Comparison:
         for label, test in self.tests.items():
             w = test.attrs["wald"]
             lines.append(
-                f"joint test {label} = {self.baseline}: Wald {w['statistic']:.2f} on {w['dof']} df, "
+                f"joint test {label} = {self.baseline}: Wald {w['statistic']:.2f} on {w['df']} df, "
                 f"p = {w['p_value']:.3f}"
             )
         lines.append(

@@ -295,7 +295,7 @@ def _estimates_section(comparison: Comparison, truth: Mapping[str, float] | None
         for label, test in comparison.tests.items():
             w = test.attrs["wald"]
             parts.append(f"<p>Joint test {_e(label)} = {_e(comparison.baseline)}: Wald "
-                         f"{w['statistic']:.2f} on {w['dof']} degrees of freedom, p = "
+                         f"{w['statistic']:.2f} on {w['df']} degrees of freedom, p = "
                          f"{w['p_value']:.3f}.</p>" + _joint_note(test))
         parts.append("<p class='note'>The tests use both estimators' per-unit influence terms "
                      "on the same units (no efficiency assumption); they are valid under the "

@@ -117,7 +117,8 @@ def _inventory_panel() -> oc.Panel:
 def _discrete(**options: Any) -> Callable[[], Numbers]:
     def run() -> Numbers:
         common: dict[str, Any] = dict(utility=INVENTORY.utility_spec(), discount=INVENTORY.discount,
-                                      n_states=INVENTORY.n_states)
+                                      n_states=INVENTORY.n_states,
+                                      small_sample=False)  # the default when recorded
         common.update(options)
         return _numbers(estimate_discrete(_inventory_panel(), **common))
 

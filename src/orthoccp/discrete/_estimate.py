@@ -216,7 +216,7 @@ def estimate_discrete(
     horizon: int | None = None,
     seed: int = 0,
     cov: str = "clustered",
-    small_sample: bool = False,
+    small_sample: bool = True,
     transition_noise: bool = True,
 ) -> DiscreteResults:
     """Pseudo-likelihood and NPL estimation of a dynamic logit model with discrete states.
@@ -294,8 +294,10 @@ def estimate_discrete(
         random numbers).
     cov : {"clustered", "heteroskedastic"}, default="clustered"
         Sum the influence terms by unit (decision maker), or treat rows as independent.
-    small_sample : bool, default=False
-        Multiply the covariance by G/(G-1) (G clusters).
+    small_sample : bool, default=True
+        Multiply the covariance by G/(G-1) (G clusters), as every estimator does by default
+        (the shared option ``small_sample``); False gives the textbook sandwich that
+        maximum-likelihood references report.
     transition_noise : bool, default=True
         Add the transition estimate's sampling noise to the covariance.
 
