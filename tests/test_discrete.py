@@ -299,23 +299,40 @@ def test_pml_transition_correction_matches_finite_differences(inventory_panel: o
         np.testing.assert_allclose(ours, fd, rtol=1e-5, atol=1e-7 * np.abs(fd).max())
 
 
-def test_increment_transitions_reproduce_reference(bus_frame: pd.DataFrame) -> None:
-    # The reference's Rust (1987) first step: same pmf and matrices.
+def test_increment_transitions_are_rusts_first_step(bus_frame: pd.DataFrame) -> None:
+    # Rust (1987), first step: the increment pmf is the sample frequency of x' - b (b = x after
+    # keep, 0 after replace) over the transitions that cannot be censored at the last state,
+    # and F_j(s' | s) puts pmf[k] on min(b_j(s) + k, S - 1). Computed here by hand; the
+    # full-solution reference's first step (orthoccp.reference.estimate_transitions, which
+    # the discrete-state estimators' code now serves) must return the same dense matrices.
     from orthoccp.reference import estimate_transitions
 
     df = bus_frame
+    S = 175
     s = df["mileage"].to_numpy()
     a = (df["action"] == "replace").to_numpy().astype(int)
     nxt = np.r_[s[1:], -1]
     linked = np.r_[df["bus"].to_numpy()[1:] == df["bus"].to_numpy()[:-1], False]
     rows = np.flatnonzero(linked)
-    ours = estimate_transition_matrices(s[rows], a[rows], nxt[rows], n_states=175,
+    base = np.where(a[rows] == 1, 0, s[rows])
+    inc = nxt[rows] - base
+    K = int(inc.max())
+    counted = inc[base + K <= S - 1]
+    pmf = np.bincount(counted, minlength=K + 1) / counted.size
+    F = np.zeros((2, S, S))
+    for j, b in enumerate((np.arange(S), np.zeros(S, dtype=int))):
+        for k, pk in enumerate(pmf):
+            np.add.at(F[j], (np.arange(S), np.minimum(b + k, S - 1)), pk)
+    ours = estimate_transition_matrices(s[rows], a[rows], nxt[rows], n_states=S,
                                         choices=("keep", "replace"), method="increments",
                                         reset_choices=["replace"])
-    ref = estimate_transitions(s[rows], a[rows], nxt[rows], n_states=175,
+    ref = estimate_transitions(s[rows], a[rows], nxt[rows], n_states=S,
                                choices=("keep", "replace"), method="increments", anchor=1)
-    np.testing.assert_allclose(ours.increments, ref.increments, atol=1e-15)
-    np.testing.assert_allclose(ours.dense(), ref.matrices, atol=1e-15)
+    for got in (ours.increments, ref.increments):
+        np.testing.assert_allclose(got, pmf, atol=1e-15)
+    for got in (ours.dense(), ref.matrices):
+        np.testing.assert_allclose(got, F, atol=1e-15)
+    assert ours.n_transitions == ref.n_transitions == counted.size
 
 
 

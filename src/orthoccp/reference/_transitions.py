@@ -1,6 +1,8 @@
 """First step of the two-step NFXP: state transition matrices from the observed transitions.
 
-Three sources:
+The computation is the discrete-state estimators' first step
+(:func:`orthoccp.discrete.estimate_transition_matrices`, without smoothing), returned as dense
+arrays for the full-solution likelihood. Three sources:
 
 ``"frequency"``
     cell frequencies :math:`\\hat F_j(s' \\mid s) = n_{j s s'} / n_{j s}`;
@@ -20,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from .._errors import InputError
-from .._labels import keys_by_label, show_label
+from ..discrete._transitions import estimate_transition_matrices
 
 __all__ = ["TransitionEstimate", "estimate_transitions"]
 
@@ -106,94 +108,33 @@ def estimate_transitions(
     :math:`\\hat F_j(s' \\mid s) = \\sum_k \\hat\\theta_{3k} 1\\{s' = \\min(b_j(s) + k, S-1)\\}`.
     """
     S = int(n_states)
-    J = len(choices)
     state = np.asarray(state, dtype=np.int64)
     choice = np.asarray(choice, dtype=np.int64)
     next_state = np.asarray(next_state, dtype=np.int64)
-
-    if isinstance(method, Mapping):
-        return _given(method, S, choices)
-    if method == "frequency":
-        return _frequency(state, choice, next_state, S, choices, anchor)
-    if method == "increments":
-        return _increments(state, choice, next_state, S, J, choices, anchor, reset_state,
-                           max_increment)
-    raise InputError(
-        f"transitions must be 'frequency', 'increments' or a mapping choice -> (S, S) matrix, "
-        f"got {method!r}."
+    increment_range = None
+    if isinstance(method, Mapping) or method == "frequency":
+        pass
+    elif method == "increments":
+        increment_range = (0, _largest_increment(state, choice, next_state, S, anchor,
+                                                 reset_state, max_increment))
+    else:
+        raise InputError(
+            f"transitions must be 'frequency', 'increments' or a mapping choice -> (S, S) "
+            f"matrix, got {method!r}."
+        )
+    tm = estimate_transition_matrices(
+        state, choice, next_state, n_states=S, choices=choices, method=method,
+        reset_choices=() if anchor is None else (choices[anchor],), reset_state=reset_state,
+        increment_range=increment_range,
     )
+    return TransitionEstimate(matrices=tm.dense(), method=tm.method, increments=tm.increments,
+                              n_transitions=tm.n_transitions, unseen_cells=dict(tm.unseen))
 
 
-def _given(
-    method: Mapping[Any, Any], S: int, choices: tuple[Hashable, ...]
-) -> TransitionEstimate:
-    mats = np.empty((len(choices), S, S))
-    for j, (c, key) in enumerate(zip(choices, keys_by_label(method, choices, role="transitions key"))):
-        if key is None:
-            raise InputError(
-                f"transitions has no matrix for choice {c!r}; give one (S, S) matrix per choice "
-                f"({', '.join(map(repr, choices))})."
-            )
-        m = np.asarray(method[key], dtype=np.float64)
-        if m.shape != (S, S):
-            raise InputError(
-                f"transitions[{c!r}] must have shape ({S}, {S}) (the number of states), got "
-                f"{m.shape}."
-            )
-        if not np.all(np.isfinite(m)) or m.min() < 0 or np.max(np.abs(m.sum(axis=1) - 1)) > 1e-9:
-            raise InputError(
-                f"transitions[{c!r}] must be row-stochastic (non-negative rows summing to 1)."
-            )
-        mats[j] = m
-    return TransitionEstimate(matrices=mats, method="given")
-
-
-def _frequency(
-    state: np.ndarray,
-    choice: np.ndarray,
-    next_state: np.ndarray,
-    S: int,
-    choices: tuple[Hashable, ...],
-    anchor: int | None,
-) -> TransitionEstimate:
-    J = len(choices)
-    counts = np.zeros((J, S, S))
-    np.add.at(counts, (choice, state, next_state), 1.0)
-    mats = np.empty_like(counts)
-    unseen: dict[Any, int] = {}
-    for j in range(J):
-        pooled = counts[j].sum(axis=0)
-        if pooled.sum() == 0:
-            raise InputError(
-                f"choice {show_label(choices[j])} is never followed by an observed next state; its "
-                f"transition matrix cannot be estimated by frequencies. Pass it as a given "
-                f"matrix (transitions={{...}})."
-            )
-        pooled = pooled / pooled.sum()
-        if anchor is not None and j == anchor:
-            mats[j] = pooled[None, :]
-            unseen[choices[j]] = 0
-            continue
-        rows = counts[j].sum(axis=1)
-        seen = rows > 0
-        mats[j] = np.where(seen[:, None], counts[j] / np.where(seen, rows, 1.0)[:, None], pooled)
-        unseen[choices[j]] = int((~seen).sum())
-    return TransitionEstimate(
-        matrices=mats, method="frequency", n_transitions=int(state.size), unseen_cells=unseen
-    )
-
-
-def _increments(
-    state: np.ndarray,
-    choice: np.ndarray,
-    next_state: np.ndarray,
-    S: int,
-    J: int,
-    choices: tuple[Hashable, ...],
-    anchor: int | None,
-    reset_state: int,
-    max_increment: int | None,
-) -> TransitionEstimate:
+def _largest_increment(state: np.ndarray, choice: np.ndarray, next_state: np.ndarray, S: int,
+                       anchor: int | None, reset_state: Any, max_increment: int | None) -> int:
+    """K of Rust's (1987) first step: ``max_increment``, or the largest observed increment,
+    after checking that the states never decrease (the increments start at 0)."""
     if not isinstance(reset_state, (int, np.integer)) or not 0 <= reset_state < S:
         raise InputError(f"reset_state must be a state in 0..{S - 1}, got {reset_state!r}.")
     base = state.copy()
@@ -212,27 +153,6 @@ def _increments(
     K = int(inc.max()) if max_increment is None else int(max_increment)
     if K < 0 or K > S - 1:
         raise InputError(f"max_increment must be in 0..{S - 1}, got {max_increment!r}.")
-    uncensored = base + K <= S - 1
-    if (inc[uncensored] > K).any():
-        raise InputError(
-            f"an observed increment exceeds max_increment={K}; raise max_increment."
-        )
-    if not uncensored.any():
-        raise InputError(
-            "every transition starts within max_increment of the last state, where increments "
-            "are censored; no increment can be counted."
-        )
-    pmf = np.bincount(inc[uncensored], minlength=K + 1).astype(np.float64)
-    pmf /= pmf.sum()
-    rows = np.arange(S)
-    mats = np.zeros((J, S, S))
-    for j in range(J):
-        b = np.full(S, reset_state) if (anchor is not None and j == anchor) else rows
-        for k, pk in enumerate(pmf):
-            np.add.at(mats[j], (rows, np.minimum(b + k, S - 1)), pk)
-    return TransitionEstimate(
-        matrices=mats,
-        method="increments",
-        increments=pmf,
-        n_transitions=int(uncensored.sum()),
-    )
+    if (inc[base + K <= S - 1] > K).any():
+        raise InputError(f"an observed increment exceeds max_increment={K}; raise max_increment.")
+    return K
