@@ -824,3 +824,21 @@ def test_counterfactual_coverage_table_matches_its_json() -> None:
         for column, key in (("truth", "truth"), ("bias", "bias"), ("bias / SD", "bias_over_sd"),
                             ("SD", "sd"), ("mean s.e.", "mean_se"), ("coverage", "coverage")):
             _assert_printed(row[column], s[key], where)
+
+
+# --------------------------------------------------------------------------- games
+def test_games_monte_carlo_table_matches_its_json() -> None:
+    """The games Monte Carlo table is benchmarks/results/games_am2007.json's, as printed."""
+    doc = _json("games_am2007.json")
+    cells = {(str(e["experiment"]), est, name): (v, s["fallbacks"], e["reps"])
+             for e in doc["experiments"] for est, s in e["estimators"].items()
+             for name, v in s["parameters"].items()}
+    rows = _validation_table("## Games: the entry-exit design of Aguirregabiria and Mira (2007)")
+    assert len(rows) == len(cells)
+    for row in rows:
+        v, fallbacks, reps = cells[(row["experiment"], row["estimator"], row["parameter"])]
+        where = f"{row['experiment']} {row['estimator']} {row['parameter']}"
+        assert int(row["reps"]) == reps and int(row["fallbacks"]) == fallbacks, where
+        _assert_printed(row["bias"], v["bias"], where)
+        _assert_printed(row["SD / s.e."], v["sd_over_se"], where)
+        _assert_printed(row["coverage"], v["coverage"], where)

@@ -15,12 +15,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from orthoccp import InputError
+from orthoccp import InputError, OrthoCCPWarning
 from orthoccp.dp import solve_values
 from orthoccp.games import (
     AM2007_EXPERIMENTS,
     am2007_game,
     best_response,
+    estimate_game,
     simulate_markets,
     solve_equilibrium,
 )
@@ -114,3 +115,110 @@ def test_simulated_markets_follow_the_equilibrium() -> None:
     # the same seed gives the same panel
     assert simulate_markets(eq, markets=50, periods=2, seed=3).equals(
         simulate_markets(eq, markets=50, periods=2, seed=3))
+
+
+# --------------------------------------------------------------------------- estimation
+@pytest.fixture(scope="module")
+def exp2() -> tuple:
+    eq = solve_equilibrium(am2007_game(2))
+    return eq, simulate_markets(eq, markets=400, periods=3, seed=5)
+
+
+def test_two_step_is_two_logits_as_statsmodels_fits_them(exp2: tuple) -> None:
+    # Reference: statsmodels' Logit for the first stage and its binomial GLM with an offset
+    # for the pseudo-likelihood (Aguirregabiria & Mira 2007: a logit with offset e~ at P-hat).
+    import statsmodels.api as sm
+
+    from orthoccp.games import value_terms
+    from orthoccp.games._estimate import _bind, _features
+
+    eq, df = exp2
+    res = estimate_game(df, discount=0.95, estimator="two-step")
+    d = _bind(df, market="market", period="period", firm="firm", action="active",
+              size="size", last="last_active", discount=0.95, size_transition=None)
+    F = _features(d.structure)
+    first = sm.Logit(d.action, F[d.firm, d.state]).fit(disp=0, tol=1e-12, maxiter=200)
+    P = 1 / (1 + np.exp(-np.einsum("nsk,k->sn", F, first.params)))
+    np.testing.assert_allclose(res.details.ccp.to_numpy(), P, atol=1e-8)
+    vt = value_terms(d.structure, P)
+    glm = sm.GLM(d.action, vt.zt[d.firm, d.state], family=sm.families.Binomial(),
+                 offset=vt.et[d.firm, d.state]).fit(tol=1e-13)
+    np.testing.assert_allclose(res.params.to_numpy(), glm.params, atol=1e-6)
+    assert res.details.estimator == "two-step" and "first_stage" in res.decomposition.columns
+
+
+def test_npl_is_a_fixed_point_and_recovers_the_truth() -> None:
+    # Simulated data of a known equilibrium: a mechanics check (3 s.e.), and the fixed point
+    # P = Psi(theta, P) that defines NPL (Aguirregabiria & Mira 2007, section 3.3).
+    game = am2007_game(2)
+    eq = solve_equilibrium(game)
+    df = simulate_markets(eq, markets=3000, periods=3, seed=11)
+    # the fixed point is that of the size chain used: give the true one
+    res = estimate_game(df, discount=0.95, size_transition=game.size_transition)
+    assert res.details.estimator == "npl" and res.details.spectral_radius < 1
+    z = (res.params.to_numpy() - game.theta) / res.std_errors.to_numpy()
+    assert np.all(np.abs(z) < 3), z
+    P = res.details.ccp.to_numpy()
+    np.testing.assert_allclose(best_response(game, P, res.params.to_numpy()), P, atol=1e-7)
+
+
+def test_npl_jacobian_is_the_derivative_along_the_fixed_point(exp2: tuple) -> None:
+    # G_theta + G_P (I - Psi_P)^-1 Psi_theta against brute force: re-solve P(theta) =
+    # Psi(theta, P(theta)) by iteration at theta +- h and difference the summed score.
+    from orthoccp.games._estimate import _bind, _fixed_point_term, _pieces, _total_score
+
+    eq, df = exp2
+    res = estimate_game(df, discount=0.95)
+    d = _bind(df, market="market", period="period", firm="firm", action="active",
+              size="size", last="last_active", discount=0.95, size_transition=None)
+    theta, P = res.params.to_numpy(), res.details.ccp.to_numpy()
+    zt, et = _pieces(d, P)
+    lam = 1 / (1 + np.exp(-(zt @ theta + et)))
+    analytic = -(zt * (lam * (1 - lam))[:, None]).T @ zt + _fixed_point_term(d, P, theta)
+
+    def fixed_point(th: np.ndarray) -> np.ndarray:
+        Q = P.copy()
+        for _ in range(2000):
+            new = best_response(d.structure, Q, th)
+            if np.max(np.abs(new - Q)) < 1e-13:
+                return new
+            Q = new
+        raise AssertionError("no fixed point")
+
+    h = 1e-5
+    brute = np.empty_like(analytic)
+    for k in range(theta.size):
+        e = np.zeros_like(theta)
+        e[k] = h
+        brute[:, k] = (_total_score(d, fixed_point(theta + e), theta + e)
+                       - _total_score(d, fixed_point(theta - e), theta - e)) / (2 * h)
+    np.testing.assert_allclose(analytic, brute, rtol=1e-4, atol=1e-4 * np.abs(brute).max())
+
+
+def test_an_unstable_equilibrium_falls_back_to_two_step() -> None:
+    game = am2007_game(1, theta_rn=2.5)
+    eq = solve_equilibrium(game, max_iterations=200)
+    df = simulate_markets(eq, markets=400, periods=3, seed=2)
+    with pytest.warns(OrthoCCPWarning, match="two-step estimate is reported"):
+        res = estimate_game(df, discount=0.95)
+    assert res.details.estimator == "two-step" and res.details.requested == "npl"
+    assert res.details.fallback and "two-step" in res.summary()
+
+
+def test_game_results_travel_as_json(exp2: tuple) -> None:
+    import orthoccp as oc
+
+    res = estimate_game(exp2[1], discount=0.95)
+    back = oc.Results.from_json(res.to_json())
+    assert type(back).__name__ == "GameResults" and back.to_json() == res.to_json()
+    assert "NPL iterations" in back.summary()
+
+
+@pytest.mark.parametrize("change, message", [
+    (lambda d: d.drop(index=3), r"one row per firm \(5 firms\); market 0, period 0 has 4"),
+    (lambda d: d.assign(active=d["active"] * 2), r"column 'active' must hold 0 \(inactive\) or 1"),
+    (lambda d: d.drop(columns="size"), r"data has no column size='size'"),
+])
+def test_bad_game_data_is_named(exp2: tuple, change, message: str) -> None:  # type: ignore[no-untyped-def]
+    with pytest.raises(InputError, match=message):
+        estimate_game(change(exp2[1]), discount=0.95)

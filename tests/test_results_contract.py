@@ -70,9 +70,16 @@ def _nfxp(bus: pd.DataFrame) -> tuple[Any, int]:
                          anchor="replace", discount=SU_JUDD_BUS.discount), 50
 
 
+def _game(bus: pd.DataFrame) -> tuple[Any, int]:
+    from orthoccp.games import am2007_game, estimate_game, simulate_markets, solve_equilibrium
+
+    panel = simulate_markets(solve_equilibrium(am2007_game(2)), markets=120, periods=3, seed=4)
+    return estimate_game(panel, discount=0.95), 120
+
+
 ESTIMATORS: dict[str, Callable[[pd.DataFrame], tuple[Any, int]]] = {
     "estimate": _ccp, "estimate_moments": _moments, "estimate_discrete": _discrete,
-    "nfxp_estimate": _nfxp,
+    "nfxp_estimate": _nfxp, "estimate_game": _game,
 }
 
 

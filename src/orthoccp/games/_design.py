@@ -62,6 +62,8 @@ class EntryGame:
         (L, L) row-stochastic transition of the market size.
     name : str
         A label for messages and tables.
+    size_values : numpy.ndarray, optional
+        The size :math:`s` in the payoff at each level (default 1, ..., L).
 
     Notes
     -----
@@ -78,6 +80,7 @@ class EntryGame:
     discount: float
     size_transition: np.ndarray = field(repr=False)
     name: str = "entry game"
+    size_values: np.ndarray | None = field(default=None, repr=False)
 
     def __post_init__(self) -> None:
         fc = np.asarray(self.fixed_costs, dtype=np.float64).reshape(-1)
@@ -92,8 +95,14 @@ class EntryGame:
             raise InputError("size_transition must be a square row-stochastic matrix.")
         if not 0 <= float(self.discount) < 1:
             raise InputError(f"discount must be in [0, 1), got {self.discount!r}.")
+        values = np.arange(1.0, F.shape[0] + 1) if self.size_values is None else np.asarray(
+            self.size_values, dtype=np.float64).reshape(-1)
+        if values.shape != (F.shape[0],) or not np.all(np.isfinite(values)):
+            raise InputError(f"size_values must hold {F.shape[0]} finite numbers, one per size "
+                             f"level.")
         object.__setattr__(self, "fixed_costs", fc)
         object.__setattr__(self, "size_transition", F)
+        object.__setattr__(self, "size_values", values)
 
     @property
     def n_firms(self) -> int:
@@ -118,10 +127,12 @@ class EntryGame:
         return np.r_[self.fixed_costs, self.theta_rs, self.theta_ec, self.theta_rn]
 
     def state_parts(self) -> tuple[np.ndarray, np.ndarray]:
-        """Per state: the size level (1, ..., L) and the (S, N) last actions."""
+        """Per state: the market size in the payoff (:attr:`size_values` of its level) and the
+        (S, N) last actions."""
         S, N = self.n_states, self.n_firms
         x = np.arange(S)
-        level = x // 2 ** N + 1
+        assert self.size_values is not None
+        level = self.size_values[x // 2 ** N]
         last = (x[:, None] >> np.arange(N)[None, :]) & 1
         return level.astype(np.float64), last.astype(np.int64)
 

@@ -33,7 +33,7 @@ from ..dp import logsumexp
 from ..model import EULER_GAMMA
 from ._design import EntryGame
 
-__all__ = ["Equilibrium", "ValueTerms", "best_response", "solve_equilibrium", "value_terms"]
+__all__ = ["Equilibrium", "ValueTerms", "best_response", "psi_radius", "solve_equilibrium", "value_terms"]
 
 _EPS = 1e-300
 
@@ -80,7 +80,7 @@ def value_terms(game: EntryGame, ccp: np.ndarray) -> ValueTerms:
     B = _profiles(N)
     A = B.shape[0]
     level, last = game.state_parts()
-    size_index = (level - 1).astype(np.int64)
+    size_index = np.arange(S) // A
     # factor[j]: (S, A) the probability that firm j takes its action in profile a
     factor = np.where(B.T[:, None, :] == 1, P.T[:, :, None], 1.0 - P.T[:, :, None])
     everyone = np.prod(factor, axis=0)
@@ -168,24 +168,10 @@ class Equilibrium:
 
     @cached_property
     def spectral_radius(self) -> float:
-        """Largest modulus of an eigenvalue of :attr:`jacobian`: below 1 the equilibrium is
-        stable under best-response iteration (and NPL can converge to it; Kasahara &
-        Shimotsu 2012, Econometrica 80). Found by Arnoldi iteration on Jacobian-vector
-        products (central differences of :math:`\\Psi`), without forming the Jacobian."""
-        P = self.ccp
-        S, N = P.shape
-        h = 1e-6 * float(min(P.min(), (1 - P).min(), 0.01)) / 0.01
-
-        def matvec(v: np.ndarray) -> np.ndarray:
-            d = np.real(np.asarray(v)).reshape(N, S).T
-            up = best_response(self.game, P + h * d)
-            down = best_response(self.game, P - h * d)
-            return ((up - down).T.ravel() / (2 * h)).astype(np.float64)
-
-        op = sparse_linalg.LinearOperator((S * N, S * N), matvec=matvec, dtype=np.float64)
-        values = sparse_linalg.eigs(op, k=1, which="LM", tol=1e-8,
-                                    v0=np.ones(S * N), return_eigenvectors=False)
-        return float(np.max(np.abs(values)))
+        """Largest modulus of an eigenvalue of :attr:`jacobian` (:func:`psi_radius`): below 1
+        the equilibrium is stable under best-response iteration, and NPL can converge to it
+        (Kasahara & Shimotsu 2012, Econometrica 80)."""
+        return psi_radius(self.game, self.ccp)
 
     def stationary(self) -> np.ndarray:
         """(S,) the stationary distribution of the state under the equilibrium."""
@@ -194,6 +180,28 @@ class Equilibrium:
         k = int(np.argmin(np.abs(w - 1.0)))
         pi = np.abs(np.real(v[:, k]))
         return pi / pi.sum()
+
+
+def psi_radius(game: EntryGame, ccp: np.ndarray, theta: np.ndarray | None = None) -> float:
+    r"""Spectral radius of :math:`\partial\Psi(\theta, P)/\partial P` at ``ccp``.
+
+    Found by Arnoldi iteration (scipy's ``eigs``) on Jacobian-vector products (central
+    differences of :func:`best_response`), without forming the (SN, SN) Jacobian.
+    """
+    P = np.asarray(ccp, dtype=np.float64)
+    S, N = P.shape
+    h = 1e-6 * float(min(P.min(), (1 - P).min(), 0.01)) / 0.01
+
+    def matvec(v: np.ndarray) -> np.ndarray:
+        d = np.real(np.asarray(v)).reshape(N, S).T
+        up = best_response(game, P + h * d, theta)
+        down = best_response(game, P - h * d, theta)
+        return ((up - down).T.ravel() / (2 * h)).astype(np.float64)
+
+    op = sparse_linalg.LinearOperator((S * N, S * N), matvec=matvec, dtype=np.float64)
+    values = sparse_linalg.eigs(op, k=1, which="LM", tol=1e-8, v0=np.ones(S * N),
+                                return_eigenvectors=False)
+    return float(np.max(np.abs(values)))
 
 
 def _residuals(game: EntryGame, P: np.ndarray) -> tuple[float, float, np.ndarray]:
