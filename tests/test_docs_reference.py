@@ -641,25 +641,48 @@ def test_outside_split_spread_table_matches_its_json() -> None:
     assert len(rows) == len({(r["design"], r["parameter"]) for r in doc["rows"]})
 
 
-def test_design_family_screen_matches_its_json() -> None:
-    """The first family screen's table is benchmarks/results/design_family.json's (the tuning
-    designs; the evaluation designs have their own table)."""
+@pytest.mark.parametrize("role, marker", [("tuning", "**First screen**"),
+                                          ("evaluation", "**Evaluation screen**")])
+def test_design_family_screen_matches_its_json(role: str, marker: str) -> None:
+    """The family screens' tables are benchmarks/results/design_family.json's: the tuning
+    designs in the first screen, the eight drawn evaluation designs in their own."""
     designs = _json("design_family.json")["designs"]
     by_id = {e["id"]: {(r["estimator"], r["parameter"]): r for r in e["summary"]}
-             for e in designs.values() if e["role"] == "tuning"}
+             for e in designs.values() if e["role"] == role}
+    kinds = {e["id"]: e["kind"] for e in designs.values() if e["role"] == role}
     text = _page("validation.md")
-    rows = _tables(text[text.index("**First screen**"):])[0]
+    rows = _tables(text[text.index(marker):])[0]
     assert len(rows) == sum(1 for s in by_id.values() for k in s if k[0] == "debiased")
     for row in rows:
         cell = by_id[row["design"]]
         r, n = cell[("debiased", row["parameter"])], cell[("naive", row["parameter"])]
         where = f"{row['design']} {row['parameter']}"
+        assert row.get("kind", kinds[row["design"]]) == kinds[row["design"]], where
         assert int(row["reps"]) == r["reps"] and r["failures"] == 0, where
         assert int(row["fallbacks"]) == r["fallbacks"] and int(row["flagged"]) == r["flagged"], where
         _assert_printed(row["plug-in coverage"], n["coverage"], where)
         _assert_printed(row["debiased bias / SD"], r["bias_over_sd"], where)
         _assert_printed(row["SD / s.e."], r["sd_over_se"], where)
         _assert_printed(row["debiased coverage"], r["coverage"], where)
+
+
+def test_evaluation_designs_are_the_drawn_ones() -> None:
+    """The evaluation screen is the draw its text names: eight designs from the stated draw
+    seed, drawn by the benchmark's own function, each with 20 replications."""
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location("design_family_bench",
+                                                  ROOT / "benchmarks" / "design_family.py")
+    assert spec is not None and spec.loader is not None
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    doc = _json("design_family.json")
+    assert doc["evaluation"]["draw_seed"] == 20261205
+    assert "draw seed 20261205" in _page("validation.md")
+    drawn = [i for i, _ in bench.evaluation_designs(20261205)]
+    assert [d["id"] for d in doc["evaluation"]["designs"]] == drawn
+    evaluated = sorted(e["id"] for e in doc["designs"].values() if e["role"] == "evaluation")
+    assert evaluated == sorted(drawn) and len(drawn) == 8
 
 
 # --------------------------------------------------------------------------- discount sensitivity
@@ -689,19 +712,28 @@ def test_sensitivity_page_matches_its_csv() -> None:
     assert (DOCS / "beta_sensitivity.png").stat().st_size > 10_000
 
 
-def test_interval_calibration_table_matches_its_json() -> None:
-    """The checks' detection and false-alarm counts are benchmarks/results/interval_calibration.json's."""
-    report = _json("interval_calibration.json")
-    assert report["role"] == "tuning"
+@pytest.mark.parametrize("name, role, marker", [
+    ("interval_calibration.json", "tuning", "**How well the checks separate the breaking cells**"),
+    ("interval_calibration_evaluation.json", "evaluation",
+     "**How well the checks separate the breaking cells on the evaluation designs**")])
+def test_interval_calibration_table_matches_its_json(name: str, role: str, marker: str) -> None:
+    """The checks' detection and false-alarm counts are benchmarks/results/<name>'s."""
+    report = _json(name)
+    assert report["role"] == role
     text = _page("validation.md")
-    rows = _tables(text[text.index("**How well the checks separate the breaking cells**"):])[0]
-    assert len(rows) >= 3 and {"shipped", "previous"} <= {r["rule"] for r in rows}
+    rows = _tables(text[text.index(marker):])[0]
+    assert len(rows) >= 3 and "shipped" in {r["rule"] for r in rows}
     for row in rows:
         s = report["rules"][row["rule"]]["score"]
         assert row["cells below 0.90 flagged"] == f"{s['detected']} of {s['low_cells']}"
         assert row["cells at 0.93 or above flagged"] == f"{s['false_alarms']} of {s['high_cells']}"
         _assert_printed(row["pooled coverage of unflagged cells"], s["unflagged_pooled_coverage"],
                         row["rule"])
+    if role == "evaluation":  # the README's headline quotes the evaluation screen
+        s = report["rules"]["shipped"]["score"]
+        readme = " ".join((ROOT / "README.md").read_text(encoding="utf-8").split())
+        assert f"cover {s['unflagged_pooled_coverage']:.3f} pooled" in readme
+        assert f"caught {s['detected']} of the {s['low_cells']} cells" in readme
 
 
 _DIAGNOSIS_LABELS = {"linearised at the truth": "linearised_at_truth",
