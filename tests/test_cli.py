@@ -234,6 +234,17 @@ def test_simulate_then_estimate_subprocess(tmp_path: Path) -> None:
     assert (doc["details"]["learner"], doc["details"]["folds"], doc["seed"]) == ("logit", 3, 4)
     assert [p["name"] for p in doc["params"]] == ["wear_cost", "swap_cost"]
     assert out_tex.read_text().startswith("\\begin{tabular}")
+    # docs/cli.md's layout table names every top-level key (functions: only with --function)
+    assert set(doc) == documented_json_keys() - {"functions"}
+
+
+def documented_json_keys() -> set[str]:
+    """The top-level keys that docs/cli.md's "The results JSON" table documents."""
+    text = (Path(__file__).resolve().parent.parent / "docs" / "cli.md").read_text(encoding="utf-8")
+    section = text[text.index("### The results JSON"):]
+    section = section[:section.index("\n#", 1)]  # up to the next heading
+    rows = [line for line in section.splitlines() if line.startswith("| `")]
+    return {key for row in rows for key in re.findall(r"`([a-z_]+)`", row.split("|")[1])}
 
 
 def _estimates(argv: list[str], tmp_path: Path, name: str) -> dict[str, Any]:
