@@ -179,7 +179,7 @@ def _subparsers() -> dict[str, argparse.ArgumentParser]:
 def test_every_command_and_option_is_documented_with_its_default() -> None:
     text = _page("cli.md")
     for name, sub in _subparsers().items():
-        (rows,) = _tables(_section(text, f"## orthoccp {name}"))
+        rows = _tables(_section(text, f"## orthoccp {name}"))[0]  # the options table comes first
         documented = {_code(r["option"])[0].split()[0] if _code(r["option"]) else r["option"]: r
                       for r in rows}
         for action in sub._actions:
@@ -871,6 +871,24 @@ def test_games_monte_carlo_table_matches_its_json() -> None:
         v, fallbacks, reps = cells[(row["experiment"], row["estimator"], row["parameter"])]
         where = f"{row['experiment']} {row['estimator']} {row['parameter']}"
         assert int(row["reps"]) == reps and int(row["fallbacks"]) == fallbacks, where
+        _assert_printed(row["bias"], v["bias"], where)
+        _assert_printed(row["SD / s.e."], v["sd_over_se"], where)
+        _assert_printed(row["coverage"], v["coverage"], where)
+
+
+def test_types_monte_carlo_table_matches_its_json() -> None:
+    """The finite-type Monte Carlo table is benchmarks/results/types_mc.json's (500 units)
+    and types_mc_2000.json's (2,000 units), as printed."""
+    docs = {str(d["units"]): d for d in (_json("types_mc.json"), _json("types_mc_2000.json"))}
+    rows = _validation_table("## Unobserved types: a two-type renewal design")
+    labels = {"two types": "types", "one type": "ignoring_types"}
+    assert len(rows) == sum(len(d[k]) for d in docs.values() for k in labels.values())
+    for row in rows:
+        doc = docs[row["units"].replace(",", "")]
+        v = doc[labels[row["model"]]][row["parameter"]]
+        where = f"{row['units']} {row['model']} {row['parameter']}"
+        assert doc["failed"] == 0 and int(row["reps"]) == doc["reps"], where
+        _assert_printed(row["truth"], doc["truth"][row["parameter"]], where)
         _assert_printed(row["bias"], v["bias"], where)
         _assert_printed(row["SD / s.e."], v["sd_over_se"], where)
         _assert_printed(row["coverage"], v["coverage"], where)

@@ -77,9 +77,18 @@ def _game(bus: pd.DataFrame) -> tuple[Any, int]:
     return estimate_game(panel, discount=0.95), 120
 
 
+def _types(bus: pd.DataFrame) -> tuple[Any, int]:
+    from orthoccp.types import TypesDesign, estimate_types, simulate_types
+
+    df = simulate_types(TypesDesign(n_states=6), units=150, periods=8, seed=1)
+    panel = oc.Panel(df, unit="unit", period="period", choice="choice", states=["x"])
+    return estimate_types(panel, utility={"keep": {"wear": "x"}, "replace": {"replace": "1"}},
+                          discount=0.95, type_shifts=["replace"], n_states=6, starts=2), 150
+
+
 ESTIMATORS: dict[str, Callable[[pd.DataFrame], tuple[Any, int]]] = {
     "estimate": _ccp, "estimate_moments": _moments, "estimate_discrete": _discrete,
-    "nfxp_estimate": _nfxp, "estimate_game": _game,
+    "nfxp_estimate": _nfxp, "estimate_game": _game, "estimate_types": _types,
 }
 
 

@@ -3,7 +3,7 @@
 The public surface is listed in ``__all__``; everything else is private.
 """
 
-from . import discrete, games
+from . import discrete, games, types
 from ._errors import EstimationError, InputError, OrthoCCPWarning
 from ._version import __version__
 from .compare import Comparison, compare, difference_test

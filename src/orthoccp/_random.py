@@ -35,7 +35,7 @@ __all__ = ["STREAMS", "stream"]
 #: The stream names, in the order of their spawn-key index (append only: the index is part
 #: of every stream's key, so reordering would change every draw).
 STREAMS: Final[tuple[str, ...]] = (
-    "folds", "first_stage", "projections", "ccp_steps", "riesz", "refit",
+    "folds", "first_stage", "projections", "ccp_steps", "riesz", "refit", "types",
 )
 _INDEX: Final[dict[str, int]] = {name: i for i, name in enumerate(STREAMS)}
 

@@ -1,0 +1,637 @@
+r"""Finite permanent types with discrete states: EM with model-updated CCPs, polished to the
+mixture maximum likelihood (Arcidiacono & Miller 2011).
+
+Unit i has a permanent type :math:`k \in \{1, \dots, K\}` with probability :math:`\pi_k`. Type k
+adds :math:`\alpha_{kc}` to the flow utility of each choice c in ``type_shifts``
+(:math:`\alpha_{1c} = 0`). Given the transitions :math:`\hat F` (estimated from the data, the
+same for every type) the mixture log-likelihood is
+
+.. math::
+
+    \ell(\theta, \pi) = \sum_i \ln \sum_k \pi_k \prod_t P_k(a_{it} \mid s_{it}; \theta),
+
+with :math:`P_k(\theta)` type k's exact CCPs. The types are stacked as a block-diagonal state
+space (state :math:`(k, s)` never changes its k), so every type's Hotz--Miller inversion is one
+sparse solve (:func:`orthoccp.discrete.hotz_miller_values`'s machinery).
+
+*EM with CCPs updated from the model* (Arcidiacono & Miller 2011, section 5): given CCPs
+:math:`P` and the current estimate, the E-step computes each unit's posterior
+:math:`q_{ik} \propto \pi_k \prod_t \Psi_k(\theta, P)(a_{it} \mid s_{it})`; the M-step sets
+:math:`\pi_k = \bar q_k` and maximises the posterior-weighted pseudo-likelihood
+:math:`\sum_{k,s,j} n^q_{ksj} \ln \Psi_k(\theta, P)_j(s)` (the discrete estimators' cell logit with
+weighted counts); then :math:`P \leftarrow \Psi(\theta, P)`. At its fixed point
+:math:`P_k = P_k(\theta)` and, by the zero-Jacobian property of :math:`\Psi` there, the
+first-order conditions are those of :math:`\ell`. EM converges linearly, so the fixed point is
+then polished by Newton steps on :math:`\ell` itself (exact CCPs by policy iteration, analytic
+scores, a central-difference Hessian); the point is the same, to more digits.
+
+*Inference* comes from the unit-level scores of :math:`\ell` (not from the EM's own
+information): :math:`\hat V = H^{-1} (\sum_i \phi_i \phi_i') H^{-1}` with
+:math:`\phi_i = s_i + c_i`, where :math:`s_i` is unit i's score in :math:`(\theta, \pi_2, \dots,
+\pi_K)` and :math:`c_i` the first-order effect of unit i's transitions on the summed score
+through :math:`\hat F` (two-step estimation; Newey & McFadden 1994, Theorem 6.1; the
+derivative of the score in each estimated transition probability by central differences).
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from collections.abc import Hashable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any, ClassVar
+
+import numpy as np
+import pandas as pd
+from scipy import sparse
+from scipy.special import logsumexp
+
+from .._errors import EstimationError, InputError, OrthoCCPWarning
+from .._arrays import label_index
+from .._labels import show_label
+from .._options import check_option
+from .._random import stream
+from .._version import __version__
+from ..covariance import check_cov_name, estimate_covariance
+from ..data import Panel
+from ..discrete._estimate import DiscreteProblem, build_problem
+from ..discrete._inversion import PolicySystem, inversion_terms
+from ..discrete._pseudo import cell_logit, newton_pseudo
+from ..results import (Details, Results, RowAccounting, covariance_line,
+                       variance_share_lines)
+
+__all__ = ["TYPES_ASSUMPTIONS", "TypesDetails", "TypesResults", "estimate_types"]
+
+TYPES_ASSUMPTIONS = (
+    "type-I extreme-value (logit) shocks, i.i.d. across units, choices and periods",
+    "known discount factor",
+    "K permanent types, independent of the first observed state; the transitions are the "
+    "same for every type",
+    "stationary payoffs and transitions",
+    "the maximum found from the starts tried is the global maximum of the mixture likelihood",
+)
+
+_POLICY_TOL = 1e-13
+
+
+@dataclass(frozen=True, eq=False)
+class TypesDetails(Details):
+    """Details of :func:`estimate_types`.
+
+    Attributes
+    ----------
+    n_types : int
+        K.
+    type_shifts : tuple of str
+        The choices whose flow utility has a type-specific constant.
+    ccp_update : str
+        ``"model"``: the CCPs of the EM were updated from the model (its fixed point is the
+        mixture maximum likelihood).
+    em_iterations : int
+        EM iterations of the best start.
+    newton_steps : int
+        Newton steps on the mixture likelihood after the EM.
+    loglik : float
+        The mixture log-likelihood at the estimate (choices only; the transitions' part does
+        not depend on the parameters).
+    starts, starts_agreeing, starts_failed : int
+        Starts tried, those that reached the reported maximum (log-likelihood within 1e-6,
+        parameters within 1e-4), and those that failed (an empty type or no convergence).
+    shares : tuple of float
+        :math:`\\hat\\pi_1, \\dots, \\hat\\pi_K` (type 1's share is one minus the others').
+    share_errors : tuple of float
+        Their standard errors (type 1's by the delta method).
+    n_states : int
+        States of the (single-type) state space.
+    posteriors : pandas.DataFrame or None
+        (n_units, K) each unit's posterior type probabilities at the estimate, indexed by the
+        unit labels.
+    """
+
+    kind: ClassVar[str] = "types"
+    assumptions: ClassVar[tuple[str, ...]] = TYPES_ASSUMPTIONS
+
+    n_types: int
+    type_shifts: tuple[str, ...]
+    ccp_update: str
+    em_iterations: int
+    newton_steps: int
+    loglik: float
+    starts: int
+    starts_agreeing: int
+    starts_failed: int
+    shares: tuple[float, ...]
+    share_errors: tuple[float, ...]
+    n_states: int
+    posteriors: pd.DataFrame | None = field(default=None, repr=False)
+
+    def method(self, debiased: bool) -> str:
+        return ("finite-mixture maximum likelihood with discrete states (EM with "
+                "model-updated CCPs), Arcidiacono & Miller (2011)")
+
+    def title(self, res: Results) -> str:
+        return (f"model: {self.n_types} permanent types shifting "
+                f"{', '.join(self.type_shifts)}; {self.n_states} states, discount "
+                f"{res.model['discount']}")
+
+    def lines(self, res: Results, *, plugin: bool) -> list[str]:
+        shares = ", ".join(f"type {k + 1} {s:.3f} ({e:.3f})"
+                           for k, (s, e) in enumerate(zip(self.shares, self.share_errors)))
+        lines = [f"units {res.n_units}; {res.accounting.describe()}",
+                 f"type shares (s.e.): {shares}",
+                 f"mixture log-likelihood {self.loglik:.4f}; EM iterations {self.em_iterations},"
+                 f" then {self.newton_steps} Newton steps",
+                 f"starts: {self.starts_agreeing} of {self.starts} reached this maximum"
+                 + (f" ({self.starts_failed} failed)" if self.starts_failed else "")]
+        lines.append(covariance_line(res.cov_type, res.small_sample)
+                     + "; scores of the mixture likelihood")
+        lines.extend(variance_share_lines(
+            res.decomposition, "variance shares (choices: the likelihood's scores, "
+            "transitions: the transition estimate's noise):"))
+        return lines
+
+    def to_dict(self) -> dict[str, Any]:
+        post = self.posteriors
+        return {"kind": self.kind, "n_types": self.n_types,
+                "type_shifts": list(self.type_shifts), "ccp_update": self.ccp_update,
+                "em_iterations": self.em_iterations, "newton_steps": self.newton_steps,
+                "loglik": self.loglik, "starts": self.starts,
+                "starts_agreeing": self.starts_agreeing, "starts_failed": self.starts_failed,
+                "shares": list(self.shares), "share_errors": list(self.share_errors),
+                "n_states": self.n_states,
+                "posteriors": None if post is None else {
+                    "units": [str(u) for u in post.index],
+                    "values": post.to_numpy().tolist()}}
+
+    @classmethod
+    def from_dict(cls, doc: Any, *, index: pd.Index, std_errors: pd.Series) -> TypesDetails:
+        post = doc.get("posteriors")
+        frame = None if post is None else pd.DataFrame(
+            post["values"], index=pd.Index(post["units"], name="unit"),
+            columns=[f"type{k + 1}" for k in range(int(doc["n_types"]))])
+        return cls(
+            n_types=int(doc["n_types"]), type_shifts=tuple(doc["type_shifts"]),
+            ccp_update=str(doc["ccp_update"]), em_iterations=int(doc["em_iterations"]),
+            newton_steps=int(doc["newton_steps"]), loglik=float(doc["loglik"]),
+            starts=int(doc["starts"]), starts_agreeing=int(doc["starts_agreeing"]),
+            starts_failed=int(doc["starts_failed"]), shares=tuple(doc["shares"]),
+            share_errors=tuple(doc["share_errors"]), n_states=int(doc["n_states"]),
+            posteriors=frame)
+
+
+@dataclass(frozen=True, eq=False)
+class TypesResults(Results):
+    """:class:`~orthoccp.Results` of :func:`estimate_types`."""
+
+    details: TypesDetails
+
+
+# --------------------------------------------------------------------------- the mixture
+class _Mixture:
+    """The stacked-type problem: design, transitions, unit cell counts and the likelihood."""
+
+    def __init__(self, problem: DiscreteProblem, shifts: Sequence[int], K: int,
+                 mats: Sequence[sparse.csr_matrix] | None = None) -> None:
+        self.problem, self.K = problem, K
+        S, J, p = problem.design.shape
+        self.S, self.J, self.p0 = S, J, p
+        m = len(shifts)
+        Z = np.zeros((K * S, J, p + (K - 1) * m))
+        for k in range(K):
+            Z[k * S:(k + 1) * S, :, :p] = problem.design
+            if k > 0:
+                for c, j in enumerate(shifts):
+                    Z[k * S:(k + 1) * S, j, p + (k - 1) * m + c] = 1.0
+        self.Z, self.p = Z, Z.shape[2]
+        self.beta = problem.discount
+        self.set_transitions(problem.mats if mats is None else mats)
+        cells = problem.row_state * J + problem.row_choice
+        self.C = sparse.csr_matrix(
+            (np.ones(cells.size), (problem.row_unit, cells)),
+            shape=(problem.n_units, S * J))
+
+    def set_transitions(self, mats: Sequence[sparse.csr_matrix]) -> None:
+        eye = sparse.identity(self.K, format="csr")
+        self.mats = tuple(sparse.kron(eye, sparse.csr_matrix(m), format="csr") for m in mats)
+        self.system = PolicySystem(self.mats, self.beta)
+
+    def terms(self, theta: np.ndarray, P: np.ndarray) -> tuple[np.ndarray, np.ndarray,
+                                                                np.ndarray, np.ndarray]:
+        """Zt, et and :math:`\\Psi(\\theta, P)` with its logarithm."""
+        inv = inversion_terms(P, self.Z, self.mats, self.beta, self.system)
+        lam, loglam = cell_logit(inv.Zt, inv.et, theta)
+        return inv.Zt, inv.et, lam, loglam
+
+    def exact(self, theta: np.ndarray, P: np.ndarray) -> tuple[np.ndarray, ...]:
+        """Every type's exact CCPs at theta by policy iteration from P (quadratic
+        convergence), with the terms at them."""
+        for _ in range(200):
+            Zt, et, lam, loglam = self.terms(theta, P)
+            if np.max(np.abs(lam - P)) < _POLICY_TOL:
+                return Zt, et, lam, loglam
+            P = lam
+        raise EstimationError("policy iteration did not converge to the model's CCPs.")
+
+    def unit_loglik(self, loglam: np.ndarray) -> np.ndarray:
+        """(n_units, K) :math:`\\sum_t \\ln P_k(a_{it} \\mid s_{it})`."""
+        S = self.S
+        return np.column_stack([self.C @ loglam[k * S:(k + 1) * S].ravel()
+                                for k in range(self.K)])
+
+    @staticmethod
+    def posterior(ll: np.ndarray, pi: np.ndarray) -> tuple[np.ndarray, float]:
+        a = ll + np.log(pi)[None, :]
+        lse = logsumexp(a, axis=1)
+        return np.exp(a - lse[:, None]), float(lse.sum())
+
+    def weighted_counts(self, q: np.ndarray) -> np.ndarray:
+        """(K S, J) posterior-weighted cell counts."""
+        return np.asarray((self.C.T @ q).T).reshape(self.K * self.S, self.J)
+
+    def scores(self, eta: np.ndarray, P: np.ndarray) -> tuple[float, np.ndarray, np.ndarray,
+                                                            np.ndarray]:
+        """Log-likelihood, (n_units, p + K - 1) unit scores, posteriors and exact CCPs."""
+        theta, pi = self.split(eta)
+        Zt, _, lam, loglam = self.exact(theta, P)
+        q, L = self.posterior(self.unit_loglik(loglam), pi)
+        g = Zt - np.einsum("sj,sjp->sp", lam, Zt)[:, None, :]  # d ln P_j(s) / d theta
+        S, J = self.S, self.J
+        s_theta = sum(q[:, [k]] * (self.C @ g[k * S:(k + 1) * S].reshape(S * J, self.p))
+                      for k in range(self.K))
+        s_pi = q[:, 1:] / pi[None, 1:] - (q[:, 0] / pi[0])[:, None]
+        return L, np.column_stack([s_theta, s_pi]), q, lam
+
+    def split(self, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        theta, rest = eta[:self.p], eta[self.p:]
+        return theta, np.concatenate([[1.0 - rest.sum()], rest])
+
+
+def _hessian(mix: _Mixture, eta: np.ndarray, P: np.ndarray) -> np.ndarray:
+    """Central-difference derivative of the summed scores."""
+    n = eta.size
+    H = np.empty((n, n))
+    for j in range(n):
+        h = 1e-5 * max(1.0, abs(eta[j]))
+        if j >= mix.p:  # a share: stay inside (0, 1)
+            h = min(h, 0.25 * min(eta[j], mix.split(eta)[1][0]))
+        up, dn = eta.copy(), eta.copy()
+        up[j] += h
+        dn[j] -= h
+        H[:, j] = (mix.scores(up, P)[1].sum(axis=0) - mix.scores(dn, P)[1].sum(axis=0)) / (2 * h)
+    return 0.5 * (H + H.T)
+
+
+@dataclass
+class _Fit:
+    eta: np.ndarray
+    loglik: float
+    P: np.ndarray
+    em_iterations: int
+    newton_steps: int = 0
+    converged: bool = False
+
+
+def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
+        tol: float) -> _Fit:
+    """EM with model-updated CCPs from initial posteriors q."""
+    J = mix.J
+    n = mix.weighted_counts(q)
+    pooled = (n.sum(axis=0) + 1.0) / (n.sum() + J)
+    P = (n + pooled[None, :]) / (n.sum(axis=1, keepdims=True) + 1.0)  # weighted frequencies
+    P = np.clip(P, 1e-4, 1.0)
+    P /= P.sum(axis=1, keepdims=True)
+    theta: np.ndarray | None = None
+    it = 0
+    for it in range(1, max_em + 1):
+        pi = q.mean(axis=0)
+        if pi.min() < 1e-6:
+            raise EstimationError(f"a type's share fell to {pi.min():.2g}: an empty type.")
+        Zt, et, _, _ = mix.terms(np.zeros(mix.p) if theta is None else theta, P)
+        theta = newton_pseudo(Zt, et, mix.weighted_counts(q), theta, names=names)[0]
+        lam, loglam = cell_logit(Zt, et, theta)
+        q_new, _ = mix.posterior(mix.unit_loglik(loglam), pi)
+        change = max(float(np.max(np.abs(lam - P))), float(np.max(np.abs(q_new - q))))
+        P, q = lam, q_new
+        if change < tol:
+            break
+    assert theta is not None
+    eta = np.concatenate([theta, q.mean(axis=0)[1:]])
+    return _Fit(eta=eta, loglik=mix.scores(eta, P)[0], P=P, em_iterations=it)
+
+
+def _relabel(mix: _Mixture, fit: _Fit, const: Sequence[int], m: int) -> _Fit:
+    """Order the types by the first shifted choice's constant, lowest first (type 1 is the
+    reference), so that labels do not swap between starts or samples."""
+    theta, pi = mix.split(fit.eta)
+    p0, K = mix.p0, mix.K
+    alpha = np.zeros((K, m))
+    alpha[1:] = theta[p0:].reshape(K - 1, m)
+    level = theta[list(const)][None, :] + alpha  # (K, m) each type's constants
+    order = np.argsort(level[:, 0], kind="stable")
+    if np.array_equal(order, np.arange(K)):
+        return fit
+    new = theta.copy()
+    new[list(const)] = level[order[0]]
+    new[p0:] = (level[order[1:]] - level[order[0]][None, :]).ravel()
+    S = mix.S
+    P = np.concatenate([fit.P[k * S:(k + 1) * S] for k in order])
+    eta = np.concatenate([new, pi[order][1:]])
+    return _Fit(eta=eta, loglik=fit.loglik, P=P, em_iterations=fit.em_iterations)
+
+
+def _polish(mix: _Mixture, fit: _Fit, *, max_steps: int = 50) -> _Fit:
+    """Newton steps on the mixture log-likelihood (step-halved, shares kept inside (0, 1))."""
+    eta, P = fit.eta.copy(), fit.P
+    L, sc, _, P = mix.scores(eta, P)
+    steps = 0
+    for steps in range(1, max_steps + 1):
+        H = _hessian(mix, eta, P)
+        grad = sc.sum(axis=0)
+        # Newton where -H is positive definite; elsewhere a Levenberg-Marquardt step
+        # (-H + lambda I), which is an ascent direction
+        top = float(np.linalg.eigvalsh(H).max())
+        lam = 0.0 if top < 0 else top + 1e-6 * max(1.0, float(np.abs(np.diag(H)).max()))
+        try:
+            step = np.linalg.solve(lam * np.eye(eta.size) - H, grad)
+        except np.linalg.LinAlgError as exc:
+            raise EstimationError("the mixture likelihood's Hessian is singular at the EM "
+                                  "fixed point; the types are not identified.") from exc
+        if np.all(np.abs(step) <= 1e-10 * (1.0 + np.abs(eta))):
+            return _Fit(eta, L, P, fit.em_iterations, steps, converged=True)
+        t = 1.0
+        while True:
+            cand = eta + t * step
+            pi = mix.split(cand)[1]
+            if pi.min() > 0:
+                L_new, sc_new, _, P_new = mix.scores(cand, P)
+                if L_new >= L - 1e-10 * max(1.0, abs(L)):
+                    break
+            t *= 0.5
+            if t < 1e-8:
+                return _Fit(eta, L, P, fit.em_iterations, steps)
+        eta, L, sc, P = cand, L_new, sc_new, P_new
+    return _Fit(eta, L, P, fit.em_iterations, steps)
+
+
+def _initial_posteriors(mix: _Mixture, shift_choice: int, r: int, seed: int) -> np.ndarray:
+    """Start 0: units ranked by how often they make the first shifted choice, in K groups
+    (weights 0.7 on the group's type); other starts: Dirichlet(1) draws."""
+    n, K = mix.problem.n_units, mix.K
+    if r == 0:
+        rows = mix.problem.row_choice == shift_choice
+        freq = (np.bincount(mix.problem.row_unit, weights=rows, minlength=n)
+                / np.bincount(mix.problem.row_unit, minlength=n))
+        rank = np.argsort(np.argsort(freq, kind="stable"), kind="stable")
+        group = np.minimum(rank * K // n, K - 1)
+        q = np.full((n, K), 0.3 / max(K - 1, 1))
+        q[np.arange(n), group] = 0.7
+        return q
+    return stream(seed, "types", split=r).dirichlet(np.ones(K), size=n)
+
+
+def _transition_correction(mix: _Mixture, eta: np.ndarray, P: np.ndarray) -> np.ndarray:
+    """(n_units, p') each unit's first-order effect on the summed score through F-hat."""
+    problem, J, S = mix.problem, mix.J, mix.S
+    tm = problem.transitions
+    base = [sparse.csr_matrix(m) for m in tm.matrices]
+    G = np.zeros((S, J, S, eta.size))  # d summed score / d F_j(s, s')
+    for j, F in enumerate(base):
+        coo = F.tocoo()
+        for s, s1 in zip(coo.row, coo.col):
+            out = []
+            for sign in (1.0, -1.0):
+                mats = [m.copy() for m in base]
+                mats[j] = mats[j].tolil()
+                mats[j][s, s1] += sign * 1e-6
+                mats[j] = mats[j].tocsr()
+                mix.set_transitions(mats)
+                out.append(mix.scores(eta, P)[1].sum(axis=0))
+            G[s, j, s1] = (out[0] - out[1]) / 2e-6
+    mix.set_transitions(base)
+    total = np.zeros((problem.n_units, eta.size))
+    for s1 in np.flatnonzero(np.any(G != 0, axis=(0, 1, 3))):
+        e = np.zeros(S)
+        e[s1] = 1.0
+        total += tm.directional(G[:, :, s1, :], e, problem.n_units)
+    return total
+
+
+def _shift_columns(problem: DiscreteProblem,
+                   type_shifts: Sequence[Hashable]) -> tuple[list[int], list[int]]:
+    """The shifted choices' positions and the design column of each one's constant."""
+    if isinstance(type_shifts, (str, bytes)) or not isinstance(type_shifts, Sequence) \
+            or len(type_shifts) == 0:
+        raise InputError(f"type_shifts must list at least one choice, e.g. "
+                         f"type_shifts=[{show_label(problem.choices[-1])}], got {type_shifts!r}.")
+    shifts, const = [], []
+    for c in type_shifts:
+        if c not in problem.choices:
+            raise InputError(f"type_shifts names {show_label(c)}, which is not a choice; the "
+                             f"choices are {', '.join(map(show_label, problem.choices))}.")
+        j = problem.choices.index(c)
+        is_const = [np.all(problem.design[:, j, col] == 1.0)
+                    and np.all(np.delete(problem.design[:, :, col], j, axis=1) == 0.0)
+                    for col in range(problem.design.shape[2])]
+        if not any(is_const):
+            raise InputError(f"type_shifts: choice {show_label(c)} has no constant in utility; "
+                             f"add one, e.g. utility[{show_label(c)}] = {{'cost': '1'}}: the "
+                             f"types shift it.")
+        if j in shifts:
+            raise InputError(f"type_shifts lists {show_label(c)} twice.")
+        shifts.append(j)
+        const.append(int(np.flatnonzero(is_const)[0]))
+    return shifts, const
+
+
+# --------------------------------------------------------------------------- front door
+def estimate_types(
+    panel: Panel,
+    *,
+    utility: Mapping[Hashable, Mapping[str, Any]],
+    discount: float,
+    type_shifts: Sequence[Hashable],
+    n_types: int = 2,
+    n_states: int | None = None,
+    transitions: str | Mapping[Any, Any] = "frequency",
+    smoothing: float = 0.0,
+    reset_choices: Sequence[Hashable] = (),
+    reset_state: int = 0,
+    increment_range: tuple[int, int] | None = None,
+    base: Mapping[Any, Any] | None = None,
+    starts: int = 5,
+    max_em: int = 2000,
+    tol: float = 1e-7,
+    seed: int = 0,
+    cov: str = "clustered",
+    small_sample: bool = True,
+    transition_noise: bool = True,
+) -> TypesResults:
+    r"""Dynamic logit with K permanent unobserved types and discrete states.
+
+    Parameters
+    ----------
+    panel : Panel
+        The data (one row per unit and period); states as for
+        :func:`~orthoccp.discrete.estimate_discrete`.
+    utility : mapping
+        Choice label -> {parameter: regressor}, as for
+        :func:`~orthoccp.discrete.estimate_discrete`. Each choice in ``type_shifts`` needs a
+        constant (``"1"``) among its regressors: the types shift it.
+    discount : float
+        Known :math:`\beta \in [0, 1)`.
+    type_shifts : sequence
+        Choices whose constant differs by type: parameters ``"<choice>:type<k>"`` for
+        k = 2..K, type k's constant minus type 1's. Types are ordered by the first listed
+        choice's constant, lowest first.
+    n_types : int, default=2
+        K, at least 2.
+    n_states, transitions, smoothing, reset_choices, reset_state, increment_range, base
+        The state space and the transitions' first step, as for
+        :func:`~orthoccp.discrete.estimate_discrete`; the transitions are the same for
+        every type.
+    starts : int, default=5
+        EM starts: the first from units ranked by how often they make the first shifted
+        choice, the others from random posteriors (drawn from ``seed``). The best maximum is
+        reported with the number of starts that reached it.
+    max_em : int, default=2000
+        Cap on EM iterations per start.
+    tol : float, default=1e-7
+        EM stops when the sup-norm change of the CCPs and posteriors is below ``tol``; Newton
+        steps on the mixture likelihood then converge to 1e-10.
+    seed : int, default=0
+        Seeds the random starts.
+    cov : {"clustered", "heteroskedastic"}, default="clustered"
+        The scores are unit-level either way (a unit's history is one likelihood term).
+    small_sample : bool, default=True
+        Multiply the covariance by G/(G-1).
+    transition_noise : bool, default=True
+        Add the transition estimate's sampling noise to the covariance.
+
+    Returns
+    -------
+    TypesResults
+        Parameters: the utility's, the type shifts, and the shares ``"share:type<k>"`` of
+        types 2..K (type 1's share with its standard error is in ``details.shares``); each
+        unit's posterior type probabilities in ``details.posteriors``.
+
+    Notes
+    -----
+    The mixture likelihood, the EM with model-updated CCPs (Arcidiacono & Miller 2011,
+    section 5) and the sandwich from unit-level scores are in the module's docstring
+    (:mod:`orthoccp.types`). The first observed state is treated as independent of the type
+    (no initial-conditions model), and the standard errors assume the reported maximum is the
+    global one: look at ``details.starts_agreeing``.
+
+    References
+    ----------
+    Arcidiacono, P. and Miller, R. A. (2011). Conditional choice probability estimation of
+    dynamic discrete choice models with unobserved heterogeneity. Econometrica 79(6),
+    1823--1867.
+    Newey, W. K. and McFadden, D. (1994). Large sample estimation and hypothesis testing.
+    Handbook of Econometrics 4, ch. 36.
+    """
+    t_start = time.perf_counter()
+    if isinstance(n_types, bool) or not isinstance(n_types, (int, np.integer)) or n_types < 2:
+        raise InputError(f"n_types must be an integer >= 2, got {n_types!r}; with one type use "
+                         f"orthoccp.discrete.estimate_discrete.")
+    if isinstance(starts, bool) or not isinstance(starts, (int, np.integer)) or starts < 1:
+        raise InputError(f"starts must be an integer >= 1, got {starts!r}.")
+    if isinstance(max_em, bool) or not isinstance(max_em, (int, np.integer)) or max_em < 1:
+        raise InputError(f"max_em must be an integer >= 1, got {max_em!r}.")
+    if not (isinstance(tol, (int, float)) and 0 < tol < 1):
+        raise InputError(f"tol must be a number in (0, 1), got {tol!r}.")
+    check_cov_name(cov)
+    check_option("small_sample", small_sample)
+    seed = check_option("seed", seed)
+    problem = build_problem(
+        panel, utility=utility, discount=discount, n_states=n_states, transitions=transitions,
+        smoothing=smoothing, reset_choices=reset_choices, reset_state=reset_state,
+        increment_range=increment_range, base=base)
+    shifts, const = _shift_columns(problem, type_shifts)
+    K, m = int(n_types), len(shifts)
+    mix = _Mixture(problem, shifts, K)
+    shift_names = tuple(f"{problem.choices[j]}:type{k}"
+                        for k in range(2, K + 1) for j in shifts)
+    names = problem.parameters + shift_names
+    all_names = names + tuple(f"share:type{k}" for k in range(2, K + 1))
+    t_first = time.perf_counter() - t_start
+
+    fits: list[_Fit] = []
+    failed = 0
+    for r in range(int(starts)):
+        try:
+            fit = _em(mix, _initial_posteriors(mix, shifts[0], r, seed), names=names,
+                      max_em=int(max_em), tol=float(tol))
+            fits.append(_polish(mix, _relabel(mix, fit, const, m)))
+        except EstimationError:
+            failed += 1
+    if not fits:
+        raise EstimationError(
+            f"every one of the {starts} starts failed (a type emptied or the pseudo-likelihood "
+            f"had no finite maximiser); try fewer types or more starts.")
+    best = max(fits, key=lambda f: f.loglik)
+    agree = sum(1 for f in fits if abs(f.loglik - best.loglik) <= 1e-6 * max(1.0, abs(best.loglik))
+                and np.max(np.abs(f.eta - best.eta)) <= 1e-4)
+    t_est = time.perf_counter() - t_start - t_first
+
+    L, sc, q, P = mix.scores(best.eta, best.P)
+    H = _hessian(mix, best.eta, P)
+    scale = 1.0 / np.sqrt(np.maximum(np.abs(np.diag(H)), 1e-300))
+    curvature = float(np.linalg.eigvalsh(-(scale[:, None] * H * scale[None, :])).min())
+    if curvature <= 1e-8:
+        pi = mix.split(best.eta)[1]
+        raise EstimationError(
+            f"the mixture likelihood is not curved downward at the best point found (smallest "
+            f"scaled curvature {curvature:.3g}; shares {np.round(pi, 3).tolist()}, shifts "
+            f"{np.round(best.eta[mix.p0:mix.p], 3).tolist()}): the {K} types are not "
+            f"identified in this sample, e.g. the data show no difference between types in "
+            f"{', '.join(show_label(problem.choices[j]) for j in shifts)}. Estimate with fewer "
+            f"types, or one (orthoccp.discrete.estimate_discrete).")
+    if agree < len(fits):
+        warnings.warn(
+            f"{len(fits) - agree} of {len(fits)} EM starts ended at another point of the "
+            f"mixture likelihood (the best is reported); raise starts to check that it is the "
+            f"global maximum.", OrthoCCPWarning, stacklevel=2)
+    if not best.converged:
+        warnings.warn(
+            f"Newton steps on the mixture likelihood stopped after {best.newton_steps} steps "
+            f"short of convergence; the estimate and its standard errors are approximate.",
+            OrthoCCPWarning, stacklevel=2)
+    corr = np.zeros_like(sc)
+    if transition_noise and problem.discount > 0 and \
+            problem.transitions.method in ("frequency", "increments"):
+        corr = _transition_correction(mix, best.eta, P)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ce = estimate_covariance(cov, jacobian=H, components={"choices": sc, "transitions": corr},
+                                 units=np.arange(problem.n_units), parameters=all_names,
+                                 small_sample=small_sample)
+    diag = np.diag(ce.cov)
+    if not np.all(np.isfinite(diag)) or np.any(diag <= 0):
+        raise EstimationError("the covariance is not positive definite at the estimate; the "
+                              "types are not identified in this sample.")
+    pi = mix.split(best.eta)[1]
+    share_cov = ce.cov[mix.p:, mix.p:]
+    share_se = (float(np.sqrt(share_cov.sum())), *np.sqrt(np.diag(share_cov)).tolist())
+    labels = panel.unit_labels
+    details = TypesDetails(
+        n_types=K, type_shifts=tuple(str(problem.choices[j]) for j in shifts), ccp_update="model",
+        em_iterations=best.em_iterations, newton_steps=best.newton_steps, loglik=L,
+        starts=int(starts), starts_agreeing=agree, starts_failed=failed,
+        shares=tuple(float(v) for v in pi), share_errors=tuple(float(v) for v in share_se),
+        n_states=problem.space.n_states,
+        posteriors=pd.DataFrame(q, index=pd.Index(labels, name="unit"),
+                                columns=[f"type{k + 1}" for k in range(K)]))
+    index = label_index(all_names, "parameter")
+    return TypesResults(
+        params=pd.Series(best.eta, index=index, name="estimate"),
+        std_errors=pd.Series(np.sqrt(diag), index=index, name="std_error"),
+        cov=pd.DataFrame(ce.cov, index=index, columns=index), debiased=False,
+        model={"kind": "types", "discount": problem.discount, "n_types": K},
+        seed=seed, cov_type=cov, small_sample=bool(small_sample), n_units=problem.n_units,
+        accounting=RowAccounting(n_rows=panel.n_rows, n_moment_rows=panel.n_rows,
+                                 n_corrected=0, n_terminal=0, excluded={},
+                                 dropped=dict(panel.dropped_rows)),
+        decomposition=ce.decomposition, influence=ce.influence,
+        influence_units=np.asarray(ce.cluster_labels(labels)), details=details,
+        timings={"first_step_s": t_first, "estimation_s": t_est,
+                 "total_s": time.perf_counter() - t_start}, version=__version__)
