@@ -17,6 +17,8 @@ interval, and the replications whose type estimate failed or whose starts disagr
 ``benchmarks/results/types_mc.json``. Reproduce::
 
     python benchmarks/types_mc.py --reps 200 --units 500 --periods 10
+    python benchmarks/types_mc.py --reps 200 --units 500 --periods 10 --ccp-update data \\
+        --out benchmarks/results/types_mc_data.json
 """
 
 from __future__ import annotations
@@ -59,6 +61,7 @@ def main() -> None:
     ap.add_argument("--reps", type=int, default=200)
     ap.add_argument("--units", type=int, default=500)
     ap.add_argument("--periods", type=int, default=10)
+    ap.add_argument("--ccp-update", choices=["model", "data"], default="model")
     ap.add_argument("--out", type=Path, default=RESULTS / "types_mc.json")
     a = ap.parse_args()
     design = TypesDesign()
@@ -76,7 +79,7 @@ def main() -> None:
             try:
                 res = estimate_types(panel, utility=UTILITY, discount=design.discount,
                                      type_shifts=["replace"], n_states=design.n_states,
-                                     starts=3, seed=r)
+                                     starts=3, seed=r, ccp_update=a.ccp_update)
             except EstimationError:
                 failed += 1
             else:
@@ -92,6 +95,7 @@ def main() -> None:
     theta, se = (np.array([x[k] for x in rows]) for k in (0, 1))
     out = {
         "orthoccp_version": __version__, "design": "TypesDesign()", "truth": truth,
+        "ccp_update": a.ccp_update,
         "units": a.units, "periods": a.periods, "reps": a.reps, "failed": failed,
         "starts_disagreed": disagreed, "seconds": time.perf_counter() - t0,
         "types": _summary(theta, se, np.array([truth[n] for n in names]), names),

@@ -877,15 +877,21 @@ def test_games_monte_carlo_table_matches_its_json() -> None:
 
 
 def test_types_monte_carlo_table_matches_its_json() -> None:
-    """The finite-type Monte Carlo table is benchmarks/results/types_mc.json's (500 units)
-    and types_mc_2000.json's (2,000 units), as printed."""
-    docs = {str(d["units"]): d for d in (_json("types_mc.json"), _json("types_mc_2000.json"))}
+    """The finite-type Monte Carlo table is benchmarks/results/types_mc.json's (500 units),
+    types_mc_2000.json's (2,000 units) and types_mc_data.json's (CCPs updated from the data),
+    as printed."""
+    docs = {(str(d["units"]), d.get("ccp_update", "model")): d for d in (
+        _json("types_mc.json"), _json("types_mc_2000.json"), _json("types_mc_data.json"))}
     rows = _validation_table("## Unobserved types: a two-type renewal design")
-    labels = {"two types": "types", "one type": "ignoring_types"}
-    assert len(rows) == sum(len(d[k]) for d in docs.values() for k in labels.values())
+    models = {"two types, model update": ("model", "types"),
+              "two types, data update": ("data", "types"),
+              "one type": ("model", "ignoring_types")}
+    assert len(rows) == sum(len(d["types"]) for d in docs.values()) + sum(
+        len(d["ignoring_types"]) for (_, upd), d in docs.items() if upd == "model")
     for row in rows:
-        doc = docs[row["units"].replace(",", "")]
-        v = doc[labels[row["model"]]][row["parameter"]]
+        update, block = models[row["model"]]
+        doc = docs[(row["units"].replace(",", ""), update)]
+        v = doc[block][row["parameter"]]
         where = f"{row['units']} {row['model']} {row['parameter']}"
         assert doc["failed"] == 0 and int(row["reps"]) == doc["reps"], where
         _assert_printed(row["truth"], doc["truth"][row["parameter"]], where)

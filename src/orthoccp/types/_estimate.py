@@ -72,6 +72,9 @@ TYPES_ASSUMPTIONS = (
 )
 
 _POLICY_TOL = 1e-13
+#: Pseudo-observations per state of the data-updated CCPs, spread by the sample's choice
+#: shares (keeps a state seen with one choice only off the boundary, where ln P diverges).
+_PSEUDO = 0.5
 
 
 @dataclass(frozen=True, eq=False)
@@ -84,9 +87,10 @@ class TypesDetails(Details):
         K.
     type_shifts : tuple of str
         The choices whose flow utility has a type-specific constant.
-    ccp_update : str
-        ``"model"``: the CCPs of the EM were updated from the model (its fixed point is the
-        mixture maximum likelihood).
+    ccp_update : {"model", "data"}
+        How the EM updated the CCPs: from the model (its fixed point is the mixture maximum
+        likelihood) or from the data (posterior-weighted frequencies; a two-step estimator
+        that differs from the MLE at order :math:`n^{-1/2}`).
     em_iterations : int
         EM iterations of the best start.
     newton_steps : int
@@ -106,6 +110,11 @@ class TypesDetails(Details):
     posteriors : pandas.DataFrame or None
         (n_units, K) each unit's posterior type probabilities at the estimate, indexed by the
         unit labels.
+    ccp : pandas.DataFrame or None
+        (K S, J) each type's CCPs at the estimate, indexed by (type, state): the model's
+        exact CCPs (``ccp_update="model"``) or the fixed point's data-updated CCPs
+        (``"data"``: posterior-weighted frequencies, the model's at unoccupied states). Not
+        written to JSON (None when reloaded).
     """
 
     kind: ClassVar[str] = "types"
@@ -124,8 +133,12 @@ class TypesDetails(Details):
     share_errors: tuple[float, ...]
     n_states: int
     posteriors: pd.DataFrame | None = field(default=None, repr=False)
+    ccp: pd.DataFrame | None = field(default=None, repr=False)
 
     def method(self, debiased: bool) -> str:
+        if self.ccp_update == "data":
+            return ("finite-mixture two-step CCP estimator with discrete states (EM with "
+                    "CCPs updated from the data), Arcidiacono & Miller (2011)")
         return ("finite-mixture maximum likelihood with discrete states (EM with "
                 "model-updated CCPs), Arcidiacono & Miller (2011)")
 
@@ -139,8 +152,10 @@ class TypesDetails(Details):
                            for k, (s, e) in enumerate(zip(self.shares, self.share_errors)))
         lines = [f"units {res.n_units}; {res.accounting.describe()}",
                  f"type shares (s.e.): {shares}",
-                 f"mixture log-likelihood {self.loglik:.4f}; EM iterations {self.em_iterations},"
-                 f" then {self.newton_steps} Newton steps",
+                 f"CCPs updated from the {self.ccp_update}; "
+                 + ("pseudo-" if self.ccp_update == "data" else "")
+                 + f"mixture log-likelihood {self.loglik:.4f}; EM iterations "
+                 f"{self.em_iterations}, then {self.newton_steps} Newton steps",
                  f"starts: {self.starts_agreeing} of {self.starts} reached this maximum"
                  + (f" ({self.starts_failed} failed)" if self.starts_failed else "")]
         lines.append(covariance_line(res.cov_type, res.small_sample)
@@ -209,6 +224,8 @@ class _Mixture:
         self.C = sparse.csr_matrix(
             (np.ones(cells.size), (problem.row_unit, cells)),
             shape=(problem.n_units, S * J))
+        self.shares = problem.counts.sum(axis=0) / problem.counts.sum()
+        self.seen = problem.counts.sum(axis=1) > 0
 
     def set_transitions(self, mats: Sequence[sparse.csr_matrix]) -> None:
         eye = sparse.identity(self.K, format="csr")
@@ -266,18 +283,27 @@ class _Mixture:
         return theta, np.concatenate([[1.0 - rest.sum()], rest])
 
 
-def _hessian(mix: _Mixture, eta: np.ndarray, P: np.ndarray) -> np.ndarray:
-    """Central-difference derivative of the summed scores."""
-    n = eta.size
-    H = np.empty((n, n))
+def _central(total: Any, omega: np.ndarray, bounded: int, mix: _Mixture) -> np.ndarray:
+    """Central-difference Jacobian of ``total`` (the summed unit moments) at ``omega``; the
+    entries from ``mix.p`` on are probabilities and the step keeps them inside (0, 1)."""
+    n = omega.size
+    out = np.empty((n, n))
     for j in range(n):
-        h = 1e-5 * max(1.0, abs(eta[j]))
-        if j >= mix.p:  # a share: stay inside (0, 1)
-            h = min(h, 0.25 * min(eta[j], mix.split(eta)[1][0]))
-        up, dn = eta.copy(), eta.copy()
+        h = 1e-5 * max(1.0, abs(omega[j]))
+        if j >= mix.p:
+            h = min(h, 0.25 * omega[j], 0.25 * (1.0 - omega[j]))
+            if j < bounded:  # a share: type 1's share is one minus the others'
+                h = min(h, 0.25 * mix.split(omega[:bounded])[1][0])
+        up, dn = omega.copy(), omega.copy()
         up[j] += h
         dn[j] -= h
-        H[:, j] = (mix.scores(up, P)[1].sum(axis=0) - mix.scores(dn, P)[1].sum(axis=0)) / (2 * h)
+        out[:, j] = (total(up) - total(dn)) / (2 * h)
+    return out
+
+
+def _hessian(mix: _Mixture, eta: np.ndarray, P: np.ndarray) -> np.ndarray:
+    """Central-difference derivative of the summed scores of the mixture likelihood."""
+    H = _central(lambda e: mix.scores(e, P)[1].sum(axis=0), eta, eta.size, mix)
     return 0.5 * (H + H.T)
 
 
@@ -291,15 +317,18 @@ class _Fit:
     converged: bool = False
 
 
-def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
-        tol: float) -> _Fit:
-    """EM with model-updated CCPs from initial posteriors q."""
-    J = mix.J
+def _frequencies(mix: _Mixture, q: np.ndarray, fallback: np.ndarray) -> np.ndarray:
+    """(K S, J) posterior-weighted cell frequencies with ``_PSEUDO`` pseudo-observations spread
+    by the sample's choice shares; ``fallback`` at states no row occupies."""
     n = mix.weighted_counts(q)
-    pooled = (n.sum(axis=0) + 1.0) / (n.sum() + J)
-    P = (n + pooled[None, :]) / (n.sum(axis=1, keepdims=True) + 1.0)  # weighted frequencies
-    P = np.clip(P, 1e-4, 1.0)
-    P /= P.sum(axis=1, keepdims=True)
+    P = (n + _PSEUDO * mix.shares[None, :]) / (n.sum(axis=1, keepdims=True) + _PSEUDO)
+    return np.where(np.tile(mix.seen, mix.K)[:, None], P, fallback)
+
+
+def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
+        tol: float, update: str) -> _Fit:
+    """EM from initial posteriors q, the CCPs updated from the model or from the data."""
+    P = _frequencies(mix, q, np.tile(mix.shares, (mix.K * mix.S, 1)))
     theta: np.ndarray | None = None
     it = 0
     for it in range(1, max_em + 1):
@@ -309,14 +338,121 @@ def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
         Zt, et, _, _ = mix.terms(np.zeros(mix.p) if theta is None else theta, P)
         theta = newton_pseudo(Zt, et, mix.weighted_counts(q), theta, names=names)[0]
         lam, loglam = cell_logit(Zt, et, theta)
-        q_new, _ = mix.posterior(mix.unit_loglik(loglam), pi)
-        change = max(float(np.max(np.abs(lam - P))), float(np.max(np.abs(q_new - q))))
-        P, q = lam, q_new
+        q_new, L = mix.posterior(mix.unit_loglik(loglam), pi)
+        P_new = lam if update == "model" else _frequencies(mix, q_new, lam)
+        change = max(float(np.max(np.abs(P_new - P))), float(np.max(np.abs(q_new - q))))
+        P, q = P_new, q_new
         if change < tol:
             break
     assert theta is not None
     eta = np.concatenate([theta, q.mean(axis=0)[1:]])
+    if update == "data":
+        return _Fit(eta=eta, loglik=_DataSystem(mix).loglik(eta, P), P=P, em_iterations=it)
     return _Fit(eta=eta, loglik=mix.scores(eta, P)[0], P=P, em_iterations=it)
+
+
+class _DataSystem:
+    r"""The fixed point of the EM with CCPs updated from the data, as unit-level moments.
+
+    Unknowns :math:`\omega = (\theta, \pi_2..\pi_K, P)` with :math:`P_k(s, j)`, j >= 1, at
+    every state. Unit i's moments: the posterior-weighted pseudo-score
+    :math:`\sum_k q_{ik} \sum_t \partial \ln \Psi_k(\theta, P)(a_{it}|s_{it}) / \partial\theta`,
+    :math:`q_{ik} - \pi_k`, and at each state a row occupies
+    :math:`q_{ik}(n_i(s, j) - n_i(s) P_k(s, j)) + c (\bar P_j - P_k(s, j)) / n` (the weighted
+    frequencies with c pseudo-observations); at other states
+    :math:`(P_k(s, j) - \Psi_k(\theta, P)(s, j)) / n` (the model's CCPs). The posteriors
+    :math:`q_{ik} \propto \pi_k \prod_t \Psi_k(\theta, P)(a_{it}|s_{it})` are the E-step's.
+    """
+
+    def __init__(self, mix: _Mixture) -> None:
+        self.mix = mix
+        K, S, J = mix.K, mix.S, mix.J
+        self.q_size = mix.p + K - 1
+        n = mix.problem.n_units
+        # each unit's count per state, and per (state, choice >= 1)
+        self.Cs = np.asarray((mix.C @ sparse.kron(sparse.identity(S), np.ones((J, 1)))).todense())
+        free = np.tile(np.arange(J) >= 1, S)
+        self.Cj = np.asarray(mix.C[:, np.flatnonzero(free)].todense())  # (n, S (J-1))
+        self.n = n
+
+    def unpack(self, omega: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        mix = self.mix
+        theta, pi = mix.split(omega[:self.q_size])
+        free = omega[self.q_size:].reshape(mix.K * mix.S, mix.J - 1)
+        return theta, pi, np.column_stack([1.0 - free.sum(axis=1), free])
+
+    @staticmethod
+    def pack(eta: np.ndarray, P: np.ndarray) -> np.ndarray:
+        return np.concatenate([eta, P[:, 1:].ravel()])
+
+    def valid(self, omega: np.ndarray) -> bool:
+        _, pi, P = self.unpack(omega)
+        return bool(pi.min() > 0 and P.min() > 0)
+
+    def loglik(self, eta: np.ndarray, P: np.ndarray) -> float:
+        """The mixture log-likelihood of :math:`\\Psi(\\theta, P)`, the E-step's."""
+        theta, pi = self.mix.split(eta)
+        loglam = self.mix.terms(theta, P)[3]
+        return self.mix.posterior(self.mix.unit_loglik(loglam), pi)[1]
+
+    def moments(self, omega: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(n_units, d) unit moments and the (n_units, K) posteriors."""
+        mix, K, S, J = self.mix, self.mix.K, self.mix.S, self.mix.J
+        theta, pi, P = self.unpack(omega)
+        Zt, _, lam, loglam = mix.terms(theta, P)
+        q, _ = mix.posterior(mix.unit_loglik(loglam), pi)
+        g = Zt - np.einsum("sj,sjp->sp", lam, Zt)[:, None, :]
+        s_theta = sum(q[:, [k]] * (mix.C @ g[k * S:(k + 1) * S].reshape(S * J, mix.p))
+                      for k in range(K))
+        parts = [s_theta, q[:, 1:] - pi[None, 1:]]
+        prior = np.tile(mix.shares[1:], S)
+        seen = np.repeat(mix.seen, J - 1)
+        for k in range(K):
+            Pk = P[k * S:(k + 1) * S, 1:].ravel()
+            data = q[:, [k]] * (self.Cj - np.repeat(self.Cs, J - 1, axis=1) * Pk[None, :]) \
+                + _PSEUDO * (prior - Pk)[None, :] / self.n
+            model = np.broadcast_to((Pk - lam[k * S:(k + 1) * S, 1:].ravel()) / self.n,
+                                    data.shape)
+            parts.append(np.where(seen[None, :], data, model))
+        return np.column_stack(parts), q
+
+    def total(self, omega: np.ndarray) -> np.ndarray:
+        return self.moments(omega)[0].sum(axis=0)
+
+    def jacobian(self, omega: np.ndarray) -> np.ndarray:
+        return _central(self.total, omega, self.q_size, self.mix)
+
+    def solve(self, fit: _Fit, *, max_steps: int = 30) -> _Fit:
+        """Newton steps on the summed moments from the EM's point (step-halved)."""
+        omega = self.pack(fit.eta, fit.P)
+        f = self.total(omega)
+        steps = 0
+        for steps in range(1, max_steps + 1):
+            try:
+                step = -np.linalg.solve(self.jacobian(omega), f)
+            except np.linalg.LinAlgError as exc:
+                raise EstimationError("the data-updated EM's moments have a singular "
+                                      "Jacobian; the types are not identified.") from exc
+            if np.all(np.abs(step) <= 1e-10 * (1.0 + np.abs(omega))):
+                _, _, P = self.unpack(omega)
+                eta = omega[:self.q_size]
+                return _Fit(eta, self.loglik(eta, P), P, fit.em_iterations, steps, True)
+            t = 1.0
+            while True:
+                cand = omega + t * step
+                if self.valid(cand):
+                    f_new = self.total(cand)
+                    if np.linalg.norm(f_new) <= np.linalg.norm(f) * (1 + 1e-9) or t < 1e-3:
+                        break
+                t *= 0.5
+                if t < 1e-8:
+                    break
+            if t < 1e-8:
+                break
+            omega, f = cand, f_new
+        _, _, P = self.unpack(omega)
+        eta = omega[:self.q_size]
+        return _Fit(eta, self.loglik(eta, P), P, fit.em_iterations, steps, False)
 
 
 def _relabel(mix: _Mixture, fit: _Fit, const: Sequence[int], m: int) -> _Fit:
@@ -389,12 +525,14 @@ def _initial_posteriors(mix: _Mixture, shift_choice: int, r: int, seed: int) -> 
     return stream(seed, "types", split=r).dirichlet(np.ones(K), size=n)
 
 
-def _transition_correction(mix: _Mixture, eta: np.ndarray, P: np.ndarray) -> np.ndarray:
-    """(n_units, p') each unit's first-order effect on the summed score through F-hat."""
+def _transition_correction(mix: _Mixture, total: Any, dim: int) -> np.ndarray:
+    """(n_units, dim) each unit's first-order effect on the summed moments ``total()``
+    through F-hat (central differences in each estimated transition probability, then
+    :meth:`~orthoccp.discrete.TransitionMatrices.directional`)."""
     problem, J, S = mix.problem, mix.J, mix.S
     tm = problem.transitions
     base = [sparse.csr_matrix(m) for m in tm.matrices]
-    G = np.zeros((S, J, S, eta.size))  # d summed score / d F_j(s, s')
+    G = np.zeros((S, J, S, dim))  # d summed moments / d F_j(s, s')
     for j, F in enumerate(base):
         coo = F.tocoo()
         for s, s1 in zip(coo.row, coo.col):
@@ -405,15 +543,15 @@ def _transition_correction(mix: _Mixture, eta: np.ndarray, P: np.ndarray) -> np.
                 mats[j][s, s1] += sign * 1e-6
                 mats[j] = mats[j].tocsr()
                 mix.set_transitions(mats)
-                out.append(mix.scores(eta, P)[1].sum(axis=0))
+                out.append(total())
             G[s, j, s1] = (out[0] - out[1]) / 2e-6
     mix.set_transitions(base)
-    total = np.zeros((problem.n_units, eta.size))
+    out_units = np.zeros((problem.n_units, dim))
     for s1 in np.flatnonzero(np.any(G != 0, axis=(0, 1, 3))):
         e = np.zeros(S)
         e[s1] = 1.0
-        total += tm.directional(G[:, :, s1, :], e, problem.n_units)
-    return total
+        out_units += tm.directional(G[:, :, s1, :], e, problem.n_units)
+    return out_units
 
 
 def _shift_columns(problem: DiscreteProblem,
@@ -458,6 +596,7 @@ def estimate_types(
     reset_state: int = 0,
     increment_range: tuple[int, int] | None = None,
     base: Mapping[Any, Any] | None = None,
+    ccp_update: str = "model",
     starts: int = 5,
     max_em: int = 2000,
     tol: float = 1e-7,
@@ -489,6 +628,16 @@ def estimate_types(
         The state space and the transitions' first step, as for
         :func:`~orthoccp.discrete.estimate_discrete`; the transitions are the same for
         every type.
+    ccp_update : {"model", "data"}, default="model"
+        How the EM updates each type's CCPs (Arcidiacono & Miller 2011, section 5): from the
+        model, :math:`P \leftarrow \Psi(\theta, P)` (the fixed point is the mixture MLE;
+        polished by Newton steps on the likelihood), or from the data, as posterior-weighted
+        cell frequencies with 0.5 pseudo-observations per state spread by the sample's choice
+        shares (the model's CCPs at states no row occupies). The data update is a two-step
+        estimator, cheaper per iteration for large state spaces, that differs from the MLE at
+        order :math:`n^{-1/2}`; its fixed point is solved as a system of unit-level moments
+        (pseudo-scores, shares, weighted frequencies) and its standard errors come from that
+        system's sandwich, so they include the CCPs' estimation.
     starts : int, default=5
         EM starts: the first from units ranked by how often they make the first shifted
         choice, the others from random posteriors (drawn from ``seed``). The best maximum is
@@ -534,6 +683,8 @@ def estimate_types(
     if isinstance(n_types, bool) or not isinstance(n_types, (int, np.integer)) or n_types < 2:
         raise InputError(f"n_types must be an integer >= 2, got {n_types!r}; with one type use "
                          f"orthoccp.discrete.estimate_discrete.")
+    if ccp_update not in ("model", "data"):
+        raise InputError(f"ccp_update must be 'model' or 'data', got {ccp_update!r}.")
     if isinstance(starts, bool) or not isinstance(starts, (int, np.integer)) or starts < 1:
         raise InputError(f"starts must be an integer >= 1, got {starts!r}.")
     if isinstance(max_em, bool) or not isinstance(max_em, (int, np.integer)) or max_em < 1:
@@ -558,11 +709,13 @@ def estimate_types(
 
     fits: list[_Fit] = []
     failed = 0
+    system = _DataSystem(mix) if ccp_update == "data" else None
     for r in range(int(starts)):
         try:
-            fit = _em(mix, _initial_posteriors(mix, shifts[0], r, seed), names=names,
-                      max_em=int(max_em), tol=float(tol))
-            fits.append(_polish(mix, _relabel(mix, fit, const, m)))
+            fit = _relabel(mix, _em(mix, _initial_posteriors(mix, shifts[0], r, seed),
+                                    names=names, max_em=int(max_em), tol=float(tol),
+                                    update=ccp_update), const, m)
+            fits.append(_polish(mix, fit) if system is None else system.solve(fit))
         except EstimationError:
             failed += 1
     if not fits:
@@ -574,11 +727,25 @@ def estimate_types(
                 and np.max(np.abs(f.eta - best.eta)) <= 1e-4)
     t_est = time.perf_counter() - t_start - t_first
 
-    L, sc, q, P = mix.scores(best.eta, best.P)
-    H = _hessian(mix, best.eta, P)
-    scale = 1.0 / np.sqrt(np.maximum(np.abs(np.diag(H)), 1e-300))
-    curvature = float(np.linalg.eigvalsh(-(scale[:, None] * H * scale[None, :])).min())
-    if curvature <= 1e-8:
+    if system is None:
+        omega = best.eta
+        L, sc, q, P = mix.scores(best.eta, best.P)
+        H = _hessian(mix, best.eta, P)
+        scale = 1.0 / np.sqrt(np.maximum(np.abs(np.diag(H)), 1e-300))
+        curvature = float(np.linalg.eigvalsh(-(scale[:, None] * H * scale[None, :])).min())
+        flat = curvature <= 1e-8
+        def total() -> np.ndarray:
+            return mix.scores(best.eta, P)[1].sum(axis=0)
+    else:
+        omega = system.pack(best.eta, best.P)
+        L, P = best.loglik, best.P
+        sc, q = system.moments(omega)
+        H = system.jacobian(omega)
+        curvature = float(1.0 / np.linalg.cond(H))
+        flat = curvature <= 1e-12
+        def total() -> np.ndarray:
+            return system.total(omega)
+    if flat:
         pi = mix.split(best.eta)[1]
         raise EstimationError(
             f"the mixture likelihood is not curved downward at the best point found (smallest "
@@ -600,9 +767,14 @@ def estimate_types(
     corr = np.zeros_like(sc)
     if transition_noise and problem.discount > 0 and \
             problem.transitions.method in ("frequency", "increments"):
-        corr = _transition_correction(mix, best.eta, P)
+        corr = _transition_correction(mix, total, omega.size)
+    # the reported parameters' influence terms -H^-1 (moments) (their rows, for the data
+    # update, of the whole system's), passed with the Jacobian -I
+    Hinv = np.linalg.inv(H)[:len(all_names)]
     with np.errstate(divide="ignore", invalid="ignore"):
-        ce = estimate_covariance(cov, jacobian=H, components={"choices": sc, "transitions": corr},
+        ce = estimate_covariance(cov, jacobian=-np.eye(len(all_names)),
+                                 components={"choices": -sc @ Hinv.T,
+                                             "transitions": -corr @ Hinv.T},
                                  units=np.arange(problem.n_units), parameters=all_names,
                                  small_sample=small_sample)
     diag = np.diag(ce.cov)
@@ -614,13 +786,16 @@ def estimate_types(
     share_se = (float(np.sqrt(share_cov.sum())), *np.sqrt(np.diag(share_cov)).tolist())
     labels = panel.unit_labels
     details = TypesDetails(
-        n_types=K, type_shifts=tuple(str(problem.choices[j]) for j in shifts), ccp_update="model",
+        n_types=K, type_shifts=tuple(str(problem.choices[j]) for j in shifts),
+        ccp_update=ccp_update,
         em_iterations=best.em_iterations, newton_steps=best.newton_steps, loglik=L,
         starts=int(starts), starts_agreeing=agree, starts_failed=failed,
         shares=tuple(float(v) for v in pi), share_errors=tuple(float(v) for v in share_se),
         n_states=problem.space.n_states,
         posteriors=pd.DataFrame(q, index=pd.Index(labels, name="unit"),
-                                columns=[f"type{k + 1}" for k in range(K)]))
+                                columns=[f"type{k + 1}" for k in range(K)]),
+        ccp=pd.DataFrame(P, columns=label_index(problem.choices), index=pd.MultiIndex.from_product(
+            [range(1, K + 1), range(problem.space.n_states)], names=["type", "state"])))
     index = label_index(all_names, "parameter")
     return TypesResults(
         params=pd.Series(best.eta, index=index, name="estimate"),
