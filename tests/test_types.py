@@ -53,11 +53,12 @@ def _type_logliks(eta: np.ndarray, df: pd.DataFrame, F: np.ndarray, beta: float)
     """(n_units, 2) each unit's log-likelihood as type 1 and as type 2, by this file's own
     value iteration."""
     wear, rc, shift = eta[:3]
+    slope = eta[3] if eta.size == 5 else 0.0  # a type-2 wear shift, when the model has one
     S = F.shape[1]
     x = np.arange(S)
     logp = []
-    for alpha in (0.0, shift):
-        u = np.stack([wear * x, np.full(S, rc + alpha)], axis=1)
+    for alpha, w in ((0.0, wear), (shift, wear + slope)):
+        u = np.stack([w * x, np.full(S, rc + alpha)], axis=1)
         V = np.zeros(S)
         for _ in range(5000):
             v = u + beta * np.einsum("jst,t->sj", F, V)
@@ -75,7 +76,7 @@ def _type_logliks(eta: np.ndarray, df: pd.DataFrame, F: np.ndarray, beta: float)
 def _mixture_loglik(eta: np.ndarray, df: pd.DataFrame, F: np.ndarray, beta: float,
                     per_unit: bool = False) -> np.ndarray | float:
     """The mixture log-likelihood (per unit, or summed)."""
-    share = eta[3]
+    share = eta[-1]
     ll = logsumexp(_type_logliks(eta, df, F, beta) + np.log([1 - share, share]), axis=1)
     return ll if per_unit else float(ll.sum())
 
@@ -210,6 +211,9 @@ def test_ignoring_the_types_biases_the_state_dependence(data: pd.DataFrame,
     ({"starts": 0}, "starts must be an integer >= 1"),
     ({"tol": 0}, "tol must be a number in"),
     ({"ccp_update": "both"}, "ccp_update must be 'model' or 'data'"),
+    ({"type_slopes": ["speed"]}, "type_slopes names 'speed', which is not a parameter"),
+    ({"type_slopes": ["replace"]}, "'replace' already differs by type"),
+    ({"type_slopes": "wear"}, "type_slopes must be a list of parameter names"),
 ])
 def test_bad_options_are_named(data: pd.DataFrame, kwargs: dict, message: str) -> None:
     opts = dict(utility=UTILITY, discount=DESIGN.discount, type_shifts=["replace"],
@@ -285,3 +289,23 @@ def test_data_and_model_updates_agree_to_sampling_error(data: pd.DataFrame,
                          small_sample=False, transition_noise=False, ccp_update="data")
     gap = (res.params - fitted.params).abs() / fitted.std_errors
     assert gap.max() < 0.5, gap.to_dict()
+
+
+def test_type_specific_slope_is_the_direct_mixture_mle() -> None:
+    """type_slopes: the types differ in the wear coefficient too; the EM's fixed point equals
+    scipy's direct maximum of the five-parameter mixture likelihood to 1e-6."""
+    design = TypesDesign(n_states=6, wear=-0.4, replace=-2.5, shifts=(0.0, 1.5),
+                         shares=(0.6, 0.4), increments=(0.35, 0.45, 0.2), discount=0.9,
+                         wear_shifts=(0.0, 0.2))
+    df = simulate_types(design, units=400, periods=10, seed=5)
+    res = estimate_types(_panel(df), utility=UTILITY, discount=0.9, type_shifts=["replace"],
+                         type_slopes=["wear"], n_states=6, starts=2)
+    assert list(res.params.index) == list(design.truth)
+    assert "shifting replace, the wear slope" in res.summary()
+    F = _frequencies(df, 6)
+    out = optimize.minimize(lambda e: -_mixture_loglik(e, df, F, 0.9),
+                            x0=res.params.to_numpy() + 0.05, method="Nelder-Mead",
+                            options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 40000,
+                                     "maxfev": 80000})
+    assert out.success
+    np.testing.assert_allclose(res.params.to_numpy(), out.x, atol=1e-6)

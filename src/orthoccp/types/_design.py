@@ -43,6 +43,9 @@ class TypesDesign:
         Pmf of the state's increment 0, 1, 2, ... after either choice.
     discount : float, default=0.95
         :math:`\beta`.
+    wear_shifts : tuple of float, optional
+        Each type's shift of the wear coefficient (the first is 0); None: no type difference
+        in wear.
     """
 
     n_states: int = 10
@@ -52,8 +55,12 @@ class TypesDesign:
     shares: tuple[float, ...] = (0.6, 0.4)
     increments: tuple[float, ...] = (0.3, 0.5, 0.2)
     discount: float = 0.95
+    wear_shifts: tuple[float, ...] | None = None
 
     def __post_init__(self) -> None:
+        if self.wear_shifts is not None and (len(self.wear_shifts) != len(self.shares)
+                                             or self.wear_shifts[0] != 0.0):
+            raise InputError("wear_shifts needs one entry per type, the first 0.")
         if len(self.shifts) != len(self.shares) or len(self.shares) < 1:
             raise InputError("shifts and shares must have one entry per type.")
         if self.shifts[0] != 0.0:
@@ -71,10 +78,12 @@ class TypesDesign:
     @property
     def truth(self) -> dict[str, float]:
         """The parameters as :func:`~orthoccp.types.estimate_types` names them, with
-        ``utility={"keep": {"wear": "x"}, "replace": {"replace": "1"}}`` and
-        ``type_shifts=["replace"]``."""
+        ``utility={"keep": {"wear": "x"}, "replace": {"replace": "1"}}``,
+        ``type_shifts=["replace"]`` and, with ``wear_shifts``, ``type_slopes=["wear"]``."""
         out = {"wear": self.wear, "replace": self.replace}
         out.update({f"replace:type{k + 1}": a for k, a in enumerate(self.shifts) if k > 0})
+        if self.wear_shifts is not None:
+            out.update({f"wear:type{k + 1}": a for k, a in enumerate(self.wear_shifts) if k > 0})
         out.update({f"share:type{k + 1}": s for k, s in enumerate(self.shares) if k > 0})
         return out
 
@@ -92,7 +101,8 @@ class TypesDesign:
         """(K, S, 2) flow utilities of each type."""
         x = np.arange(self.n_states, dtype=np.float64)
         u = np.empty((self.n_types, self.n_states, 2))
-        u[:, :, 0] = self.wear * x
+        wear = self.wear + np.asarray(self.wear_shifts or (0.0,) * self.n_types)
+        u[:, :, 0] = wear[:, None] * x[None, :]
         u[:, :, 1] = self.replace + np.asarray(self.shifts)[:, None]
         return u
 

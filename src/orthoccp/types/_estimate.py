@@ -87,6 +87,8 @@ class TypesDetails(Details):
         K.
     type_shifts : tuple of str
         The choices whose flow utility has a type-specific constant.
+    type_slopes : tuple of str
+        The utility parameters whose coefficient differs by type.
     ccp_update : {"model", "data"}
         How the EM updated the CCPs: from the model (its fixed point is the mixture maximum
         likelihood) or from the data (posterior-weighted frequencies; a two-step estimator
@@ -132,6 +134,7 @@ class TypesDetails(Details):
     shares: tuple[float, ...]
     share_errors: tuple[float, ...]
     n_states: int
+    type_slopes: tuple[str, ...] = ()
     posteriors: pd.DataFrame | None = field(default=None, repr=False)
     ccp: pd.DataFrame | None = field(default=None, repr=False)
 
@@ -143,9 +146,9 @@ class TypesDetails(Details):
                 "model-updated CCPs), Arcidiacono & Miller (2011)")
 
     def title(self, res: Results) -> str:
-        return (f"model: {self.n_types} permanent types shifting "
-                f"{', '.join(self.type_shifts)}; {self.n_states} states, discount "
-                f"{res.model['discount']}")
+        varying = ", ".join([*self.type_shifts, *(f"the {s} slope" for s in self.type_slopes)])
+        return (f"model: {self.n_types} permanent types shifting {varying}; {self.n_states} "
+                f"states, discount {res.model['discount']}")
 
     def lines(self, res: Results, *, plugin: bool) -> list[str]:
         shares = ", ".join(f"type {k + 1} {s:.3f} ({e:.3f})"
@@ -168,7 +171,8 @@ class TypesDetails(Details):
     def to_dict(self) -> dict[str, Any]:
         post = self.posteriors
         return {"kind": self.kind, "n_types": self.n_types,
-                "type_shifts": list(self.type_shifts), "ccp_update": self.ccp_update,
+                "type_shifts": list(self.type_shifts), "type_slopes": list(self.type_slopes),
+                "ccp_update": self.ccp_update,
                 "em_iterations": self.em_iterations, "newton_steps": self.newton_steps,
                 "loglik": self.loglik, "starts": self.starts,
                 "starts_agreeing": self.starts_agreeing, "starts_failed": self.starts_failed,
@@ -186,6 +190,7 @@ class TypesDetails(Details):
             columns=[f"type{k + 1}" for k in range(int(doc["n_types"]))])
         return cls(
             n_types=int(doc["n_types"]), type_shifts=tuple(doc["type_shifts"]),
+            type_slopes=tuple(doc.get("type_slopes", ())),
             ccp_update=str(doc["ccp_update"]), em_iterations=int(doc["em_iterations"]),
             newton_steps=int(doc["newton_steps"]), loglik=float(doc["loglik"]),
             starts=int(doc["starts"]), starts_agreeing=int(doc["starts_agreeing"]),
@@ -205,21 +210,25 @@ class TypesResults(Results):
 class _Mixture:
     """The stacked-type problem: design, transitions, unit cell counts and the likelihood."""
 
-    def __init__(self, problem: DiscreteProblem, shifts: Sequence[int], K: int,
-                 mats: Sequence[sparse.csr_matrix] | None = None) -> None:
+    def __init__(self, problem: DiscreteProblem, shifts: Sequence[int], slopes: Sequence[int],
+                 K: int) -> None:
         self.problem, self.K = problem, K
         S, J, p = problem.design.shape
         self.S, self.J, self.p0 = S, J, p
-        m = len(shifts)
+        m = len(shifts) + len(slopes)  # type-specific columns per type
         Z = np.zeros((K * S, J, p + (K - 1) * m))
         for k in range(K):
-            Z[k * S:(k + 1) * S, :, :p] = problem.design
+            rows = slice(k * S, (k + 1) * S)
+            Z[rows, :, :p] = problem.design
             if k > 0:
-                for c, j in enumerate(shifts):
-                    Z[k * S:(k + 1) * S, j, p + (k - 1) * m + c] = 1.0
+                first = p + (k - 1) * m
+                for c, j in enumerate(shifts):  # a constant on choice j
+                    Z[rows, j, first + c] = 1.0
+                for c, col in enumerate(slopes):  # the regressor of a base parameter
+                    Z[rows, :, first + len(shifts) + c] = problem.design[:, :, col]
         self.Z, self.p = Z, Z.shape[2]
         self.beta = problem.discount
-        self.set_transitions(problem.mats if mats is None else mats)
+        self.set_transitions(problem.mats)
         cells = problem.row_state * J + problem.row_choice
         self.C = sparse.csr_matrix(
             (np.ones(cells.size), (problem.row_unit, cells)),
@@ -581,6 +590,25 @@ def _shift_columns(problem: DiscreteProblem,
     return shifts, const
 
 
+def _slope_columns(problem: DiscreteProblem, type_slopes: Sequence[str],
+                   const: Sequence[int]) -> list[int]:
+    """The design columns of the parameters whose coefficient differs by type."""
+    if isinstance(type_slopes, (str, bytes)) or not isinstance(type_slopes, Sequence):
+        raise InputError(f"type_slopes must be a list of parameter names, e.g. "
+                         f"type_slopes=[{problem.parameters[0]!r}], got {type_slopes!r}.")
+    cols: list[int] = []
+    for name in type_slopes:
+        if name not in problem.parameters:
+            raise InputError(f"type_slopes names {name!r}, which is not a parameter of the "
+                             f"utility; the parameters are {', '.join(problem.parameters)}.")
+        col = problem.parameters.index(name)
+        if col in const or col in cols:
+            raise InputError(f"type_slopes: {name!r} already differs by type (a shifted "
+                             f"constant, or listed twice).")
+        cols.append(col)
+    return cols
+
+
 # --------------------------------------------------------------------------- front door
 def estimate_types(
     panel: Panel,
@@ -588,6 +616,7 @@ def estimate_types(
     utility: Mapping[Hashable, Mapping[str, Any]],
     discount: float,
     type_shifts: Sequence[Hashable],
+    type_slopes: Sequence[str] = (),
     n_types: int = 2,
     n_states: int | None = None,
     transitions: str | Mapping[Any, Any] = "frequency",
@@ -622,6 +651,9 @@ def estimate_types(
         Choices whose constant differs by type: parameters ``"<choice>:type<k>"`` for
         k = 2..K, type k's constant minus type 1's. Types are ordered by the first listed
         choice's constant, lowest first.
+    type_slopes : sequence of str, default=()
+        Utility parameters whose coefficient differs by type: parameters
+        ``"<parameter>:type<k>"``, type k's coefficient minus type 1's.
     n_types : int, default=2
         K, at least 2.
     n_states, transitions, smoothing, reset_choices, reset_state, increment_range, base
@@ -699,10 +731,12 @@ def estimate_types(
         smoothing=smoothing, reset_choices=reset_choices, reset_state=reset_state,
         increment_range=increment_range, base=base)
     shifts, const = _shift_columns(problem, type_shifts)
-    K, m = int(n_types), len(shifts)
-    mix = _Mixture(problem, shifts, K)
-    shift_names = tuple(f"{problem.choices[j]}:type{k}"
-                        for k in range(2, K + 1) for j in shifts)
+    slopes = _slope_columns(problem, type_slopes, const)
+    K, m = int(n_types), len(shifts) + len(slopes)
+    mix = _Mixture(problem, shifts, slopes, K)
+    per_type = [str(problem.choices[j]) for j in shifts] + [problem.parameters[c] for c in slopes]
+    shift_names = tuple(f"{name}:type{k}" for k in range(2, K + 1) for name in per_type)
+    varying = const + slopes  # the base columns the type-specific ones shift
     names = problem.parameters + shift_names
     all_names = names + tuple(f"share:type{k}" for k in range(2, K + 1))
     t_first = time.perf_counter() - t_start
@@ -714,7 +748,7 @@ def estimate_types(
         try:
             fit = _relabel(mix, _em(mix, _initial_posteriors(mix, shifts[0], r, seed),
                                     names=names, max_em=int(max_em), tol=float(tol),
-                                    update=ccp_update), const, m)
+                                    update=ccp_update), varying, m)
             fits.append(_polish(mix, fit) if system is None else system.solve(fit))
         except EstimationError:
             failed += 1
@@ -787,7 +821,7 @@ def estimate_types(
     labels = panel.unit_labels
     details = TypesDetails(
         n_types=K, type_shifts=tuple(str(problem.choices[j]) for j in shifts),
-        ccp_update=ccp_update,
+        type_slopes=tuple(problem.parameters[c] for c in slopes), ccp_update=ccp_update,
         em_iterations=best.em_iterations, newton_steps=best.newton_steps, loglik=L,
         starts=int(starts), starts_agreeing=agree, starts_failed=failed,
         shares=tuple(float(v) for v in pi), share_errors=tuple(float(v) for v in share_se),
