@@ -898,3 +898,18 @@ def test_types_monte_carlo_table_matches_its_json() -> None:
         _assert_printed(row["bias"], v["bias"], where)
         _assert_printed(row["SD / s.e."], v["sd_over_se"], where)
         _assert_printed(row["coverage"], v["coverage"], where)
+
+
+def test_types_bootstrap_table_matches_its_json() -> None:
+    """The bootstrap check's table is benchmarks/results/types_bootstrap.json's."""
+    doc = _json("types_bootstrap.json")
+    section = _section(_page("validation.md"), "## Unobserved types: a two-type renewal design")
+    rows = _tables(section[section.index("**The unit bootstrap as the check**"):])[0]
+    assert len(rows) == sum(len(u["table"]) for u in doc["updates"].values()) == 8
+    assert doc["draws"] == 199
+    for row in rows:
+        r = doc["updates"][row["update"]]["table"][row["parameter"]]
+        where = f"{row['update']} {row['parameter']}"
+        _assert_printed(row["sandwich s.e."], r["std_error"], where)
+        _assert_printed(row["bootstrap SD"], r["bootstrap_sd"], where)
+        _assert_printed(row["ratio"], r["ratio"], where)

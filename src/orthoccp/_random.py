@@ -36,6 +36,7 @@ __all__ = ["STREAMS", "stream"]
 #: of every stream's key, so reordering would change every draw).
 STREAMS: Final[tuple[str, ...]] = (
     "folds", "first_stage", "projections", "ccp_steps", "riesz", "refit", "types",
+    "bootstrap",
 )
 _INDEX: Final[dict[str, int]] = {name: i for i, name in enumerate(STREAMS)}
 

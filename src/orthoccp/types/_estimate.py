@@ -627,6 +627,7 @@ def estimate_types(
     base: Mapping[Any, Any] | None = None,
     ccp_update: str = "model",
     starts: int = 5,
+    initial_posteriors: Any = None,
     max_em: int = 2000,
     tol: float = 1e-7,
     seed: int = 0,
@@ -674,6 +675,10 @@ def estimate_types(
         EM starts: the first from units ranked by how often they make the first shifted
         choice, the others from random posteriors (drawn from ``seed``). The best maximum is
         reported with the number of starts that reached it.
+    initial_posteriors : array-like, optional
+        (n_units, K) posterior type probabilities (rows in the panel's sorted unit order) for
+        the first start instead of the ranking, e.g. a previous estimate's
+        ``details.posteriors`` for a warm start.
     max_em : int, default=2000
         Cap on EM iterations per start.
     tol : float, default=1e-7
@@ -744,9 +749,16 @@ def estimate_types(
     fits: list[_Fit] = []
     failed = 0
     system = _DataSystem(mix) if ccp_update == "data" else None
+    given = None if initial_posteriors is None else np.asarray(initial_posteriors, dtype=float)
+    if given is not None and (given.shape != (problem.n_units, K) or not np.all(given >= 0)
+                              or np.max(np.abs(given.sum(axis=1) - 1.0)) > 1e-8):
+        raise InputError(f"initial_posteriors must be a ({problem.n_units}, {K}) array of "
+                         f"probabilities whose rows sum to one, got shape {given.shape}.")
     for r in range(int(starts)):
         try:
-            fit = _relabel(mix, _em(mix, _initial_posteriors(mix, shifts[0], r, seed),
+            q0 = given if (r == 0 and given is not None) else \
+                _initial_posteriors(mix, shifts[0], r, seed)
+            fit = _relabel(mix, _em(mix, q0,
                                     names=names, max_em=int(max_em), tol=float(tol),
                                     update=ccp_update), varying, m)
             fits.append(_polish(mix, fit) if system is None else system.solve(fit))
