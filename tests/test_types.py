@@ -176,7 +176,7 @@ def test_types_are_ordered_and_starts_agree(data: pd.DataFrame) -> None:
     assert res.params["replace:type2"] > 0  # type 1 has the lowest replacement constant
     assert res.details.starts_agreeing == 4 and res.details.starts_failed == 0
     text = res.summary()
-    assert "type shares (s.e.): type 1" in text and "4 of 4 starts" not in text
+    assert "type shares (s.e.) [95% interval on the log-odds scale]: type 1" in text
     assert "starts: 4 of 4 reached this maximum" in text
     assert "independent of the first observed state" in text
 
@@ -206,7 +206,8 @@ def test_ignoring_the_types_biases_the_state_dependence(data: pd.DataFrame,
 @pytest.mark.parametrize("kwargs, message", [
     ({"n_types": 1}, "n_types must be an integer >= 2"),
     ({"type_shifts": ["scrap"]}, "type_shifts names 'scrap', which is not a choice"),
-    ({"type_shifts": "replace"}, "type_shifts must list at least one choice"),
+    ({"type_shifts": "scrap"}, "type_shifts must list at least one choice"),
+    ({"type_shifts": []}, "type_shifts must list at least one choice"),
     ({"type_shifts": ["keep"]}, "choice 'keep' has no constant in utility"),
     ({"starts": 0}, "starts must be an integer >= 1"),
     ({"tol": 0}, "tol must be a number in"),
@@ -332,3 +333,42 @@ def test_unit_bootstrap_agrees_with_the_sandwich(data: pd.DataFrame) -> None:
         bootstrap_types(res, panel, draws=1, **opts)
     with pytest.raises(InputError, match="panel must be the panel the result was estimated on"):
         bootstrap_types(res, _panel(data[data["unit"] < 100]), draws=2, **opts)
+
+
+def test_em_cap_is_reported_and_newton_finishes_the_fit(data: pd.DataFrame,
+                                                        fitted: TypesResults) -> None:
+    """Stopping the EM after 3 iterations changes nothing but the record: the Newton steps on
+    the mixture likelihood reach the same maximum (1e-6) and the summary says the EM hit its
+    cap."""
+    res = estimate_types(_panel(data), utility=UTILITY, discount=DESIGN.discount,
+                         type_shifts="replace", n_states=DESIGN.n_states, starts=3, max_em=3,
+                         small_sample=False, transition_noise=False)
+    assert not res.details.em_converged and fitted.details.em_converged
+    assert "EM stopped at its cap of 3 iterations" in res.summary()
+    np.testing.assert_allclose(res.params.to_numpy(), fitted.params.to_numpy(), atol=1e-6)
+
+
+def test_share_interval_is_built_on_the_log_odds_scale(fitted: TypesResults) -> None:
+    """Delta method on logit(pi): se(logit pi) = se(pi) / (pi (1 - pi)); the interval is the
+    back-transformed logit(pi) +/- z se(logit pi), inside (0, 1)."""
+    from scipy.special import expit, logit
+    from scipy.stats import norm
+
+    d = fitted.details
+    for k in (1, 2):
+        s, e = d.shares[k - 1], d.share_errors[k - 1]
+        half = norm.ppf(0.95) * e / (s * (1 - s))
+        lo, hi = d.share_interval(k, level=0.90)
+        assert (lo, hi) == pytest.approx((expit(logit(s) - half), expit(logit(s) + half)),
+                                         rel=1e-12)
+        assert 0 < lo < s < hi < 1
+    assert "[95% interval on the log-odds scale]" in fitted.summary()
+
+
+def test_too_many_types_are_refused(data: pd.DataFrame) -> None:
+    """Three types on two-type data: the best point has two types with the same payoffs, so
+    their split is not identified; the estimator says so instead of reporting a share with a
+    meaningless standard error."""
+    with pytest.raises(EstimationError, match="have the same payoffs"):
+        estimate_types(_panel(data), utility=UTILITY, discount=DESIGN.discount,
+                       type_shifts=["replace"], n_types=3, n_states=DESIGN.n_states, starts=2)

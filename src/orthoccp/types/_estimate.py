@@ -44,7 +44,8 @@ from typing import Any, ClassVar
 import numpy as np
 import pandas as pd
 from scipy import sparse
-from scipy.special import logsumexp
+from scipy.special import expit, logsumexp
+from scipy.stats import norm
 
 from .._errors import EstimationError, InputError, OrthoCCPWarning
 from .._arrays import label_index
@@ -98,8 +99,13 @@ class TypesDetails(Details):
     newton_steps : int
         Newton steps on the mixture likelihood after the EM.
     loglik : float
-        The mixture log-likelihood at the estimate (choices only; the transitions' part does
-        not depend on the parameters).
+        ``"model"``: the mixture log-likelihood at the estimate (choices only; the transitions'
+        part does not depend on the parameters). ``"data"``: the pseudo-log-likelihood the
+        E-step maximises, of :math:`\Psi(\hat\theta, \hat P)` at the data-updated CCPs; it is
+        not the mixture likelihood and may exceed the model update's maximum.
+    em_converged : bool
+        False when the EM stopped at ``max_em`` iterations (the Newton steps after it then
+        finished the fit; ``newton_steps`` says how many).
     starts, starts_agreeing, starts_failed : int
         Starts tried, those that reached the reported maximum (log-likelihood within 1e-6,
         parameters within 1e-4), and those that failed (an empty type or no convergence).
@@ -135,6 +141,7 @@ class TypesDetails(Details):
     share_errors: tuple[float, ...]
     n_states: int
     type_slopes: tuple[str, ...] = ()
+    em_converged: bool = True
     posteriors: pd.DataFrame | None = field(default=None, repr=False)
     ccp: pd.DataFrame | None = field(default=None, repr=False)
 
@@ -150,15 +157,28 @@ class TypesDetails(Details):
         return (f"model: {self.n_types} permanent types shifting {varying}; {self.n_states} "
                 f"states, discount {res.model['discount']}")
 
+    def share_interval(self, k: int, level: float = 0.95) -> tuple[float, float]:
+        """Type ``k``'s (1-based) share interval, built on the log-odds scale by the delta
+        method, :math:`\mathrm{logit}^{-1}(\mathrm{logit}\,\hat\pi \pm z\,
+        \mathrm{se}/(\hat\pi(1-\hat\pi)))`: it stays inside (0, 1)."""
+        s, e = self.shares[k - 1], self.share_errors[k - 1]
+        half = float(norm.ppf(0.5 + level / 2)) * e / (s * (1.0 - s))
+        centre = np.log(s / (1.0 - s))
+        return float(expit(centre - half)), float(expit(centre + half))
+
     def lines(self, res: Results, *, plugin: bool) -> list[str]:
-        shares = ", ".join(f"type {k + 1} {s:.3f} ({e:.3f})"
-                           for k, (s, e) in enumerate(zip(self.shares, self.share_errors)))
+        shares = ", ".join(
+            f"type {k + 1} {s:.3f} ({e:.3f}) [{lo:.3f}, {hi:.3f}]"
+            for k, (s, e) in enumerate(zip(self.shares, self.share_errors))
+            for lo, hi in [self.share_interval(k + 1)])
+        em = (f"EM iterations {self.em_iterations}" if self.em_converged else
+              f"EM stopped at its cap of {self.em_iterations} iterations")
         lines = [f"units {res.n_units}; {res.accounting.describe()}",
-                 f"type shares (s.e.): {shares}",
+                 f"type shares (s.e.) [95% interval on the log-odds scale]: {shares}",
                  f"CCPs updated from the {self.ccp_update}; "
                  + ("pseudo-" if self.ccp_update == "data" else "")
-                 + f"mixture log-likelihood {self.loglik:.4f}; EM iterations "
-                 f"{self.em_iterations}, then {self.newton_steps} Newton steps",
+                 + f"mixture log-likelihood {self.loglik:.4f}; {em}, then "
+                 f"{self.newton_steps} Newton steps",
                  f"starts: {self.starts_agreeing} of {self.starts} reached this maximum"
                  + (f" ({self.starts_failed} failed)" if self.starts_failed else "")]
         lines.append(covariance_line(res.cov_type, res.small_sample)
@@ -173,7 +193,8 @@ class TypesDetails(Details):
         return {"kind": self.kind, "n_types": self.n_types,
                 "type_shifts": list(self.type_shifts), "type_slopes": list(self.type_slopes),
                 "ccp_update": self.ccp_update,
-                "em_iterations": self.em_iterations, "newton_steps": self.newton_steps,
+                "em_iterations": self.em_iterations, "em_converged": self.em_converged,
+                "newton_steps": self.newton_steps,
                 "loglik": self.loglik, "starts": self.starts,
                 "starts_agreeing": self.starts_agreeing, "starts_failed": self.starts_failed,
                 "shares": list(self.shares), "share_errors": list(self.share_errors),
@@ -192,6 +213,7 @@ class TypesDetails(Details):
             n_types=int(doc["n_types"]), type_shifts=tuple(doc["type_shifts"]),
             type_slopes=tuple(doc.get("type_slopes", ())),
             ccp_update=str(doc["ccp_update"]), em_iterations=int(doc["em_iterations"]),
+            em_converged=bool(doc.get("em_converged", True)),
             newton_steps=int(doc["newton_steps"]), loglik=float(doc["loglik"]),
             starts=int(doc["starts"]), starts_agreeing=int(doc["starts_agreeing"]),
             starts_failed=int(doc["starts_failed"]), shares=tuple(doc["shares"]),
@@ -324,6 +346,7 @@ class _Fit:
     em_iterations: int
     newton_steps: int = 0
     converged: bool = False
+    em_converged: bool = True
 
 
 def _frequencies(mix: _Mixture, q: np.ndarray, fallback: np.ndarray) -> np.ndarray:
@@ -339,7 +362,7 @@ def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
     """EM from initial posteriors q, the CCPs updated from the model or from the data."""
     P = _frequencies(mix, q, np.tile(mix.shares, (mix.K * mix.S, 1)))
     theta: np.ndarray | None = None
-    it = 0
+    it, done = 0, False
     for it in range(1, max_em + 1):
         pi = q.mean(axis=0)
         if pi.min() < 1e-6:
@@ -352,12 +375,15 @@ def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
         change = max(float(np.max(np.abs(P_new - P))), float(np.max(np.abs(q_new - q))))
         P, q = P_new, q_new
         if change < tol:
+            done = True
             break
     assert theta is not None
     eta = np.concatenate([theta, q.mean(axis=0)[1:]])
     if update == "data":
-        return _Fit(eta=eta, loglik=_DataSystem(mix).loglik(eta, P), P=P, em_iterations=it)
-    return _Fit(eta=eta, loglik=mix.scores(eta, P)[0], P=P, em_iterations=it)
+        return _Fit(eta=eta, loglik=_DataSystem(mix).loglik(eta, P), P=P, em_iterations=it,
+                    em_converged=done)
+    return _Fit(eta=eta, loglik=mix.scores(eta, P)[0], P=P, em_iterations=it,
+                em_converged=done)
 
 
 class _DataSystem:
@@ -445,7 +471,8 @@ class _DataSystem:
             if np.all(np.abs(step) <= 1e-10 * (1.0 + np.abs(omega))):
                 _, _, P = self.unpack(omega)
                 eta = omega[:self.q_size]
-                return _Fit(eta, self.loglik(eta, P), P, fit.em_iterations, steps, True)
+                return _Fit(eta, self.loglik(eta, P), P, fit.em_iterations, steps, True,
+                            fit.em_converged)
             t = 1.0
             while True:
                 cand = omega + t * step
@@ -461,7 +488,8 @@ class _DataSystem:
             omega, f = cand, f_new
         _, _, P = self.unpack(omega)
         eta = omega[:self.q_size]
-        return _Fit(eta, self.loglik(eta, P), P, fit.em_iterations, steps, False)
+        return _Fit(eta, self.loglik(eta, P), P, fit.em_iterations, steps, False,
+                    fit.em_converged)
 
 
 def _relabel(mix: _Mixture, fit: _Fit, const: Sequence[int], m: int) -> _Fit:
@@ -481,7 +509,8 @@ def _relabel(mix: _Mixture, fit: _Fit, const: Sequence[int], m: int) -> _Fit:
     S = mix.S
     P = np.concatenate([fit.P[k * S:(k + 1) * S] for k in order])
     eta = np.concatenate([new, pi[order][1:]])
-    return _Fit(eta=eta, loglik=fit.loglik, P=P, em_iterations=fit.em_iterations)
+    return _Fit(eta=eta, loglik=fit.loglik, P=P, em_iterations=fit.em_iterations,
+                em_converged=fit.em_converged)
 
 
 def _polish(mix: _Mixture, fit: _Fit, *, max_steps: int = 50) -> _Fit:
@@ -502,7 +531,7 @@ def _polish(mix: _Mixture, fit: _Fit, *, max_steps: int = 50) -> _Fit:
             raise EstimationError("the mixture likelihood's Hessian is singular at the EM "
                                   "fixed point; the types are not identified.") from exc
         if np.all(np.abs(step) <= 1e-10 * (1.0 + np.abs(eta))):
-            return _Fit(eta, L, P, fit.em_iterations, steps, converged=True)
+            return _Fit(eta, L, P, fit.em_iterations, steps, True, fit.em_converged)
         t = 1.0
         while True:
             cand = eta + t * step
@@ -513,9 +542,9 @@ def _polish(mix: _Mixture, fit: _Fit, *, max_steps: int = 50) -> _Fit:
                     break
             t *= 0.5
             if t < 1e-8:
-                return _Fit(eta, L, P, fit.em_iterations, steps)
+                return _Fit(eta, L, P, fit.em_iterations, steps, False, fit.em_converged)
         eta, L, sc, P = cand, L_new, sc_new, P_new
-    return _Fit(eta, L, P, fit.em_iterations, steps)
+    return _Fit(eta, L, P, fit.em_iterations, steps, False, fit.em_converged)
 
 
 def _initial_posteriors(mix: _Mixture, shift_choice: int, r: int, seed: int) -> np.ndarray:
@@ -566,10 +595,14 @@ def _transition_correction(mix: _Mixture, total: Any, dim: int) -> np.ndarray:
 def _shift_columns(problem: DiscreteProblem,
                    type_shifts: Sequence[Hashable]) -> tuple[list[int], list[int]]:
     """The shifted choices' positions and the design column of each one's constant."""
+    if isinstance(type_shifts, (str, bytes)) and type_shifts in problem.choices:
+        type_shifts = [type_shifts]  # one choice label given alone
     if isinstance(type_shifts, (str, bytes)) or not isinstance(type_shifts, Sequence) \
             or len(type_shifts) == 0:
-        raise InputError(f"type_shifts must list at least one choice, e.g. "
-                         f"type_shifts=[{show_label(problem.choices[-1])}], got {type_shifts!r}.")
+        raise InputError(f"type_shifts must list at least one choice (a choice with a constant "
+                         f"in the utility), as a list such as [{show_label(problem.choices[-1])}]; "
+                         f"got {type_shifts!r}; the choices are "
+                         f"{', '.join(map(show_label, problem.choices))}.")
     shifts, const = [], []
     for c in type_shifts:
         if c not in problem.choices:
@@ -791,13 +824,22 @@ def estimate_types(
         flat = curvature <= 1e-12
         def total() -> np.ndarray:
             return system.total(omega)
+    levels = np.zeros((K, m))
+    levels[1:] = best.eta[mix.p0:mix.p].reshape(K - 1, m)
+    gaps = np.abs(levels[:, None, :] - levels[None, :, :]).max(axis=2) + np.eye(K)
+    if gaps.min() < 1e-4:  # two types with the same payoffs: their split is not identified
+        a, b = np.unravel_index(np.argmin(gaps), gaps.shape)
+        curvature, flat = min(curvature, 0.0), True
+        shifts_note = f" (types {a + 1} and {b + 1} have the same payoffs)"
+    else:
+        shifts_note = ""
     if flat:
         pi = mix.split(best.eta)[1]
         raise EstimationError(
             f"the mixture likelihood is not curved downward at the best point found (smallest "
             f"scaled curvature {curvature:.3g}; shares {np.round(pi, 3).tolist()}, shifts "
-            f"{np.round(best.eta[mix.p0:mix.p], 3).tolist()}): the {K} types are not "
-            f"identified in this sample, e.g. the data show no difference between types in "
+            f"{np.round(best.eta[mix.p0:mix.p], 3).tolist()}{shifts_note}): the {K} types "
+            f"are not identified in this sample, e.g. the data show no difference between types in "
             f"{', '.join(show_label(problem.choices[j]) for j in shifts)}. Estimate with fewer "
             f"types, or one (orthoccp.discrete.estimate_discrete).")
     if agree < len(fits):
@@ -830,11 +872,19 @@ def estimate_types(
     pi = mix.split(best.eta)[1]
     share_cov = ce.cov[mix.p:, mix.p:]
     share_se = (float(np.sqrt(share_cov.sum())), *np.sqrt(np.diag(share_cov)).tolist())
+    small = [k for k in range(K) if pi[k] - 1.959964 * share_se[k] <= 0]
+    if small:
+        warnings.warn(
+            f"type {small[0] + 1}'s share is {pi[small[0]]:.3f} (s.e. {share_se[small[0]]:.3f}): "
+            f"its Wald interval reaches 0, so the data hardly support {K} types; compare the "
+            f"fit with {K - 1} (log-likelihood, starts agreeing) before reading the types.",
+            OrthoCCPWarning, stacklevel=2)
     labels = panel.unit_labels
     details = TypesDetails(
         n_types=K, type_shifts=tuple(str(problem.choices[j]) for j in shifts),
         type_slopes=tuple(problem.parameters[c] for c in slopes), ccp_update=ccp_update,
-        em_iterations=best.em_iterations, newton_steps=best.newton_steps, loglik=L,
+        em_iterations=best.em_iterations, em_converged=best.em_converged,
+        newton_steps=best.newton_steps, loglik=L,
         starts=int(starts), starts_agreeing=agree, starts_failed=failed,
         shares=tuple(float(v) for v in pi), share_errors=tuple(float(v) for v in share_se),
         n_states=problem.space.n_states,
