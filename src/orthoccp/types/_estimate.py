@@ -101,7 +101,7 @@ class TypesDetails(Details):
     loglik : float
         ``"model"``: the mixture log-likelihood at the estimate (choices only; the transitions'
         part does not depend on the parameters). ``"data"``: the pseudo-log-likelihood the
-        E-step maximises, of :math:`\Psi(\hat\theta, \hat P)` at the data-updated CCPs; it is
+        E-step maximises, of :math:`\\Psi(\\hat\\theta, \\hat P)` at the data-updated CCPs; it is
         not the mixture likelihood and may exceed the model update's maximum.
     em_converged : bool
         False when the EM stopped at ``max_em`` iterations (the Newton steps after it then
@@ -158,7 +158,7 @@ class TypesDetails(Details):
                 f"states, discount {res.model['discount']}")
 
     def share_interval(self, k: int, level: float = 0.95) -> tuple[float, float]:
-        """Type ``k``'s (1-based) share interval, built on the log-odds scale by the delta
+        r"""Type ``k``'s (1-based) share interval, built on the log-odds scale by the delta
         method, :math:`\mathrm{logit}^{-1}(\mathrm{logit}\,\hat\pi \pm z\,
         \mathrm{se}/(\hat\pi(1-\hat\pi)))`: it stays inside (0, 1)."""
         s, e = self.shares[k - 1], self.share_errors[k - 1]
