@@ -372,3 +372,50 @@ def test_too_many_types_are_refused(data: pd.DataFrame) -> None:
     with pytest.raises(EstimationError, match="have the same payoffs"):
         estimate_types(_panel(data), utility=UTILITY, discount=DESIGN.discount,
                        type_shifts=["replace"], n_types=3, n_states=DESIGN.n_states, starts=2)
+
+
+def test_share_covariates_are_the_direct_mixture_mle() -> None:
+    """Type probabilities that depend on a unit covariate: with types drawn 50/50 and
+    z | type ~ N(-0.6 or +0.6, 1), P(type 2 | z) is logistic with intercept 0 and slope 1.2
+    (Bayes' rule for two normals of equal variance). The EM's fixed point equals scipy's
+    direct maximum of that mixture likelihood, computed with this file's value iteration, to
+    1e-6."""
+    design = TypesDesign(n_states=6, wear=-0.4, replace=-2.5, shifts=(0.0, 1.5),
+                         shares=(0.5, 0.5), increments=(0.35, 0.45, 0.2), discount=0.9)
+    df = simulate_types(design, units=400, periods=10, seed=8)
+    rng = np.random.default_rng(8)
+    kind = df.groupby("unit")["type"].first().to_numpy()
+    z = rng.normal(np.where(kind == 2, 0.6, -0.6), 1.0)
+    df["z"] = z[df["unit"].to_numpy()]
+    res = estimate_types(_panel(df), utility=UTILITY, discount=0.9, type_shifts=["replace"],
+                         share_covariates=["z"], n_states=6, starts=2)
+    assert list(res.params.index) == ["wear", "replace", "replace:type2", "logodds:type2",
+                                      "logodds:type2:z"]
+    F = _frequencies(df, 6)
+
+    def negloglik(e: np.ndarray) -> float:
+        ll = _type_logliks(e[:3], df, F, 0.9)
+        p2 = 1 / (1 + np.exp(-(e[3] + e[4] * z)))
+        return -float(logsumexp(ll + np.log(np.column_stack([1 - p2, p2])), axis=1).sum())
+
+    out = optimize.minimize(negloglik, x0=res.params.to_numpy() + 0.05, method="Nelder-Mead",
+                            options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 40000,
+                                     "maxfev": 80000})
+    assert out.success
+    np.testing.assert_allclose(res.params.to_numpy(), out.x, atol=1e-6)
+    # the shares are the units' average type probabilities; the slope is near its truth
+    p2 = 1 / (1 + np.exp(-(res.params["logodds:type2"] + res.params["logodds:type2:z"] * z)))
+    assert res.details.shares[1] == pytest.approx(p2.mean(), rel=1e-12)
+    assert abs(res.params["logodds:type2:z"] - 1.2) < 3 * res.std_errors["logodds:type2:z"]
+    assert res.details.share_covariates == ("z",)
+    back = oc.Results.from_json(res.to_json())
+    assert back.details.share_covariates == ("z",)
+    with pytest.raises(InputError, match="share_covariates column 'period' changes within"):
+        estimate_types(_panel(df), utility=UTILITY, discount=0.9, type_shifts=["replace"],
+                       share_covariates=["period"], n_states=6)
+    with pytest.raises(InputError, match="share_covariates names 'w', which is not a column"):
+        estimate_types(_panel(df), utility=UTILITY, discount=0.9, type_shifts=["replace"],
+                       share_covariates=["w"], n_states=6)
+    with pytest.raises(InputError, match="share_covariates needs ccp_update='model'"):
+        estimate_types(_panel(df), utility=UTILITY, discount=0.9, type_shifts=["replace"],
+                       share_covariates=["z"], n_states=6, ccp_update="data")

@@ -110,9 +110,12 @@ class TypesDetails(Details):
         Starts tried, those that reached the reported maximum (log-likelihood within 1e-6,
         parameters within 1e-4), and those that failed (an empty type or no convergence).
     shares : tuple of float
-        :math:`\\hat\\pi_1, \\dots, \\hat\\pi_K` (type 1's share is one minus the others').
+        :math:`\\hat\\pi_1, \\dots, \\hat\\pi_K` (type 1's share is one minus the others'); with
+        share covariates, the sample averages of the units' type probabilities.
     share_errors : tuple of float
-        Their standard errors (type 1's by the delta method).
+        Their standard errors (by the delta method where they are not parameters).
+    share_covariates : tuple of str
+        The unit columns the type probabilities depend on (empty: constant shares).
     n_states : int
         States of the (single-type) state space.
     posteriors : pandas.DataFrame or None
@@ -141,6 +144,7 @@ class TypesDetails(Details):
     share_errors: tuple[float, ...]
     n_states: int
     type_slopes: tuple[str, ...] = ()
+    share_covariates: tuple[str, ...] = ()
     em_converged: bool = True
     posteriors: pd.DataFrame | None = field(default=None, repr=False)
     ccp: pd.DataFrame | None = field(default=None, repr=False)
@@ -192,6 +196,7 @@ class TypesDetails(Details):
         post = self.posteriors
         return {"kind": self.kind, "n_types": self.n_types,
                 "type_shifts": list(self.type_shifts), "type_slopes": list(self.type_slopes),
+                "share_covariates": list(self.share_covariates),
                 "ccp_update": self.ccp_update,
                 "em_iterations": self.em_iterations, "em_converged": self.em_converged,
                 "newton_steps": self.newton_steps,
@@ -212,6 +217,7 @@ class TypesDetails(Details):
         return cls(
             n_types=int(doc["n_types"]), type_shifts=tuple(doc["type_shifts"]),
             type_slopes=tuple(doc.get("type_slopes", ())),
+            share_covariates=tuple(doc.get("share_covariates", ())),
             ccp_update=str(doc["ccp_update"]), em_iterations=int(doc["em_iterations"]),
             em_converged=bool(doc.get("em_converged", True)),
             newton_steps=int(doc["newton_steps"]), loglik=float(doc["loglik"]),
@@ -233,8 +239,8 @@ class _Mixture:
     """The stacked-type problem: design, transitions, unit cell counts and the likelihood."""
 
     def __init__(self, problem: DiscreteProblem, shifts: Sequence[int], slopes: Sequence[int],
-                 K: int) -> None:
-        self.problem, self.K = problem, K
+                 K: int, W: np.ndarray | None = None) -> None:
+        self.problem, self.K, self.W = problem, K, W
         S, J, p = problem.design.shape
         self.S, self.J, self.p0 = S, J, p
         m = len(shifts) + len(slopes)  # type-specific columns per type
@@ -288,7 +294,11 @@ class _Mixture:
 
     @staticmethod
     def posterior(ll: np.ndarray, pi: np.ndarray) -> tuple[np.ndarray, float]:
-        a = ll + np.log(pi)[None, :]
+        """Posteriors and the log-likelihood; ``pi`` is (K,) or, with share covariates,
+        (n_units, K)."""
+        with np.errstate(divide="ignore"):
+            lp = np.log(pi)
+        a = ll + (lp[None, :] if lp.ndim == 1 else lp)
         lse = logsumexp(a, axis=1)
         return np.exp(a - lse[:, None]), float(lse.sum())
 
@@ -306,12 +316,60 @@ class _Mixture:
         S, J = self.S, self.J
         s_theta = sum(q[:, [k]] * (self.C @ g[k * S:(k + 1) * S].reshape(S * J, self.p))
                       for k in range(self.K))
-        s_pi = q[:, 1:] / pi[None, 1:] - (q[:, 0] / pi[0])[:, None]
+        if self.W is None:
+            s_pi = q[:, 1:] / pi[None, 1:] - (q[:, 0] / pi[0])[:, None]
+        else:  # d ln L_i / d gamma_k = (q_ik - pi_ik) w_i
+            s_pi = ((q - pi)[:, 1:, None] * self.W[:, None, :]).reshape(q.shape[0], -1)
         return L, np.column_stack([s_theta, s_pi]), q, lam
 
     def split(self, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        r"""theta and the type probabilities: (K,) shares, or with share covariates the
+        (n_units, K) multinomial logit :math:`\pi_{ik} \propto \exp(w_i'\gamma_k)`,
+        :math:`\gamma_1 = 0`."""
         theta, rest = eta[:self.p], eta[self.p:]
-        return theta, np.concatenate([[1.0 - rest.sum()], rest])
+        if self.W is None:
+            return theta, np.concatenate([[1.0 - rest.sum()], rest])
+        return theta, _softmax_shares(self.W, rest.reshape(self.K - 1, -1))
+
+
+def _softmax_shares(W: np.ndarray, gamma: np.ndarray) -> np.ndarray:
+    r"""(n, K) :math:`\pi_{ik} = \exp(w_i'\gamma_k) / \sum_l \exp(w_i'\gamma_l)`,
+    :math:`\gamma_1 = 0`."""
+    v = np.column_stack([np.zeros(W.shape[0]), W @ gamma.T])
+    v -= v.max(axis=1, keepdims=True)
+    e = np.exp(v)
+    return e / e.sum(axis=1, keepdims=True)
+
+
+def _fit_share_logit(W: np.ndarray, q: np.ndarray, gamma: np.ndarray) -> np.ndarray:
+    r"""The M-step of the type probabilities: the multinomial logit of the posteriors on the
+    unit covariates, :math:`\max_\gamma \sum_i \sum_k q_{ik} \ln \pi_{ik}(\gamma)`, by
+    Newton steps (step-halved) from ``gamma``."""
+    K1, c = gamma.shape
+    g = gamma.copy()
+
+    def value(x: np.ndarray) -> float:
+        return float(np.sum(q * np.log(np.maximum(_softmax_shares(W, x), 1e-300))))
+
+    f = value(g)
+    for _ in range(100):
+        pi = _softmax_shares(W, g)
+        grad = ((q - pi)[:, 1:].T @ W).ravel()
+        H = np.zeros((K1 * c, K1 * c))
+        for a in range(K1):
+            for b in range(K1):
+                w = pi[:, a + 1] * ((a == b) - pi[:, b + 1])
+                H[a * c:(a + 1) * c, b * c:(b + 1) * c] = (W * w[:, None]).T @ W
+        step = np.linalg.lstsq(H, grad, rcond=None)[0].reshape(K1, c)
+        t_ = 1.0
+        while value(g + t_ * step) < f - 1e-12 * max(1.0, abs(f)) and t_ > 1e-8:
+            t_ *= 0.5
+        g = g + t_ * step
+        f_new = value(g)
+        if np.max(np.abs(t_ * step)) < 1e-12 * (1 + np.max(np.abs(g))):
+            break
+        f = f_new
+    return g
 
 
 def _central(total: Any, omega: np.ndarray, bounded: int, mix: _Mixture) -> np.ndarray:
@@ -321,7 +379,7 @@ def _central(total: Any, omega: np.ndarray, bounded: int, mix: _Mixture) -> np.n
     out = np.empty((n, n))
     for j in range(n):
         h = 1e-5 * max(1.0, abs(omega[j]))
-        if j >= mix.p:
+        if j >= mix.p and (mix.W is None or j >= bounded):
             h = min(h, 0.25 * omega[j], 0.25 * (1.0 - omega[j]))
             if j < bounded:  # a share: type 1's share is one minus the others'
                 h = min(h, 0.25 * mix.split(omega[:bounded])[1][0])
@@ -362,11 +420,16 @@ def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
     """EM from initial posteriors q, the CCPs updated from the model or from the data."""
     P = _frequencies(mix, q, np.tile(mix.shares, (mix.K * mix.S, 1)))
     theta: np.ndarray | None = None
+    gamma = None if mix.W is None else np.zeros((mix.K - 1, mix.W.shape[1]))
     it, done = 0, False
     for it in range(1, max_em + 1):
-        pi = q.mean(axis=0)
-        if pi.min() < 1e-6:
-            raise EstimationError(f"a type's share fell to {pi.min():.2g}: an empty type.")
+        if gamma is None:
+            pi = q.mean(axis=0)
+        else:
+            gamma = _fit_share_logit(mix.W, q, gamma)
+            pi = _softmax_shares(mix.W, gamma)
+        if pi.reshape(-1, mix.K).mean(axis=0).min() < 1e-6:
+            raise EstimationError("a type's share fell below 1e-6: an empty type.")
         Zt, et, _, _ = mix.terms(np.zeros(mix.p) if theta is None else theta, P)
         theta = newton_pseudo(Zt, et, mix.weighted_counts(q), theta, names=names)[0]
         lam, loglam = cell_logit(Zt, et, theta)
@@ -378,7 +441,8 @@ def _em(mix: _Mixture, q: np.ndarray, *, names: tuple[str, ...], max_em: int,
             done = True
             break
     assert theta is not None
-    eta = np.concatenate([theta, q.mean(axis=0)[1:]])
+    eta = np.concatenate([theta, q.mean(axis=0)[1:] if gamma is None else
+                          _fit_share_logit(mix.W, q, gamma).ravel()])
     if update == "data":
         return _Fit(eta=eta, loglik=_DataSystem(mix).loglik(eta, P), P=P, em_iterations=it,
                     em_converged=done)
@@ -508,7 +572,13 @@ def _relabel(mix: _Mixture, fit: _Fit, const: Sequence[int], m: int) -> _Fit:
     new[p0:] = (level[order[1:]] - level[order[0]][None, :]).ravel()
     S = mix.S
     P = np.concatenate([fit.P[k * S:(k + 1) * S] for k in order])
-    eta = np.concatenate([new, pi[order][1:]])
+    if mix.W is None:
+        rest = pi[order][1:]
+    else:  # re-reference the log-odds to the new type 1
+        g = np.zeros((K, mix.W.shape[1]))
+        g[1:] = fit.eta[mix.p:].reshape(K - 1, -1)
+        rest = (g[order[1:]] - g[order[0]][None, :]).ravel()
+    eta = np.concatenate([new, rest])
     return _Fit(eta=eta, loglik=fit.loglik, P=P, em_iterations=fit.em_iterations,
                 em_converged=fit.em_converged)
 
@@ -623,6 +693,56 @@ def _shift_columns(problem: DiscreteProblem,
     return shifts, const
 
 
+def _share_design(panel: Panel, columns: Sequence[str],
+                  ccp_update: str) -> tuple[np.ndarray | None, tuple[str, ...]]:
+    """(n_units, 1 + c) the type probabilities' covariates, one row per unit in the panel's
+    sorted unit order (a constant first), or None without covariates."""
+    if isinstance(columns, (str, bytes)) or not isinstance(columns, Sequence):
+        raise InputError(f"share_covariates must be a list of column names, got {columns!r}.")
+    if not columns:
+        return None, ()
+    if ccp_update != "model":
+        raise InputError("share_covariates needs ccp_update='model' (the data update's moment "
+                         "system has the shares alone).")
+    frame = panel.frame
+    out = []
+    for c in columns:
+        if c not in frame.columns:
+            raise InputError(f"share_covariates names {c!r}, which is not a column of the panel; "
+                             f"its columns are {', '.join(map(str, frame.columns))}.")
+        col = pd.to_numeric(frame[c], errors="coerce")
+        if col.isna().any():
+            raise InputError(f"share_covariates column {c!r} has {int(col.isna().sum())} "
+                             f"missing or non-numeric values; type probabilities need a number "
+                             f"for every unit.")
+        by_unit = col.groupby(panel.unit_codes)
+        varying = int((by_unit.nunique() > 1).sum())
+        if varying:
+            raise InputError(f"share_covariates column {c!r} changes within {varying} units; a "
+                             f"unit's type is permanent, so its covariates must be too (use the "
+                             f"unit's first value, or a unit mean).")
+        out.append(by_unit.first().to_numpy(dtype=float))
+    return np.column_stack([np.ones(panel.n_units), *out]), tuple(columns)
+
+
+def _shares_and_errors(mix: _Mixture, eta: np.ndarray,
+                       cov: np.ndarray) -> tuple[np.ndarray, tuple[float, ...]]:
+    """The type shares (sample averages of the type probabilities) and their standard errors
+    by the delta method (central-difference gradient)."""
+    def shares(e: np.ndarray) -> np.ndarray:
+        return mix.split(e)[1].reshape(-1, mix.K).mean(axis=0)
+
+    grad = np.empty((mix.K, eta.size))
+    for j in range(eta.size):
+        h = 1e-6 * max(1.0, abs(eta[j]))
+        up, dn = eta.copy(), eta.copy()
+        up[j] += h
+        dn[j] -= h
+        grad[:, j] = (shares(up) - shares(dn)) / (2 * h)
+    V = grad @ cov @ grad.T
+    return shares(eta), tuple(float(v) for v in np.sqrt(np.maximum(np.diag(V), 0.0)))
+
+
 def _slope_columns(problem: DiscreteProblem, type_slopes: Sequence[str],
                    const: Sequence[int]) -> list[int]:
     """The design columns of the parameters whose coefficient differs by type."""
@@ -659,6 +779,7 @@ def estimate_types(
     increment_range: tuple[int, int] | None = None,
     base: Mapping[Any, Any] | None = None,
     ccp_update: str = "model",
+    share_covariates: Sequence[str] = (),
     starts: int = 5,
     initial_posteriors: Any = None,
     max_em: int = 2000,
@@ -704,6 +825,13 @@ def estimate_types(
         order :math:`n^{-1/2}`; its fixed point is solved as a system of unit-level moments
         (pseudo-scores, shares, weighted frequencies) and its standard errors come from that
         system's sandwich, so they include the CCPs' estimation.
+    share_covariates : sequence of str, default=()
+        Numeric panel columns, constant within each unit, on which the type probabilities
+        depend through a multinomial logit,
+        :math:`\pi_{ik} \propto \exp(\gamma_{k0} + w_i'\gamma_k)` with :math:`\gamma_1 = 0`;
+        the parameters ``"logodds:type<k>"`` and ``"logodds:type<k>:<column>"`` replace the
+        shares, and ``details.shares`` are the sample averages of :math:`\pi_{ik}`
+        (standard errors by the delta method). Needs ``ccp_update="model"``.
     starts : int, default=5
         EM starts: the first from units ranked by how often they make the first shifted
         choice, the others from random posteriors (drawn from ``seed``). The best maximum is
@@ -771,12 +899,17 @@ def estimate_types(
     shifts, const = _shift_columns(problem, type_shifts)
     slopes = _slope_columns(problem, type_slopes, const)
     K, m = int(n_types), len(shifts) + len(slopes)
-    mix = _Mixture(problem, shifts, slopes, K)
+    W, covariates = _share_design(panel, share_covariates, ccp_update)
+    mix = _Mixture(problem, shifts, slopes, K, W)
     per_type = [str(problem.choices[j]) for j in shifts] + [problem.parameters[c] for c in slopes]
     shift_names = tuple(f"{name}:type{k}" for k in range(2, K + 1) for name in per_type)
     varying = const + slopes  # the base columns the type-specific ones shift
     names = problem.parameters + shift_names
-    all_names = names + tuple(f"share:type{k}" for k in range(2, K + 1))
+    if W is None:
+        all_names = names + tuple(f"share:type{k}" for k in range(2, K + 1))
+    else:  # log-odds of type k against type 1: a constant and one slope per covariate
+        all_names = names + tuple(f"logodds:type{k}" + (f":{c}" if c else "")
+                                  for k in range(2, K + 1) for c in ("", *covariates))
     t_first = time.perf_counter() - t_start
 
     fits: list[_Fit] = []
@@ -869,9 +1002,7 @@ def estimate_types(
     if not np.all(np.isfinite(diag)) or np.any(diag <= 0):
         raise EstimationError("the covariance is not positive definite at the estimate; the "
                               "types are not identified in this sample.")
-    pi = mix.split(best.eta)[1]
-    share_cov = ce.cov[mix.p:, mix.p:]
-    share_se = (float(np.sqrt(share_cov.sum())), *np.sqrt(np.diag(share_cov)).tolist())
+    pi, share_se = _shares_and_errors(mix, best.eta, ce.cov)
     small = [k for k in range(K) if pi[k] - 1.959964 * share_se[k] <= 0]
     if small:
         warnings.warn(
@@ -883,6 +1014,7 @@ def estimate_types(
     details = TypesDetails(
         n_types=K, type_shifts=tuple(str(problem.choices[j]) for j in shifts),
         type_slopes=tuple(problem.parameters[c] for c in slopes), ccp_update=ccp_update,
+        share_covariates=covariates,
         em_iterations=best.em_iterations, em_converged=best.em_converged,
         newton_steps=best.newton_steps, loglik=L,
         starts=int(starts), starts_agreeing=agree, starts_failed=failed,
