@@ -19,6 +19,8 @@ interval, and the replications whose type estimate failed or whose starts disagr
     python benchmarks/types_mc.py --reps 200 --units 500 --periods 10
     python benchmarks/types_mc.py --reps 200 --units 500 --periods 10 --ccp-update data \\
         --out benchmarks/results/types_mc_data.json
+    python benchmarks/types_mc.py --reps 200 --units 500 --periods 10 --share-covariate \\
+        --out benchmarks/results/types_mc_covariate.json
 """
 
 from __future__ import annotations
@@ -62,10 +64,19 @@ def main() -> None:
     ap.add_argument("--units", type=int, default=500)
     ap.add_argument("--periods", type=int, default=10)
     ap.add_argument("--ccp-update", choices=["model", "data"], default="model")
+    ap.add_argument("--share-covariate", action="store_true",
+                    help="types drawn 50/50 and a unit covariate z | type ~ N(-0.6 or 0.6, 1), "
+                         "so P(type 2 | z) is logistic (intercept 0, slope 1.2); estimated "
+                         "with share_covariates=['z']")
     ap.add_argument("--out", type=Path, default=RESULTS / "types_mc.json")
     a = ap.parse_args()
-    design = TypesDesign()
+    design = TypesDesign(shares=(0.5, 0.5)) if a.share_covariate else TypesDesign()
     truth = design.truth
+    extra: dict = {}
+    if a.share_covariate:
+        del truth["share:type2"]
+        truth.update({"logodds:type2": 0.0, "logodds:type2:z": 1.2})
+        extra = {"share_covariates": ["z"]}
     names = list(truth)
     rows: list[tuple[np.ndarray, np.ndarray]] = []
     ignore: list[tuple[np.ndarray, np.ndarray]] = []
@@ -73,13 +84,17 @@ def main() -> None:
     t0 = time.perf_counter()
     for r in range(a.reps):
         df = simulate_types(design, units=a.units, periods=a.periods, seed=1000 + r)
+        if a.share_covariate:
+            kind = df.groupby("unit")["type"].first().to_numpy()
+            z = np.random.default_rng(5000 + r).normal(np.where(kind == 2, 0.6, -0.6), 1.0)
+            df["z"] = z[df["unit"].to_numpy()]
         panel = oc.Panel(df, unit="unit", period="period", choice="choice", states=["x"])
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", OrthoCCPWarning)
             try:
                 res = estimate_types(panel, utility=UTILITY, discount=design.discount,
                                      type_shifts=["replace"], n_states=design.n_states,
-                                     starts=3, seed=r, ccp_update=a.ccp_update)
+                                     starts=3, seed=r, ccp_update=a.ccp_update, **extra)
             except EstimationError:
                 failed += 1
             else:
@@ -94,14 +109,16 @@ def main() -> None:
             print(f"{r + 1}/{a.reps} replications ({time.perf_counter() - t0:.0f} s)", flush=True)
     theta, se = (np.array([x[k] for x in rows]) for k in (0, 1))
     out = {
-        "orthoccp_version": __version__, "design": "TypesDesign()", "truth": truth,
+        "orthoccp_version": __version__, "truth": truth,
+        "design": ("TypesDesign(shares=(0.5, 0.5)), z | type ~ N(-0.6 or 0.6, 1)"
+                   if a.share_covariate else "TypesDesign()"),
         "ccp_update": a.ccp_update,
         "units": a.units, "periods": a.periods, "reps": a.reps, "failed": failed,
         "starts_disagreed": disagreed, "seconds": time.perf_counter() - t0,
         "types": _summary(theta, se, np.array([truth[n] for n in names]), names),
-        "share_logit_interval_coverage": float(np.mean(_logit_covers(
-            theta[:, names.index("share:type2")], se[:, names.index("share:type2")],
-            truth["share:type2"]))),
+        "share_logit_interval_coverage": None if a.share_covariate else float(np.mean(
+            _logit_covers(theta[:, names.index("share:type2")],
+                          se[:, names.index("share:type2")], truth["share:type2"]))),
         "replications": {"names": names, "estimates": theta.tolist(),
                          "std_errors": se.tolist()},
         "ignoring_types": _summary(np.array([x[0] for x in ignore]),
@@ -115,7 +132,9 @@ def main() -> None:
         for name, s in out[block].items():
             print(f"{block:15s} {name:14s} bias {s['bias']:+.3f} sd/se {s['sd_over_se']:.2f} "
                   f"cov {s['coverage']:.3f}")
-    print(f"share interval on the log-odds scale covers {out['share_logit_interval_coverage']:.3f}")
+    if not a.share_covariate:
+        print(f"share interval on the log-odds scale covers "
+              f"{out['share_logit_interval_coverage']:.3f}")
     print(f"failed {failed}, starts disagreed {disagreed}; wrote {a.out}")
 
 

@@ -913,3 +913,18 @@ def test_types_bootstrap_table_matches_its_json() -> None:
         _assert_printed(row["sandwich s.e."], r["std_error"], where)
         _assert_printed(row["bootstrap SD"], r["bootstrap_sd"], where)
         _assert_printed(row["ratio"], r["ratio"], where)
+
+
+def test_types_covariate_table_matches_its_json() -> None:
+    """The covariate-dependent type probabilities' table is
+    benchmarks/results/types_mc_covariate.json's."""
+    doc = _json("types_mc_covariate.json")
+    section = _section(_page("validation.md"), "## Unobserved types: a two-type renewal design")
+    rows = _tables(section[section.index("**Type probabilities that depend on a unit"):])[0]
+    assert doc["failed"] == 0 and len(rows) == len(doc["types"]) == 5
+    for row in rows:
+        v = doc["types"][row["parameter"]]
+        _assert_printed(row["truth"], doc["truth"][row["parameter"]], row["parameter"])
+        _assert_printed(row["bias"], v["bias"], row["parameter"])
+        _assert_printed(row["SD / s.e."], v["sd_over_se"], row["parameter"])
+        _assert_printed(row["coverage"], v["coverage"], row["parameter"])
