@@ -641,16 +641,16 @@ def _transition_correction(mix: _Mixture, total: Any, dim: int) -> np.ndarray:
     tm = problem.transitions
     base = [sparse.csr_matrix(m) for m in tm.matrices]
     G = np.zeros((S, J, S, dim))  # d summed moments / d F_j(s, s')
+    for F in base:
+        F.sum_duplicates()  # one stored entry per (s, s'): the one each step moves
     for j, F in enumerate(base):
-        coo = F.tocoo()
-        for s, s1 in zip(coo.row, coo.col):
+        rows = np.repeat(np.arange(S), np.diff(F.indptr))
+        for idx, (s, s1) in enumerate(zip(rows, F.indices)):
             out = []
             for sign in (1.0, -1.0):
-                mats = [m.copy() for m in base]
-                mats[j] = mats[j].tolil()
-                mats[j][s, s1] += sign * 1e-6
-                mats[j] = mats[j].tocsr()
-                mix.set_transitions(mats)
+                moved = F.copy()
+                moved.data[idx] += sign * 1e-6
+                mix.set_transitions([moved if i == j else m for i, m in enumerate(base)])
                 out.append(total())
             G[s, j, s1] = (out[0] - out[1]) / 2e-6
     mix.set_transitions(base)
